@@ -1,0 +1,164 @@
+"""Local RBF interpolant: value, gradient and Hessian of φ at arbitrary points.
+
+Each node carries the PHS + polynomial interpolant of its own stencil (the
+same stencils the RBF-FD operators use); a query point is served by the
+interpolant of its nearest node. The interpolation matrices depend only on
+geometry: their inverses are computed once per node set (once in all for the
+translated interior stencils of a lattice), so refreshing the coefficients
+after φ changes is a single batched matrix product, and evaluating needs no
+solve at all.
+
+References
+----------
+.. [1] N. Flyer, B. Fornberg, V. Bayona, G. A. Barnett, "On the role of
+   polynomials in RBF-FD approximations: I. Interpolation and accuracy",
+   J. Comput. Phys. 321 (2016) 21-38.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy.spatial import cKDTree
+
+from engine.kernels import check_phs
+from engine.polynomials import apply_to_monomials, monomial_count, monomial_exponents
+from engine.rbffd import SOLVE_CHUNK, validate_points
+
+
+@dataclass(frozen=True)
+class LocalInterpolant:
+    """Per-node local interpolants on a fixed node set (geometry only)."""
+
+    points: NDArray[np.floating]  # (N, d) node coordinates (mm)
+    stencils: NDArray[np.int64]  # (N, n) node indices, owner node first
+    radius: NDArray[np.floating]  # (N,) stencil radius used for scaling
+    scaled: NDArray[np.floating]  # (N, n, d) stencil nodes relative to owner / radius
+    inverse_index: NDArray[np.int64]  # (N,) row of `inverses` serving each node
+    inverses: NDArray[np.floating]  # (U, n + M, n): stencil values -> [alpha; beta]
+    exponents: NDArray[np.int64]  # (M, d)
+    phs: int
+    tree: cKDTree
+
+    @classmethod
+    def build(cls, points: ArrayLike, stencils: ArrayLike, *, degree: int = 4, phs: int = 5) -> "LocalInterpolant":
+        """Factor the interpolation systems of every node's stencil.
+
+        ``stencils[i]`` lists the nodes of node i's stencil; translated copies
+        of a stencil shape share one inverse.
+        """
+        pts = validate_points(points)
+        st = np.asarray(stencils, dtype=np.int64)
+        check_phs(phs)
+        dim = pts.shape[1]
+        m = monomial_count(dim, degree)
+        if st.ndim != 2 or st.shape[0] != len(pts):
+            raise ValueError(f"stencils must be (N, n) with N = {len(pts)}, got shape {st.shape}")
+        if st.shape[1] < m:
+            raise ValueError(f"stencil_size={st.shape[1]} is smaller than the {m} monomials of degree {degree}")
+        if degree < (phs - 1) // 2:
+            raise ValueError(f"degree={degree} is too low for r^{phs}")
+        rel = pts[st] - pts[:, None, :]
+        radius = np.sqrt(np.max(np.einsum("snd,snd->sn", rel, rel), axis=1))
+        if np.any(radius <= 0):
+            raise ValueError("points: a stencil has zero radius")
+        scaled = rel / radius[:, None, None]
+        key = np.round(scaled.reshape(len(st), -1) * 2**30).astype(np.int64)
+        _, first, inverse_index = np.unique(key, axis=0, return_index=True, return_inverse=True)
+        exps = monomial_exponents(dim, degree)
+        inverses = _interpolation_inverses(scaled[first], exps, phs)
+        return cls(pts, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs, cKDTree(pts))
+
+    def coefficients(self, values: ArrayLike) -> NDArray[np.floating]:
+        """Interpolation coefficients [alpha; beta] of every node's stencil, (N, n + M)."""
+        f = np.asarray(values, dtype=float)
+        if f.shape != (len(self.points),):
+            raise ValueError(f"values must have shape ({len(self.points)},), got {f.shape}")
+        local = f[self.stencils]
+        out = np.empty((len(f), self.inverses.shape[1]))
+        for u in range(len(self.inverses)):
+            rows = np.flatnonzero(self.inverse_index == u) if len(self.inverses) > 1 else slice(None)
+            out[rows] = local[rows] @ self.inverses[u].T
+        return out
+
+    def owners(self, query: NDArray[np.floating]) -> NDArray[np.int64]:
+        """Index of the node whose interpolant serves each query point (nearest node)."""
+        _, idx = self.tree.query(query)
+        return np.asarray(idx, dtype=np.int64)
+
+    def evaluate(
+        self,
+        query: ArrayLike,
+        coefficients: NDArray[np.floating],
+        *,
+        owners: NDArray[np.int64] | None = None,
+        order: int = 2,
+    ) -> tuple[NDArray[np.floating], NDArray[np.floating] | None, NDArray[np.floating] | None]:
+        """Value, gradient (Q, d) and Hessian (Q, d, d) of the interpolant at ``query``.
+
+        Gradient and Hessian are None when ``order`` is below 1 or 2.
+        """
+        q = validate_points(query, "query")
+        own = self.owners(q) if owners is None else owners
+        delta = self.radius[own]
+        xq = (q - self.points[own]) / delta[:, None]
+        diff = xq[:, None, :] - self.scaled[own]  # (Q, n, d)
+        r2 = np.einsum("qnd,qnd->qn", diff, diff)
+        r = np.sqrt(r2)
+        n = self.stencils.shape[1]
+        alpha = coefficients[own, :n]
+        beta = coefficients[own, n:]
+        m = self.phs
+        dim = q.shape[1]
+        value = np.einsum("qn,qn->q", alpha, r**m)
+        value += np.einsum("qk,qk->q", beta, apply_to_monomials(xq, self.exponents, ((1.0, (0,) * dim),)))
+        grad = hess = None
+        if order >= 1:
+            rm2 = r ** (m - 2)
+            grad = m * np.einsum("qn,qn,qnd->qd", alpha, rm2, diff)
+            for i in range(dim):
+                e = tuple(int(i == k) for k in range(dim))
+                grad[:, i] += np.einsum("qk,qk->q", beta, apply_to_monomials(xq, self.exponents, ((1.0, e),)))
+            grad /= delta[:, None]
+        if order >= 2:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rm4 = np.where(r > 0, r ** (m - 4.0), 0.0) if m < 4 else r ** (m - 4)
+            hess = m * (m - 2) * np.einsum("qn,qn,qnd,qne->qde", alpha, rm4, diff, diff)
+            hess += m * np.einsum("qn,qn->q", alpha, rm2)[:, None, None] * np.eye(dim)[None]
+            for i in range(dim):
+                for j in range(i, dim):
+                    a = [0] * dim
+                    a[i] += 1
+                    a[j] += 1
+                    term = np.einsum("qk,qk->q", beta, apply_to_monomials(xq, self.exponents, ((1.0, tuple(a)),)))
+                    hess[:, i, j] += term
+                    if i != j:
+                        hess[:, j, i] += term
+            hess /= (delta**2)[:, None, None]
+        return value, grad, hess
+
+
+def _interpolation_inverses(scaled: NDArray[np.floating], exps: NDArray[np.int64], phs: int) -> NDArray[np.floating]:
+    """Columns of the inverse saddle-point matrices that map values to coefficients."""
+    u_count, n, dim = scaled.shape
+    m = exps.shape[0]
+    out = np.empty((u_count, n + m, n))
+    for start in range(0, u_count, SOLVE_CHUNK):
+        x = scaled[start:start + SOLVE_CHUNK]
+        c = len(x)
+        diff = x[:, :, None, :] - x[:, None, :, :]
+        a = np.sqrt(np.einsum("sijd,sijd->sij", diff, diff)) ** phs
+        p = apply_to_monomials(x, exps, ((1.0, (0,) * dim),))
+        system = np.zeros((c, n + m, n + m))
+        system[:, :n, :n] = a
+        system[:, :n, n:] = p
+        system[:, n:, :n] = np.transpose(p, (0, 2, 1))
+        rhs = np.zeros((c, n + m, n))
+        rhs[:, :n, :] = np.eye(n)[None]
+        try:
+            out[start:start + c] = np.linalg.solve(system, rhs)
+        except np.linalg.LinAlgError as exc:
+            raise ValueError("points: a stencil is degenerate (collinear or duplicate nodes)") from exc
+    return out
