@@ -67,8 +67,9 @@ def closest_points(
     query : (Q, d) points (same units as the interpolant's nodes).
     start : (Q, d) initial guesses on or near the zero set (e.g. the nearest
         contour vertex). Default: a few gradient projections from ``query``.
-    tol : step size below which a point has converged; default 1e-10 × the
-        typical stencil radius.
+    tol : step size below which a point has converged; default 1e-8 × the
+        typical stencil radius (Newton converges quadratically, so the
+        distance is then accurate far below that).
     max_iter : Newton iterations at most.
     trust : largest allowed step per iteration; default half a stencil radius.
 
@@ -78,7 +79,7 @@ def closest_points(
     """
     x = validate_points(query, "query")
     scale = float(np.median(interp.radius))
-    tol = 1e-10 * scale if tol is None else float(tol)
+    tol = 1e-8 * scale if tol is None else float(tol)
     trust = 0.5 * scale if trust is None else float(trust)
     if start is None:
         y = chopp_projection(interp, coeffs, x)

@@ -24,7 +24,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
 from engine.kernels import check_phs
-from engine.polynomials import apply_to_monomials, monomial_count, monomial_exponents
+from engine.polynomials import apply_to_monomials, monomial_count, monomial_exponents, monomial_table
 from engine.rbffd import SOLVE_CHUNK, validate_points
 
 
@@ -33,34 +33,43 @@ class LocalInterpolant:
     """Per-node local interpolants on a fixed node set (geometry only)."""
 
     points: NDArray[np.floating]  # (N, d) node coordinates (mm)
-    stencils: NDArray[np.int64]  # (N, n) node indices, owner node first
-    radius: NDArray[np.floating]  # (N,) stencil radius used for scaling
-    scaled: NDArray[np.floating]  # (N, n, d) stencil nodes relative to owner / radius
-    inverse_index: NDArray[np.int64]  # (N,) row of `inverses` serving each node
+    owner_nodes: NDArray[np.int64]  # (U,) nodes that carry an interpolant
+    stencils: NDArray[np.int64]  # (U, n) node indices of each owner's stencil
+    radius: NDArray[np.floating]  # (U,) stencil radius used for scaling
+    scaled: NDArray[np.floating]  # (U, n, d) stencil nodes relative to owner / radius
+    inverse_index: NDArray[np.int64]  # (U,) row of `inverses` serving each owner
     inverses: NDArray[np.floating]  # (U, n + M, n): stencil values -> [alpha; beta]
     exponents: NDArray[np.int64]  # (M, d)
     phs: int
     tree: cKDTree
 
     @classmethod
-    def build(cls, points: ArrayLike, stencils: ArrayLike, *, degree: int = 4, phs: int = 5) -> "LocalInterpolant":
-        """Factor the interpolation systems of every node's stencil.
+    def build(
+        cls, points: ArrayLike, stencils: ArrayLike, *, owners: ArrayLike | None = None,
+        degree: int = 4, phs: int = 5,
+    ) -> "LocalInterpolant":
+        """Factor the interpolation systems of the owners' stencils.
 
-        ``stencils[i]`` lists the nodes of node i's stencil; translated copies
-        of a stencil shape share one inverse.
+        ``stencils[u]`` lists the nodes of owner u's stencil; ``owners`` are
+        the node indices carrying an interpolant (default: every node, with
+        ``stencils`` of shape (N, n)). Query points are served by the nearest
+        owner. Translated copies of a stencil shape share one inverse.
         """
         pts = validate_points(points)
         st = np.asarray(stencils, dtype=np.int64)
+        own = np.arange(len(pts)) if owners is None else np.asarray(owners, dtype=np.int64)
         check_phs(phs)
         dim = pts.shape[1]
         m = monomial_count(dim, degree)
-        if st.ndim != 2 or st.shape[0] != len(pts):
-            raise ValueError(f"stencils must be (N, n) with N = {len(pts)}, got shape {st.shape}")
+        if st.ndim != 2 or st.shape[0] != len(own):
+            raise ValueError(f"stencils must be (U, n) with U = {len(own)} owners, got shape {st.shape}")
+        if len(own) == 0:
+            raise ValueError("owners: no node carries an interpolant")
         if st.shape[1] < m:
             raise ValueError(f"stencil_size={st.shape[1]} is smaller than the {m} monomials of degree {degree}")
         if degree < (phs - 1) // 2:
             raise ValueError(f"degree={degree} is too low for r^{phs}")
-        rel = pts[st] - pts[:, None, :]
+        rel = pts[st] - pts[own][:, None, :]
         radius = np.sqrt(np.max(np.einsum("snd,snd->sn", rel, rel), axis=1))
         if np.any(radius <= 0):
             raise ValueError("points: a stencil has zero radius")
@@ -69,22 +78,23 @@ class LocalInterpolant:
         _, first, inverse_index = np.unique(key, axis=0, return_index=True, return_inverse=True)
         exps = monomial_exponents(dim, degree)
         inverses = _interpolation_inverses(scaled[first], exps, phs)
-        return cls(pts, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs, cKDTree(pts))
+        return cls(pts, own, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs,
+                   cKDTree(pts[own]))
 
     def coefficients(self, values: ArrayLike) -> NDArray[np.floating]:
-        """Interpolation coefficients [alpha; beta] of every node's stencil, (N, n + M)."""
+        """Interpolation coefficients [alpha; beta] of every owner's stencil, (U, n + M)."""
         f = np.asarray(values, dtype=float)
         if f.shape != (len(self.points),):
             raise ValueError(f"values must have shape ({len(self.points)},), got {f.shape}")
         local = f[self.stencils]
-        out = np.empty((len(f), self.inverses.shape[1]))
+        out = np.empty((len(self.stencils), self.inverses.shape[1]))
         for u in range(len(self.inverses)):
             rows = np.flatnonzero(self.inverse_index == u) if len(self.inverses) > 1 else slice(None)
             out[rows] = local[rows] @ self.inverses[u].T
         return out
 
     def owners(self, query: NDArray[np.floating]) -> NDArray[np.int64]:
-        """Index of the node whose interpolant serves each query point (nearest node)."""
+        """Index (into the owners) of the interpolant serving each query point: the nearest owner."""
         _, idx = self.tree.query(query)
         return np.asarray(idx, dtype=np.int64)
 
@@ -103,39 +113,41 @@ class LocalInterpolant:
         q = validate_points(query, "query")
         own = self.owners(q) if owners is None else owners
         delta = self.radius[own]
-        xq = (q - self.points[own]) / delta[:, None]
-        diff = xq[:, None, :] - self.scaled[own]  # (Q, n, d)
+        xq = (q - self.points[self.owner_nodes[own]]) / delta[:, None]
+        if len(self.inverses) == 1:  # all stencils are translates: no gather needed
+            diff = xq[:, None, :] - self.scaled[0][None]
+        else:
+            diff = xq[:, None, :] - self.scaled[own]  # (Q, n, d)
         r2 = np.einsum("qnd,qnd->qn", diff, diff)
-        r = np.sqrt(r2)
         n = self.stencils.shape[1]
-        alpha = coefficients[own, :n]
-        beta = coefficients[own, n:]
+        coef = coefficients[own]
+        alpha = coef[:, :n]
+        beta = coef[:, n:]
         m = self.phs
         dim = q.shape[1]
-        value = np.einsum("qn,qn->q", alpha, r**m)
-        value += np.einsum("qk,qk->q", beta, apply_to_monomials(xq, self.exponents, ((1.0, (0,) * dim),)))
+        poly, poly_grad, poly_hess = monomial_table(xq, self.exponents, order)
+        r = np.sqrt(r2)
+        value = np.einsum("qn,qn->q", alpha, r2 * r ** (m - 2)) + np.einsum("qk,qk->q", beta, poly)
         grad = hess = None
         if order >= 1:
-            rm2 = r ** (m - 2)
-            grad = m * np.einsum("qn,qn,qnd->qd", alpha, rm2, diff)
-            for i in range(dim):
-                e = tuple(int(i == k) for k in range(dim))
-                grad[:, i] += np.einsum("qk,qk->q", beta, apply_to_monomials(xq, self.exponents, ((1.0, e),)))
+            w2 = m * alpha * r ** (m - 2)  # coefficient of Δx in ∇r^m
+            grad = np.stack([np.einsum("qn,qn->q", w2, diff[:, :, i]) for i in range(dim)], axis=1)
+            grad += np.einsum("qk,qkd->qd", beta, poly_grad)
             grad /= delta[:, None]
         if order >= 2:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                rm4 = np.where(r > 0, r ** (m - 4.0), 0.0) if m < 4 else r ** (m - 4)
-            hess = m * (m - 2) * np.einsum("qn,qn,qnd,qne->qde", alpha, rm4, diff, diff)
-            hess += m * np.einsum("qn,qn->q", alpha, rm2)[:, None, None] * np.eye(dim)[None]
+            if m < 3:
+                raise ValueError("Hessians need phs >= 3")
+            w4 = m * (m - 2) * alpha * r ** (m - 4) if m >= 4 else m * (m - 2) * alpha * np.where(r > 0, r, np.inf) ** (m - 4.0)
+            hess = np.empty((len(q), dim, dim))
+            trace_part = w2.sum(axis=1)
             for i in range(dim):
+                wi = w4 * diff[:, :, i]
                 for j in range(i, dim):
-                    a = [0] * dim
-                    a[i] += 1
-                    a[j] += 1
-                    term = np.einsum("qk,qk->q", beta, apply_to_monomials(xq, self.exponents, ((1.0, tuple(a)),)))
-                    hess[:, i, j] += term
-                    if i != j:
-                        hess[:, j, i] += term
+                    v = np.einsum("qn,qn->q", wi, diff[:, :, j])
+                    if i == j:
+                        v = v + trace_part
+                    hess[:, i, j] = hess[:, j, i] = v
+            hess += np.einsum("qk,qkde->qde", beta, poly_hess)
             hess /= (delta**2)[:, None, None]
         return value, grad, hess
 

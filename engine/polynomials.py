@@ -96,3 +96,57 @@ def apply_to_monomials(
             powers = powers * points[..., axis, None] ** e
         out += coef * np.where(valid, factor * powers, 0.0)
     return out
+
+
+def monomial_table(
+    points: NDArray[np.floating], exponents: NDArray[np.int64], order: int = 0
+) -> tuple[NDArray[np.floating], NDArray[np.floating] | None, NDArray[np.floating] | None]:
+    """All monomials at ``points`` with their gradients and Hessians, from power tables.
+
+    Returns value (Q, M), gradient (Q, M, d) if ``order >= 1`` and Hessian
+    (Q, M, d, d) if ``order >= 2``.
+    """
+    q, dim = points.shape
+    top = int(exponents.max()) if exponents.size else 0
+    powers = np.empty((q, dim, top + 1))
+    powers[:, :, 0] = 1.0
+    for k in range(1, top + 1):
+        powers[:, :, k] = powers[:, :, k - 1] * points
+
+    def factor(axis: int, shift: int) -> NDArray[np.floating]:
+        e = exponents[:, axis] - shift
+        coef = np.ones(len(e))
+        for i in range(shift):
+            coef = coef * (exponents[:, axis] - i)
+        return np.where(e >= 0, coef, 0.0)[None, :] * powers[:, axis, np.clip(e, 0, None)]
+
+    base = [factor(a, 0) for a in range(dim)]
+    value = base[0]
+    for a in range(1, dim):
+        value = value * base[a]
+    grad = hess = None
+    if order >= 1:
+        first = [factor(a, 1) for a in range(dim)]
+        grad = np.empty((q, len(exponents), dim))
+        for i in range(dim):
+            term = first[i]
+            for a in range(dim):
+                if a != i:
+                    term = term * base[a]
+            grad[:, :, i] = term
+    if order >= 2:
+        second = [factor(a, 2) for a in range(dim)]
+        hess = np.empty((q, len(exponents), dim, dim))
+        for i in range(dim):
+            for j in range(i, dim):
+                if i == j:
+                    term = second[i]
+                    others = [a for a in range(dim) if a != i]
+                else:
+                    term = first[i] * first[j]
+                    others = [a for a in range(dim) if a not in (i, j)]
+                for a in others:
+                    term = term * base[a]
+                hess[:, :, i, j] = term
+                hess[:, :, j, i] = term
+    return value, grad, hess

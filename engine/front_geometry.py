@@ -1,0 +1,98 @@
+"""Small geometric helpers of the front: zero crossings, node balls, seed and stroke distances."""
+
+from __future__ import annotations
+
+import itertools
+from collections.abc import Callable
+
+import numpy as np
+from numpy.typing import NDArray
+
+from engine.lattice import LatticeLookup
+
+
+def ball_offsets(step: NDArray[np.floating], radius: float) -> NDArray[np.int64]:
+    """Integer lattice offsets o with |o * step| <= radius (mm)."""
+    reach = np.floor(radius / step).astype(int)
+    axes = [np.arange(-r, r + 1) for r in reach]
+    grid = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(step))
+    keep = np.sum((grid * step) ** 2, axis=1) <= radius**2
+    return grid[keep].astype(np.int64)
+
+
+def crossing_points(indices: NDArray[np.int64], values: NDArray[np.floating], step: NDArray[np.floating],
+                    *, lookup: LatticeLookup | None = None) -> NDArray[np.floating]:
+    """Zero crossings of ``values`` along lattice edges, by linear interpolation (mm).
+
+    Every pair of lattice neighbours (one step along one axis) whose values
+    differ in sign (< 0 against >= 0) gives one point on the zero set,
+    accurate to O(h²κ) — good starting points for Newton projection.
+    """
+    idx = np.asarray(indices, dtype=np.int64)
+    v = np.asarray(values, dtype=float)
+    lookup = lookup or LatticeLookup(idx)
+    dim = idx.shape[1]
+    out = []
+    for axis in range(dim):
+        e = np.zeros(dim, dtype=np.int64)
+        e[axis] = 1
+        nb = lookup.find(idx + e)
+        has = nb >= 0
+        a = np.flatnonzero(has)
+        b = nb[has]
+        va, vb = v[a], v[b]
+        change = (va < 0) != (vb < 0)
+        a, va, vb = a[change], va[change], vb[change]
+        t = va / (va - vb)
+        pts = idx[a].astype(float)
+        pts[:, axis] += t
+        out.append(pts * step)
+    return np.concatenate(out) if out else np.empty((0, dim))
+
+
+def seed_function(seeds: NDArray[np.floating], spacing: NDArray[np.floating]) -> Callable[[NDArray[np.floating]], NDArray[np.floating]]:
+    """φ of a union of seed disks/balls, min_k(|x − c_k| − r_k), in mm.
+
+    Seed radii are in pixels along the finest axis.
+    """
+    centres = seeds[:, :-1] * spacing
+    radii = seeds[:, -1] * float(np.min(spacing))
+
+    def phi(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
+        out = np.full(len(points_mm), np.inf)
+        for c, r in zip(centres, radii):
+            out = np.minimum(out, np.sqrt(np.sum((points_mm - c) ** 2, axis=1)) - r)
+        return out
+
+    return phi
+
+
+def polyline_distance(points: NDArray[np.floating], polyline: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Distance from each point to an open polyline (a single point is allowed)."""
+    if len(polyline) == 1:
+        return np.sqrt(np.sum((points - polyline[0]) ** 2, axis=1))
+    best = np.full(len(points), np.inf)
+    a = polyline[:-1]
+    b = polyline[1:]
+    ab = b - a
+    ab2 = np.maximum(np.sum(ab * ab, axis=1), 1e-300)
+    # chunk over segments to bound memory
+    chunk = max(1, 2_000_000 // max(len(points), 1))
+    for s in range(0, len(a), chunk):
+        aa, vv, ll = a[s:s + chunk], ab[s:s + chunk], ab2[s:s + chunk]
+        ap = points[:, None, :] - aa[None]
+        t = np.clip(np.einsum("psd,sd->ps", ap, vv) / ll[None], 0.0, 1.0)
+        closest = aa[None] + t[..., None] * vv[None]
+        d = np.sqrt(np.sum((points[:, None, :] - closest) ** 2, axis=2))
+        best = np.minimum(best, d.min(axis=1))
+    return best
+
+
+def stroke_distance(points_mm: NDArray[np.floating], stroke_mm: NDArray[np.floating], radius_mm: float) -> NDArray[np.floating]:
+    """Signed distance to a brush stroke (a capsule along the polyline), negative inside."""
+    return polyline_distance(points_mm, stroke_mm) - radius_mm
+
+
+def offsets_box(dim: int, reach: int) -> NDArray[np.int64]:
+    """All integer offsets in [−reach, reach]^dim."""
+    return np.array(list(itertools.product(range(-reach, reach + 1), repeat=dim)), dtype=np.int64)
