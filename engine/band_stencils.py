@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -102,7 +103,21 @@ def _weights_on(offsets: NDArray[np.int64], step: NDArray[np.floating], ops: lis
     return w / radius**orders[None, :]
 
 
-def band_stencil(
+def band_stencil(step: ArrayLike, *, stencil_size: int | None = None, degree: int = 4, phs: int = 5,
+                 upwind_degree: int = 2) -> BandStencil:
+    """Weights of the band's operators for lattice step ``step`` (mm); cached per settings."""
+    h = tuple(float(v) for v in np.asarray(step, dtype=float).reshape(-1))
+    return _band_stencil_cached(h, stencil_size, degree, phs, upwind_degree)
+
+
+@lru_cache(maxsize=32)
+def _band_stencil_cached(
+    step: tuple[float, ...], stencil_size: int | None, degree: int, phs: int, upwind_degree: int
+) -> BandStencil:
+    return _make_band_stencil(step, stencil_size=stencil_size, degree=degree, phs=phs, upwind_degree=upwind_degree)
+
+
+def _make_band_stencil(
     step: ArrayLike, *, stencil_size: int | None = None, degree: int = 4, phs: int = 5,
     upwind_degree: int = 2,
 ) -> BandStencil:

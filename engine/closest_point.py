@@ -6,7 +6,8 @@ F(y, λ) = (y − x + λ∇φ(y), φ(y)) with Jacobian [[I + λH, ∇φ], [∇φ
 converges in a handful of iterations from a start on or near the zero set,
 all query points in one batch. Steps are limited to a trust radius; points
 where Newton does not converge fall back to the gradient projection of Chopp
-(δ1 = −φ∇φ/|∇φ|², δ2 = (x0 − x) − [(x0 − x)·∇φ/|∇φ|²]∇φ) and are reported.
+(δ1 = −φ∇φ/|∇φ|², δ2 = (x0 − x) − [(x0 − x)·∇φ/|∇φ|²]∇φ; δ2 damped by the
+curvature so that it also converges far from the zero set) and are reported.
 
 References
 ----------
@@ -78,6 +79,11 @@ def closest_points(
     Saye, Commun. Appl. Math. Comput. Sci. 9(1) (2014) 107-141.
     """
     x = validate_points(query, "query")
+    if x.shape[1] != interp.points.shape[1]:
+        raise ValueError(f"query must be (Q, {interp.points.shape[1]}) like the nodes, got shape {x.shape}")
+    expected = (len(interp.stencils), interp.inverses.shape[1])
+    if np.shape(coeffs) != expected:
+        raise ValueError(f"coeffs must have shape {expected} (from interp.coefficients), got {np.shape(coeffs)}")
     scale = float(np.median(interp.radius))
     tol = 1e-8 * scale if tol is None else float(tol)
     trust = 0.5 * scale if trust is None else float(trust)
@@ -124,28 +130,44 @@ def closest_points(
         value[ia], grad[ia], hess[ia] = interp.evaluate(y[ia], coeffs)
     still = np.flatnonzero(~converged)
     if len(still):
-        y[still] = _chopp_fallback(interp, coeffs, x[still], y[still])
+        y[still] = _chopp_fallback(interp, coeffs, x[still], y[still], trust=trust)
     dist = np.sqrt(np.einsum("qd,qd->q", y - x, y - x))
     return ClosestPoints(y, dist, converged, iterations)
 
 
 def _chopp_fallback(
     interp: LocalInterpolant, coeffs: NDArray[np.floating], x: NDArray[np.floating],
-    y: NDArray[np.floating], *, iterations: int = 30
+    y: NDArray[np.floating], *, trust: float, iterations: int = 30
 ) -> NDArray[np.floating]:
-    """Chopp's alternating projection: onto the zero set, then orthogonal to ∇φ toward x."""
+    """Chopp's alternating projection: onto the zero set, then orthogonal to ∇φ toward x.
+
+    Undamped, the tangential step multiplies the tangential error by −Dκ
+    (D the distance of x along the normal, κ the curvature), so it diverges
+    where |D| exceeds the radius of curvature (far points, medial axis). It is
+    therefore scaled by 1 / (1 + |D| ‖H‖ / |∇φ|) (‖H‖/|∇φ| bounds every
+    curvature), which makes it a contraction toward the nearest minimum of
+    the distance, and both steps are limited to ``trust``.
+    """
     y = y.copy()
-    for _ in range(iterations):
-        value, grad, _ = interp.evaluate(y, coeffs, order=1)
+    for k in range(iterations + 3):
+        value, grad, hess = interp.evaluate(y, coeffs, order=2 if k < iterations else 1)
         g2 = np.maximum(np.einsum("qd,qd->q", grad, grad), 1e-300)
-        d1 = -(value / g2)[:, None] * grad
-        y0 = y + d1
+        y0 = y + _limit(-(value / g2)[:, None] * grad, trust)
+        if k >= iterations:  # final projections onto the zero set
+            y = y0
+            continue
         v = x - y0
-        d2 = v - (np.einsum("qd,qd->q", v, grad) / g2)[:, None] * grad
-        y = y0 + d2
-    value, grad, _ = interp.evaluate(y, coeffs, order=1)
-    g2 = np.maximum(np.einsum("qd,qd->q", grad, grad), 1e-300)
-    return y - (value / g2)[:, None] * grad
+        along = np.einsum("qd,qd->q", v, grad)
+        d2 = v - (along / g2)[:, None] * grad
+        bound = np.linalg.norm(hess, ord=2, axis=(1, 2)) / g2
+        y = y0 + _limit(d2 / (1.0 + np.abs(along) * bound)[:, None], trust)
+    return y
+
+
+def _limit(step: NDArray[np.floating], trust: float) -> NDArray[np.floating]:
+    """Scale the rows of ``step`` down to length ``trust`` at most."""
+    norm = np.sqrt(np.einsum("qd,qd->q", step, step))
+    return step * np.minimum(1.0, trust / np.maximum(norm, 1e-300))[:, None]
 
 
 def signed_distance(
@@ -163,6 +185,8 @@ def signed_distance(
     otherwise the interpolant is evaluated there.
     """
     x = validate_points(query, "query")
+    if sign_values is not None and np.shape(sign_values) != (len(x),):
+        raise ValueError(f"sign_values must have shape ({len(x)},) to match query, got {np.shape(sign_values)}")
     cp = closest_points(interp, coeffs, x, start=start, **newton)
     if sign_values is None:
         sign_values, _, _ = interp.evaluate(x, coeffs, order=0)

@@ -56,6 +56,7 @@ from engine.closest_point import closest_points
 from engine.front_geometry import (
     ball_offsets,
     crossing_points,
+    dilate_nodes,
     polyline_distance,
     seed_function,
     stroke_distance,
@@ -71,6 +72,10 @@ _FAR = 1.5
 #: Floor of the front speed used for the time step (mm per unit time), so a
 #: nearly still front still takes steps of bounded length.
 MIN_SPEED = 0.25
+#: Reinitialise the whole band at a rebuild when ||∇φ| − 1| next to the front
+#: exceeds this, or after this many rebuilds without one.
+REINIT_DRIFT = 0.005
+REINIT_EVERY = 6
 
 
 @dataclass(frozen=True)
@@ -170,7 +175,7 @@ class Front:
         fp = FrontParams(model=model, **params)
         feats = compute_features(img, sp, sigma_mm=fp.edge_sigma, contrast=fp.edge_contrast)
         step_mm = sp / detail
-        stencil = band_stencil(step_mm, stencil_size=fp.stencil_size, degree=fp.degree, phs=fp.phs)
+        stencil = band_stencil(step_mm, stencil_size=fp.stencil_size_for(img.ndim), degree=fp.degree, phs=fp.phs)
         return cls(feats, fp, detail, step_mm, stencil)
 
     @classmethod
@@ -299,31 +304,39 @@ class Front:
         return np.stack(np.unravel_index(keys, tuple(dims)), axis=1).astype(np.int64)
 
     def _build_band(self, starts_mm: NDArray[np.floating],
-                    values_at: Callable[[NDArray[np.int64]], NDArray[np.floating]]) -> None:
+                    values_at: Callable[[NDArray[np.int64]], NDArray[np.floating]], *,
+                    nodes: NDArray[np.int64] | None = None, trusted: NDArray[np.bool_] | None = None) -> None:
         """Make the band around the zero set near ``starts_mm`` and reinitialise φ on it.
 
         ``values_at`` gives approximate φ (exact near the zero set, correct in
-        sign elsewhere) at lattice indices.
+        sign elsewhere) at lattice indices. ``nodes`` are the candidate nodes
+        (default: all within the band half-width of ``starts_mm``);
+        ``trusted`` marks candidates whose value is already a signed distance
+        and is kept as it is (the others get Newton closest-point distances).
         """
         t0 = _time.perf_counter()
         width = self.band_half_width
-        nodes = self._candidate_nodes(starts_mm, width)
+        if nodes is None:
+            nodes = self._candidate_nodes(starts_mm, width)
         approx = values_at(nodes)
         # The zero set of the approximate values, as points on lattice edges.
-        starts = crossing_points(nodes, approx, self.step_mm)
+        lookup = LatticeLookup(nodes)
+        starts = crossing_points(nodes, approx, self.step_mm, lookup=lookup)
         if len(starts) == 0:
             raise ValueError("the front vanished: no zero crossing is left")
-        lookup = LatticeLookup(nodes)
-        pattern = symmetric_offsets(self.ndim, self.params.stencil_size)
-        table = lookup.find(nodes[:, None, :] + pattern[None])
-        owners = np.flatnonzero(np.all(table >= 0, axis=1))
-        positions = nodes * self.step_mm
-        interp = LocalInterpolant.build(positions, table[owners], owners=owners,
-                                        degree=self.params.degree, phs=self.params.phs)
-        coeffs = interp.coefficients(approx)
-        _, nearest = cKDTree(starts).query(positions)
-        cp = closest_points(interp, coeffs, positions, start=starts[nearest], max_iter=8)
-        phi = np.where(approx < 0, -1.0, 1.0) * cp.distance
+        todo = np.arange(len(nodes)) if trusted is None else np.flatnonzero(~trusted)
+        phi = approx.copy()
+        if len(todo):
+            pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
+            table = lookup.find(nodes[:, None, :] + pattern[None])
+            owners = np.flatnonzero(np.all(table >= 0, axis=1))
+            positions = nodes * self.step_mm
+            interp = LocalInterpolant.build(positions, table[owners], owners=owners, degree=self.params.degree,
+                                            phs=self.params.phs, translates=True)
+            coeffs = interp.coefficients(approx)
+            _, nearest = cKDTree(starts).query(positions[todo])
+            cp = closest_points(interp, coeffs, positions[todo], start=starts[nearest], max_iter=8)
+            phi[todo] = np.where(approx[todo] < 0, -1.0, 1.0) * cp.distance
         keep = np.abs(phi) <= width
         self._install_band(nodes[keep], phi[keep])
         self.timings["rebuild"] += _time.perf_counter() - t0
@@ -560,6 +573,7 @@ class Front:
 
     _curvature_gain: float = 1.0
     _last_kappa_max: float = 0.0
+    _since_reinit: int = 0
 
     def _time_step(self, speeds: NodeSpeeds, kappa_max: float) -> tuple[float, int]:
         """Time step and number of RKL2 stages.
@@ -642,11 +656,26 @@ class Front:
             return False
         return bool(np.any(np.abs(self._phi[far]) < 0.75 * self.h))
 
-    def rebuild(self) -> None:
-        """Rebuild the band around the current zero set and reinitialise φ to a signed distance."""
+    def rebuild(self, *, reinitialise: bool | None = None) -> None:
+        """Move the band with the front; reinitialise φ to a signed distance when it has drifted.
+
+        New band nodes always get Newton closest-point distances. The nodes
+        already in the band keep their values, which extension velocities
+        keep a signed distance, unless ``reinitialise`` is True, or None and
+        ||∇φ| − 1| next to the front exceeds ``REINIT_DRIFT`` or
+        ``REINIT_EVERY`` rebuilds have passed.
+        """
         b = self._band
+        if reinitialise is None:
+            grad = self._derivatives(self._phi)[0][b.layer]
+            drift = float(np.max(np.abs(np.sqrt(np.einsum("ni,ni->n", grad, grad)) - 1.0))) if len(grad) else 1.0
+            reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
         starts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
-        self._build_band(starts, self._current_values)
+        layers = int(np.ceil(self.band_half_width / self.h - self.params.band_width + 0.5)) + 4
+        nodes = dilate_nodes(b.indices, layers, (np.array(self.shape) - 1) * self.detail)
+        trusted = None if reinitialise else b.lookup.find(nodes) >= 0
+        self._build_band(starts, self._current_values, nodes=nodes, trusted=trusted)
+        self._since_reinit = 0 if reinitialise else self._since_reinit + 1
 
     def run(self, *, until_time: float | None = None, max_steps: int | None = None,
             progress: Callable[[int, float], None] | None = None) -> None:
@@ -674,11 +703,12 @@ class Front:
     def _interpolant(self) -> tuple[LocalInterpolant, NDArray[np.floating]]:
         b = self._band
         if b.interpolant is None:
-            pattern = symmetric_offsets(self.ndim, self.params.stencil_size)
+            pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
             table = b.lookup.find(b.indices[:, None, :] + pattern[None])
             owners = np.flatnonzero(np.all(table >= 0, axis=1))
             b.interpolant = LocalInterpolant.build(b.positions, table[owners], owners=owners,
-                                                   degree=self.params.degree, phs=self.params.phs)
+                                                   degree=self.params.degree, phs=self.params.phs,
+                                                   translates=True)
         if self._coeffs is None:
             self._coeffs = b.interpolant.coefficients(self._phi)
         return b.interpolant, self._coeffs
@@ -880,7 +910,7 @@ class Front:
                                              sigma_mm=new.edge_sigma, contrast=new.edge_contrast)
             self._reset_sums()
         if rebuild:
-            self.stencil = band_stencil(self.step_mm, stencil_size=new.stencil_size, degree=new.degree, phs=new.phs)
+            self.stencil = band_stencil(self.step_mm, stencil_size=new.stencil_size_for(self.ndim), degree=new.degree, phs=new.phs)
         if rebuild or features:
             self.rebuild()
         elif new.model == "region" and new.local_radius is not None:
@@ -906,7 +936,7 @@ class Front:
             self.params = snap.params
             self.features = compute_features(self.features.image, self.features.spacing,
                                              sigma_mm=snap.params.edge_sigma, contrast=snap.params.edge_contrast)
-            self.stencil = band_stencil(self.step_mm, stencil_size=snap.params.stencil_size,
+            self.stencil = band_stencil(self.step_mm, stencil_size=snap.params.stencil_size_for(self.ndim),
                                         degree=snap.params.degree, phs=snap.params.phs)
         self._inside = inside
         self._install_band(snap.indices.copy(), snap.phi.copy())

@@ -20,6 +20,25 @@ def ball_offsets(step: NDArray[np.floating], radius: float) -> NDArray[np.int64]
     return grid[keep].astype(np.int64)
 
 
+def dilate_nodes(indices: NDArray[np.int64], layers: int, upper: NDArray[np.int64]) -> NDArray[np.int64]:
+    """The node set grown by ``layers`` rings of lattice neighbours (3^d box), clipped to [0, upper]."""
+    dim = indices.shape[1]
+    dims = tuple(int(u) + 1 for u in upper)
+    box = np.array(list(itertools.product((-1, 0, 1), repeat=dim)), dtype=np.int64)
+    keys = np.unique(np.ravel_multi_index(tuple(indices.T), dims))
+    frontier = indices
+    for _ in range(layers):
+        grown = (frontier[:, None, :] + box[None]).reshape(-1, dim)
+        grown = grown[np.all((grown >= 0) & (grown <= upper), axis=1)]
+        grown_keys = np.unique(np.ravel_multi_index(tuple(grown.T), dims))
+        fresh = np.setdiff1d(grown_keys, keys, assume_unique=True)
+        if len(fresh) == 0:
+            break
+        keys = np.union1d(keys, fresh)
+        frontier = np.stack(np.unravel_index(fresh, dims), axis=1).astype(np.int64)
+    return np.stack(np.unravel_index(keys, dims), axis=1).astype(np.int64)
+
+
 def crossing_points(indices: NDArray[np.int64], values: NDArray[np.floating], step: NDArray[np.floating],
                     *, lookup: LatticeLookup | None = None) -> NDArray[np.floating]:
     """Zero crossings of ``values`` along lattice edges, by linear interpolation (mm).

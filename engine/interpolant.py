@@ -46,14 +46,16 @@ class LocalInterpolant:
     @classmethod
     def build(
         cls, points: ArrayLike, stencils: ArrayLike, *, owners: ArrayLike | None = None,
-        degree: int = 4, phs: int = 5,
+        degree: int = 4, phs: int = 5, translates: bool = False,
     ) -> "LocalInterpolant":
         """Factor the interpolation systems of the owners' stencils.
 
         ``stencils[u]`` lists the nodes of owner u's stencil; ``owners`` are
         the node indices carrying an interpolant (default: every node, with
         ``stencils`` of shape (N, n)). Query points are served by the nearest
-        owner. Translated copies of a stencil shape share one inverse.
+        owner. Translated copies of a stencil shape share one inverse;
+        ``translates=True`` declares that all stencils are translates of the
+        first (lattice interiors) and skips the search for distinct shapes.
         """
         pts = validate_points(points)
         st = np.asarray(stencils, dtype=np.int64)
@@ -74,8 +76,12 @@ class LocalInterpolant:
         if np.any(radius <= 0):
             raise ValueError("points: a stencil has zero radius")
         scaled = rel / radius[:, None, None]
-        key = np.round(scaled.reshape(len(st), -1) * 2**30).astype(np.int64)
-        _, first, inverse_index = np.unique(key, axis=0, return_index=True, return_inverse=True)
+        if translates:
+            first = np.zeros(1, dtype=np.int64)
+            inverse_index = np.zeros(len(st), dtype=np.int64)
+        else:
+            key = np.round(scaled.reshape(len(st), -1) * 2**30).astype(np.int64)
+            _, first, inverse_index = np.unique(key, axis=0, return_index=True, return_inverse=True)
         exps = monomial_exponents(dim, degree)
         inverses = _interpolation_inverses(scaled[first], exps, phs)
         return cls(pts, own, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs,

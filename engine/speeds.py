@@ -58,10 +58,10 @@ class FrontParams:
     window: tuple[float, float] | None = None  # (low, high) for the window model
     local_radius: float | None = None  # mm; region model with local statistics
     band_width: float = 10.0  # band half-width in node spacings
-    stencil_size: int = 30
+    stencil_size: int | None = None  # default: 2M in 2-D (30), 1.6M in 3-D (56) for degree 4
     degree: int = 4
     phs: int = 5
-    cfl: float = 0.45
+    cfl: float = 0.25
     convergence_tol: float = 0.01  # mean front displacement per step, in node spacings
     convergence_window: int = 20  # steps
     extra: dict = field(default_factory=dict, compare=False)
@@ -91,8 +91,28 @@ class FrontParams:
             raise ValueError(f"band_width must be >= 8 node spacings, got {self.band_width}")
         if not 0 < self.cfl <= 0.9:
             raise ValueError(f"cfl must be in (0, 0.9], got {self.cfl}")
+        if self.stencil_size is not None and not 10 <= self.stencil_size <= 200:
+            raise ValueError(f"stencil_size must be between 10 and 200, got {self.stencil_size}")
+        if self.degree not in (2, 3, 4, 5, 6):
+            raise ValueError(f"degree must be 2 to 6, got {self.degree}")
+        if self.phs not in (3, 5, 7, 9) or self.degree < (self.phs - 1) // 2:
+            raise ValueError(f"phs must be 3, 5, 7 or 9 with degree >= (phs - 1)/2, got phs={self.phs}")
         if self.convergence_window < 2:
             raise ValueError(f"convergence_window must be >= 2, got {self.convergence_window}")
+
+    def stencil_size_for(self, dim: int) -> int:
+        """Stencil size actually used in ``dim`` dimensions.
+
+        The setting, or by default 2M in 2-D and 1.6M in 3-D (M monomials):
+        the symmetric 3-D lattice patterns jump from 57 to 81 nodes, and 57
+        already resolves degree 4 with a well-behaved curvature operator.
+        """
+        from engine.polynomials import monomial_count
+
+        if self.stencil_size is not None:
+            return int(self.stencil_size)
+        factor = 2.0 if dim == 2 else 1.6
+        return int(round(factor * monomial_count(dim, self.degree)))
 
     @property
     def curvature_weight(self) -> float:
