@@ -72,10 +72,11 @@ _FAR = 1.5
 #: Floor of the front speed used for the time step (mm per unit time), so a
 #: nearly still front still takes steps of bounded length.
 MIN_SPEED = 0.25
-#: Reinitialise the whole band at a rebuild when ||∇φ| − 1| next to the front
-#: exceeds this, or after this many rebuilds without one.
-REINIT_DRIFT = 0.005
-REINIT_EVERY = 6
+#: Reinitialise the whole band at a rebuild when the 90th percentile of
+#: ||∇φ| − 1| next to the front exceeds this, or after this many rebuilds
+#: without one.
+REINIT_DRIFT = 0.05
+REINIT_EVERY = 10
 
 
 @dataclass(frozen=True)
@@ -249,7 +250,8 @@ class Front:
 
     @property
     def band_half_width(self) -> float:
-        return self.params.band_width * self.h
+        """Band half-width in mm: ``band_width`` steps of the coarsest axis (stencils reach furthest there)."""
+        return self.params.band_width * float(np.max(self.step_mm))
 
     @property
     def node_count(self) -> int:
@@ -332,7 +334,8 @@ class Front:
             owners = np.flatnonzero(np.all(table >= 0, axis=1))
             positions = nodes * self.step_mm
             interp = LocalInterpolant.build(positions, table[owners], owners=owners, degree=self.params.degree,
-                                            phs=self.params.phs, translates=True)
+                                            phs=self.params.phs, translates=True, lattice_step=self.step_mm,
+                                            lattice_indices=nodes)
             coeffs = interp.coefficients(approx)
             _, nearest = cKDTree(starts).query(positions[todo])
             cp = closest_points(interp, coeffs, positions[todo], start=starts[nearest], max_iter=8)
@@ -662,13 +665,16 @@ class Front:
         New band nodes always get Newton closest-point distances. The nodes
         already in the band keep their values, which extension velocities
         keep a signed distance, unless ``reinitialise`` is True, or None and
-        ||∇φ| − 1| next to the front exceeds ``REINIT_DRIFT`` or
+        the 90th percentile of ||∇φ| − 1| next to the front exceeds
+        ``REINIT_DRIFT`` (image-driven speeds vary along the front, so the
+        band slowly loses the distance property) or
         ``REINIT_EVERY`` rebuilds have passed.
         """
         b = self._band
         if reinitialise is None:
             grad = self._derivatives(self._phi)[0][b.layer]
-            drift = float(np.max(np.abs(np.sqrt(np.einsum("ni,ni->n", grad, grad)) - 1.0))) if len(grad) else 1.0
+            dev = np.abs(np.sqrt(np.einsum("ni,ni->n", grad, grad)) - 1.0)
+            drift = float(np.percentile(dev, 90)) if len(dev) else 1.0
             reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
         starts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
         layers = int(np.ceil(self.band_half_width / self.h - self.params.band_width + 0.5)) + 4
@@ -708,7 +714,8 @@ class Front:
             owners = np.flatnonzero(np.all(table >= 0, axis=1))
             b.interpolant = LocalInterpolant.build(b.positions, table[owners], owners=owners,
                                                    degree=self.params.degree, phs=self.params.phs,
-                                                   translates=True)
+                                                   translates=True, lattice_step=self.step_mm,
+                                                   lattice_indices=b.indices)
         if self._coeffs is None:
             self._coeffs = b.interpolant.coefficients(self._phi)
         return b.interpolant, self._coeffs

@@ -42,11 +42,13 @@ class LocalInterpolant:
     exponents: NDArray[np.int64]  # (M, d)
     phs: int
     tree: cKDTree
+    lattice: tuple | None = None  # (step, LatticeLookup of owner indices) for O(1) owner search
 
     @classmethod
     def build(
         cls, points: ArrayLike, stencils: ArrayLike, *, owners: ArrayLike | None = None,
         degree: int = 4, phs: int = 5, translates: bool = False,
+        lattice_step: ArrayLike | None = None, lattice_indices: ArrayLike | None = None,
     ) -> "LocalInterpolant":
         """Factor the interpolation systems of the owners' stencils.
 
@@ -56,6 +58,9 @@ class LocalInterpolant:
         owner. Translated copies of a stencil shape share one inverse;
         ``translates=True`` declares that all stencils are translates of the
         first (lattice interiors) and skips the search for distinct shapes.
+        With ``lattice_step`` and ``lattice_indices`` (the nodes' integer
+        lattice indices) the nearest owner is found by rounding instead of a
+        tree search.
         """
         pts = validate_points(points)
         st = np.asarray(stencils, dtype=np.int64)
@@ -84,8 +89,14 @@ class LocalInterpolant:
             _, first, inverse_index = np.unique(key, axis=0, return_index=True, return_inverse=True)
         exps = monomial_exponents(dim, degree)
         inverses = _interpolation_inverses(scaled[first], exps, phs)
+        lattice = None
+        if lattice_step is not None and lattice_indices is not None:
+            from engine.lattice import LatticeLookup
+
+            idx = np.asarray(lattice_indices, dtype=np.int64)
+            lattice = (np.asarray(lattice_step, dtype=float), LatticeLookup(idx[own]))
         return cls(pts, own, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs,
-                   cKDTree(pts[own]))
+                   cKDTree(pts[own]), lattice)
 
     def coefficients(self, values: ArrayLike) -> NDArray[np.floating]:
         """Interpolation coefficients [alpha; beta] of every owner's stencil, (U, n + M)."""
@@ -101,6 +112,14 @@ class LocalInterpolant:
 
     def owners(self, query: NDArray[np.floating]) -> NDArray[np.int64]:
         """Index (into the owners) of the interpolant serving each query point: the nearest owner."""
+        if self.lattice is not None:
+            step, lookup = self.lattice
+            found = lookup.find(np.rint(query / step).astype(np.int64))
+            missing = found < 0
+            if np.any(missing):
+                _, idx = self.tree.query(query[missing])
+                found[missing] = idx
+            return found
         _, idx = self.tree.query(query)
         return np.asarray(idx, dtype=np.int64)
 

@@ -1,4 +1,4 @@
-"""The invented demo cases in sample_cases/ and the phantom generator.
+"""The invented demo cases in sample_cases/ and the phantom generator (engine.phantoms).
 
 The committed files are read with pydicom, highdicom, nibabel and Pillow and
 compared with each other and with engine.io; the generator is checked against
@@ -7,9 +7,7 @@ analytic facts (area of a disk, Rayleigh statistics of pure noise).
 
 from __future__ import annotations
 
-import importlib.util
 import json
-import sys
 from pathlib import Path
 
 import highdicom as hd
@@ -20,20 +18,10 @@ import pytest
 from PIL import Image
 
 import engine.io as eio
+import engine.phantoms as phantoms
 
 ROOT = Path(__file__).resolve().parents[1] / "sample_cases"
 CASES = {"abdomen_mr": (24, 256, 256), "head_mr": (16, 160, 160)}
-
-
-def make_cases_module():
-    spec = importlib.util.spec_from_file_location("isotide_sample_make_cases", ROOT / "make_cases.py")
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = module
-    spec.loader.exec_module(module)
-    return module
-
-
-MC = make_cases_module()
 
 
 @pytest.fixture(scope="module", params=sorted(CASES))
@@ -115,7 +103,7 @@ def test_truth_table_readme_and_seeds(case):
     vol = eio.load(folder / "dicom")
     np.testing.assert_allclose(truth.affine, vol.affine, atol=1e-3)
     labels = truth.array.astype(int)
-    names = MC.ABDOMEN_LABELS if name == "abdomen_mr" else MC.HEAD_LABELS
+    names = phantoms.ABDOMEN_LABELS if name == "abdomen_mr" else phantoms.HEAD_LABELS
     assert set(np.unique(labels)) == {0, *names}
     rows = (folder / "truth_dseg.tsv").read_text().splitlines()
     assert rows[0] == "index\tname\tabbreviation\tcolor"
@@ -134,14 +122,14 @@ def test_truth_table_readme_and_seeds(case):
 
 def test_committed_truth_is_reproducible(case):
     name, folder = case
-    build = MC.build_abdomen if name == "abdomen_mr" else MC.build_head
+    build = phantoms.build_abdomen if name == "abdomen_mr" else phantoms.build_head
     # Labels are the structure at each voxel centre: no supersampling needed.
     fresh = build(supersample=1, noise_sigma=0.0)
     np.testing.assert_array_equal(eio.load(folder / "truth_dseg.nii.gz").array, fresh.truth)
 
 
 def test_background_noise_is_rayleigh():
-    image, truth, spacing, names = MC.make_abdomen_phantom((2, 128, 128), seed=3, noise_sigma=20.0, supersample=1)
+    image, truth, spacing, names = phantoms.make_abdomen_phantom((2, 128, 128), seed=3, noise_sigma=20.0, supersample=1)
     air = image[:, :12, :].astype(np.float64)  # top rows lie outside the body
     # Magnitude of zero signal plus complex Gaussian noise is Rayleigh:
     # mean sigma*sqrt(pi/2), variance (2 - pi/2) sigma^2 (Gudbjartsson & Patz 1995).
@@ -151,11 +139,11 @@ def test_background_noise_is_rayleigh():
 
 def test_partial_volume_matches_the_disk_area():
     radius_px, h = 10.3, 1.0
-    disk = MC.Tissue("disk", 1.0, (MC.Blob((0.0, 0.0, 0.0), (radius_px * h, radius_px * h, 1e6)),), (), 1)
+    disk = phantoms.Tissue("disk", 1.0, (phantoms.Blob((0.0, 0.0, 0.0), (radius_px * h, radius_px * h, 1e6)),), (), 1)
     affine = np.zeros((4, 4))
     affine[:3, 0], affine[:3, 1], affine[:3, 2] = [0, 0, 1.0], [0, h, 0], [h, 0, 0]  # slice z, row y, col x
     affine[:, 3] = [-31.5 * h, -31.5 * h, 0.0, 1.0]
-    image, truth = MC.render([disk], affine, (1, 64, 64), supersample=16, through_plane=1)
+    image, truth = phantoms.render([disk], affine, (1, 64, 64), supersample=16, through_plane=1)
     # Area-averaged supersampling integrates the indicator: the sum is the disk
     # area pi r^2 (analytic) up to the sub-sample discretisation.
     assert image.sum() == pytest.approx(np.pi * radius_px**2, rel=2e-3)
@@ -166,21 +154,21 @@ def test_partial_volume_matches_the_disk_area():
 
 
 def test_generator_is_deterministic_and_seeded():
-    a = MC.make_abdomen_phantom((2, 48, 48), supersample=2)
-    b = MC.make_abdomen_phantom((2, 48, 48), supersample=2)
-    c = MC.make_abdomen_phantom((2, 48, 48), supersample=2, seed=1)
+    a = phantoms.make_abdomen_phantom((2, 48, 48), supersample=2)
+    b = phantoms.make_abdomen_phantom((2, 48, 48), supersample=2)
+    c = phantoms.make_abdomen_phantom((2, 48, 48), supersample=2, seed=1)
     np.testing.assert_array_equal(a[0], b[0])
     assert not np.array_equal(a[0], c[0])
     np.testing.assert_array_equal(a[1], c[1])  # the truth does not depend on the noise
     image, truth, spacing, names = a
-    assert image.dtype == np.float32 and truth.dtype == np.uint8 and names == MC.ABDOMEN_LABELS
+    assert image.dtype == np.float32 and truth.dtype == np.uint8 and names == phantoms.ABDOMEN_LABELS
     assert spacing == pytest.approx((72.0, 400 / 48, 400 / 48))
     with pytest.raises(ValueError, match="shape"):
-        MC.make_abdomen_phantom((0, 4, 4))
+        phantoms.make_abdomen_phantom((0, 4, 4))
 
 
 def test_bias_field_is_smooth_and_multiplicative():
-    ph = MC.build_abdomen((1, 96, 96), noise_sigma=0.0, bias=0.2, supersample=1)
+    ph = phantoms.build_abdomen((1, 96, 96), noise_sigma=0.0, bias=0.2, supersample=1)
     tissue = ph.clean > 100
     ratio = ph.image[tissue] / ph.clean[tissue]
     # exp(+-0.2) bounds the field; rounding to integers adds at most 0.5/100.
