@@ -77,6 +77,16 @@ MIN_SPEED = 0.25
 #: without one.
 REINIT_DRIFT = 0.05
 REINIT_EVERY = 10
+#: Half-width of an estimated intensity window, in robust standard deviations
+#: of the smoothed intensities inside the seeds: wide enough that the front
+#: does not stop at the first shoulder of a partial-volume edge, narrow
+#: enough to exclude a neighbour whose contrast is several noise levels.
+WINDOW_SPREAD = 5.0
+#: Outside pixels this close to the front (plus two smoothing scales) are
+#: partial-volume rim and do not count toward the local outside mean.
+RIM_PIXELS = 1.5
+#: Radius (mm) of the local outside statistics of the region model.
+DEFAULT_LOCAL_RADIUS = 6.0
 
 
 @dataclass(frozen=True)
@@ -95,6 +105,9 @@ class FrontSnapshot:
     params: FrontParams
     pins: NDArray[np.bool_] | None
     barrier: NDArray[np.bool_] | None
+    local_out: NDArray[np.floating] | None = None
+    since_reinit: int = 0
+    layer: tuple[NDArray[np.int64], ...] = ()  # layer, source, edge_source of the last rebuild
 
     @property
     def nbytes(self) -> int:
@@ -117,8 +130,8 @@ class _Band:
     edge_source: NDArray[np.int64]  # the same for each edge node
     pixel_nodes: NDArray[np.int64]  # nodes sitting on pixel centres
     pixel_index: tuple[NDArray[np.int64], ...]  # their pixel indices
-    frozen: NDArray[np.bool_]  # at active nodes: pinned
-    barrier: NDArray[np.bool_]  # at active nodes
+    frozen: NDArray[np.bool_]  # per node: pinned
+    barrier: NDArray[np.bool_]  # per node: inside another label's locked outline
     local_in: NDArray[np.floating] | None = None
     local_out: NDArray[np.floating] | None = None
     interpolant: LocalInterpolant | None = None
@@ -203,9 +216,12 @@ class Front:
         """Front starting from seed disks ``(row, col, radius_px)`` (3-D: ``(slice, row, col, r)``)."""
         img = np.asarray(image, dtype=float)
         seeds_arr = _validate_seeds(seeds, img.shape)
-        if model == "window" and params.get("window") is None:
-            params = dict(params, window=estimate_window(img, seeds_arr))
+        estimate = model == "window" and params.get("window") is None
+        if estimate:  # placeholder until the smoothed image exists
+            params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params)
+        if estimate:
+            front.params = front.params.updated(window=estimate_window(front.features.smoothed, seeds_arr))
         front._initialise(seed_function(seeds_arr, front.features.spacing))
         return front
 
@@ -219,9 +235,12 @@ class Front:
             raise ValueError(f"mask shape {m.shape} does not match image shape {img.shape}")
         if not m.any():
             raise ValueError("mask is empty: nothing to start a front from")
-        if model == "window" and params.get("window") is None:
-            params = dict(params, window=estimate_window_from_mask(img, m))
+        estimate = model == "window" and params.get("window") is None
+        if estimate:
+            params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params)
+        if estimate:
+            front.params = front.params.updated(window=estimate_window_from_mask(front.features.smoothed, m))
         sp = front.features.spacing
         outside = ndimage.distance_transform_edt(~m, sampling=sp)
         inside = ndimage.distance_transform_edt(m, sampling=sp)
@@ -269,6 +288,7 @@ class Front:
         self._inside = pixel_values < 0
         if not self._inside.any():
             raise ValueError("the initial front is empty: no pixel centre lies inside it")
+        self._noise = robust_std(self.features.smoothed[self._inside])
         self._reset_sums()
         pixel_lookup_values = pixel_values.reshape(-1)
         starts = crossing_points(grid, pixel_lookup_values, sp)
@@ -392,15 +412,16 @@ class Front:
         pixels = indices / self.detail
         act_px = pixels[active]
         near_px = tuple(np.clip(np.rint(act_px).astype(np.int64), 0, np.array(self.shape) - 1).T)
-        frozen = self._pins[near_px] if self._pins is not None else np.zeros(len(active), bool)
-        barrier = self._barrier[near_px] if self._barrier is not None else np.zeros(len(active), bool)
+        near_all = tuple(np.clip(np.rint(pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
+        frozen = self._pins[near_all] if self._pins is not None else np.zeros(len(indices), bool)
+        barrier = self._barrier[near_all] if self._barrier is not None else np.zeros(len(indices), bool)
         self._band = _Band(indices, indices * self.step_mm, pixels, lookup, gather, active,
                            edge_nodes, layer, source, edge_source, pixel_nodes, pixel_index, frozen, barrier)
         self._phi = phi
         self._phi_at_rebuild = np.abs(phi)
         self._coeffs = None
         self._sync_inside()
-        if self.params.model == "region" and self.params.local_radius is not None:
+        if self.params.model == "region":
             self._update_local_statistics()
 
     # ------------------------------------------------------ region statistics
@@ -437,31 +458,42 @@ class Front:
         return c_in, c_out
 
     def _update_local_statistics(self) -> None:
-        """Gaussian-weighted local means inside/outside around the front's layer nodes (Lankton 2008).
+        """Region statistics at the front's layer nodes: global inside mean, local outside mean.
 
-        Computed on the bounding box of the band plus three radii, at band
-        rebuilds; between rebuilds the front moves less than two node
-        spacings, far less than the statistics' radius.
+        The inside mean is the global mean inside the front (the structure
+        being outlined). The outside mean is the Gaussian-weighted mean of the
+        outside pixels within ``local_radius`` of each layer node (Lankton &
+        Tannenbaum 2008), so the front stops halfway between the structure and
+        whatever actually borders it rather than halfway to the average of
+        the whole image. Outside pixels within the blurred rim of the edge
+        (RIM_PIXELS plus two smoothing scales) are left out, so partial volume
+        does not pull the outside mean toward the inside. Where the local outside is still the same tissue
+        (within three noise standard deviations of the inside mean, as while
+        the front grows from a seed) or there is too little of it, the
+        global outside mean is used (Chan & Vese 2001). Computed on the
+        bounding box of the front plus three radii at every band rebuild;
+        between rebuilds the front moves less than the statistics' radius.
         """
         b = self._band
-        radius_px = self.params.local_radius / self.features.spacing
+        radius_mm = self.params.local_radius if self.params.local_radius is not None else DEFAULT_LOCAL_RADIUS
+        radius_px = radius_mm / self.features.spacing
         px = b.pixels[b.active[b.layer]]
         lo = np.maximum(np.floor(px.min(axis=0) - 3 * radius_px).astype(int), 0)
         hi = np.minimum(np.ceil(px.max(axis=0) + 3 * radius_px).astype(int) + 1, np.array(self.shape))
         box = tuple(slice(a, c) for a, c in zip(lo, hi))
         img = self.features.smoothed[box]
-        ins = self._inside[box].astype(float)
-        w_in = ndimage.gaussian_filter(ins, radius_px, mode="nearest")
-        s_in = ndimage.gaussian_filter(img * ins, radius_px, mode="nearest")
-        w_out = 1.0 - w_in
-        s_out = ndimage.gaussian_filter(img * (1.0 - ins), radius_px, mode="nearest")
-        c_in_g, c_out_g = self.region_means()
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mean_in = np.where(w_in > 1e-3, s_in / np.maximum(w_in, 1e-12), c_in_g)
-            mean_out = np.where(w_out > 1e-3, s_out / np.maximum(w_out, 1e-12), c_out_g)
+        # leave out the blurred rim of the edge (partial volume plus smoothing)
+        rim = RIM_PIXELS + 2.0 * self.features.sigma_mm / float(np.min(self.features.spacing))
+        outside = (ndimage.distance_transform_edt(~self._inside[box]) > rim).astype(float)
+        w_out = ndimage.gaussian_filter(outside, radius_px, mode="nearest")
+        s_out = ndimage.gaussian_filter(img * outside, radius_px, mode="nearest")
         local = (px - lo).T
-        b.local_in = ndimage.map_coordinates(mean_in, local, order=1, mode="nearest")
-        b.local_out = ndimage.map_coordinates(mean_out, local, order=1, mode="nearest")
+        weight = ndimage.map_coordinates(w_out, local, order=1, mode="nearest")
+        mean = ndimage.map_coordinates(s_out, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
+        c_in, c_out = self.region_means()
+        distinct = (weight > 0.05) & (np.abs(mean - c_in) > 3.0 * self._noise)
+        b.local_in = np.full(len(px), c_in)
+        b.local_out = np.where(distinct, mean, c_out)
 
     # --------------------------------------------------------------- stepping
     def _derivatives(self, phi: NDArray[np.floating]) -> tuple[NDArray[np.floating], ...]:
@@ -544,7 +576,8 @@ class Front:
                 else:
                     sampled[name] = self.features.sample(name, px)
         if self.params.model == "region" and b.local_in is not None:
-            c_in, c_out = b.local_in, b.local_out
+            c_in = self.region_means()[0]
+            c_out = b.local_out
         else:
             c_in, c_out = self.region_means()
         return node_speeds(self.params, intensity=sampled.get("smoothed"), edge=sampled.get("edge"),
@@ -569,14 +602,17 @@ class Front:
             a_all = a[b.source] if np.ndim(a) else a
             gnorm = np.sqrt(np.einsum("ni,ni->n", grad, grad))
             rate += a_all * (kappa[b.source] * gnorm - self.stencil.damping * bih)
-        rate[b.frozen] = 0.0
-        if np.any(b.barrier):
-            rate[b.barrier] = np.maximum(rate[b.barrier], 0.0)
+        frozen = b.frozen[b.active]
+        barrier = b.barrier[b.active]
+        rate[frozen] = 0.0
+        if np.any(barrier):
+            rate[barrier] = np.maximum(rate[barrier], 0.0)
         return rate
 
     _curvature_gain: float = 1.0
     _last_kappa_max: float = 0.0
     _since_reinit: int = 0
+    _noise: float = 0.0  # robust std of the smoothed intensities inside the initial front
 
     def _time_step(self, speeds: NodeSpeeds, kappa_max: float) -> tuple[float, int]:
         """Time step and number of RKL2 stages.
@@ -626,6 +662,12 @@ class Front:
                     radius = float(np.max(speeds.curvature)) * self.stencil.spectral_radius * self._curvature_gain
                     stages = rkl2_stages(dt, 2.0 / radius)
             new = rkl2(phi0, lambda p: self._full_rate(p, speeds), dt, stages, first_rate=r0)
+            # RKL2 combines stages with some negative weights, so hold pins and
+            # barriers on the result, not only on the rates.
+            if np.any(b.frozen):
+                new[b.frozen] = phi0[b.frozen]
+            if np.any(b.barrier):
+                new[b.barrier] = np.maximum(new[b.barrier], phi0[b.barrier])
             self._record_motion(phi0, new)
             self._phi = new
             self._coeffs = None
@@ -653,11 +695,20 @@ class Front:
 
     def _needs_rebuild(self, previous: NDArray[np.floating]) -> bool:
         """True once the front reaches nodes that were more than the safe distance from it."""
-        safe = max(self.band_half_width - 2.0 * self._reach_mm - 0.5 * self.h, self.h)
+        safe = self._rebuild_distance()
         far = self._phi_at_rebuild > safe
         if not np.any(far):
             return False
         return bool(np.any(np.abs(self._phi[far]) < 0.75 * self.h))
+
+    def _rebuild_distance(self) -> float:
+        """How far (mm) the front may move before the band must follow it.
+
+        Nodes within two stencil radii of the front must be complete and
+        evolve normally, so the front may approach the band's edge up to
+        that, with half a node spacing to spare.
+        """
+        return max(self.band_half_width - 2.0 * self._reach_mm - 0.5 * self.h, self.h)
 
     def rebuild(self, *, reinitialise: bool | None = None) -> None:
         """Move the band with the front; reinitialise φ to a signed distance when it has drifted.
@@ -677,7 +728,8 @@ class Front:
             drift = float(np.percentile(dev, 90)) if len(dev) else 1.0
             reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
         starts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
-        layers = int(np.ceil(self.band_half_width / self.h - self.params.band_width + 0.5)) + 4
+        # the front moved at most about the rebuild distance: grow the old band by that much
+        layers = int(np.ceil((self._rebuild_distance() + float(np.max(self.step_mm))) / self.h)) + 1
         nodes = dilate_nodes(b.indices, layers, (np.array(self.shape) - 1) * self.detail)
         trusted = None if reinitialise else b.lookup.find(nodes) >= 0
         self._build_band(starts, self._current_values, nodes=nodes, trusted=trusted)
@@ -900,9 +952,9 @@ class Front:
 
     def _refresh_node_masks(self) -> None:
         b = self._band
-        act_px = tuple(np.clip(np.rint(b.pixels[b.active]).astype(np.int64), 0, np.array(self.shape) - 1).T)
-        b.frozen = self._pins[act_px] if self._pins is not None else np.zeros(len(b.active), bool)
-        b.barrier = self._barrier[act_px] if self._barrier is not None else np.zeros(len(b.active), bool)
+        near = tuple(np.clip(np.rint(b.pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
+        b.frozen = self._pins[near] if self._pins is not None else np.zeros(len(b.indices), bool)
+        b.barrier = self._barrier[near] if self._barrier is not None else np.zeros(len(b.indices), bool)
         self.converged = False
         self._motion.clear()
 
@@ -920,7 +972,7 @@ class Front:
             self.stencil = band_stencil(self.step_mm, stencil_size=new.stencil_size_for(self.ndim), degree=new.degree, phs=new.phs)
         if rebuild or features:
             self.rebuild()
-        elif new.model == "region" and new.local_radius is not None:
+        elif new.model == "region":
             self._update_local_statistics()
         self.converged = False
         self._motion.clear()
@@ -928,9 +980,12 @@ class Front:
     # -------------------------------------------------------------- snapshots
     def snapshot(self) -> FrontSnapshot:
         """Exact copy of the evolving state (band arrays and a bit-packed inside image)."""
-        return FrontSnapshot(self._band.indices.copy(), self._phi.copy(), self._phi_at_rebuild.copy(),
+        b = self._band
+        return FrontSnapshot(b.indices.copy(), self._phi.copy(), self._phi_at_rebuild.copy(),
                              np.packbits(self._inside.reshape(-1)), tuple(self._sums), self.time, self.steps,
-                             self.converged, tuple(self._motion), self.params, self._pins, self._barrier)
+                             self.converged, tuple(self._motion), self.params, self._pins, self._barrier,
+                             None if b.local_out is None else b.local_out.copy(), self._since_reinit,
+                             (b.layer.copy(), b.source.copy(), b.edge_source.copy()))
 
     def restore(self, snap: FrontSnapshot) -> None:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
@@ -946,9 +1001,15 @@ class Front:
             self.stencil = band_stencil(self.step_mm, stencil_size=snap.params.stencil_size_for(self.ndim),
                                         degree=snap.params.degree, phs=snap.params.phs)
         self._inside = inside
+        self._sums = list(snap.sums)
         self._install_band(snap.indices.copy(), snap.phi.copy())
         self._phi_at_rebuild = snap.phi_at_rebuild.copy()
-        self._sums = list(snap.sums)
+        # the layer and statistics of the last rebuild, not recomputed from the present φ
+        if snap.layer:
+            self._band.layer, self._band.source, self._band.edge_source = (a.copy() for a in snap.layer)
+        if snap.local_out is not None:
+            self._band.local_out = snap.local_out.copy()
+        self._since_reinit = snap.since_reinit
         self.time, self.steps, self.converged = snap.time, snap.steps, snap.converged
         self._motion = deque(snap.motion)
 
@@ -1011,7 +1072,7 @@ def _validate_seeds(seeds: Sequence[Sequence[float]], shape: tuple[int, ...]) ->
 
 
 def estimate_window(image: NDArray[np.floating], seeds: NDArray[np.floating]) -> tuple[float, float]:
-    """Intensity window from the pixels inside the seed disks: median ± 3 robust standard deviations.
+    """Intensity window from the pixels inside the seed disks: median ± WINDOW_SPREAD robust standard deviations.
 
     The robust standard deviation is 1.4826 × the median absolute deviation
     (Hampel 1974; common practice).
@@ -1025,9 +1086,20 @@ def estimate_window(image: NDArray[np.floating], seeds: NDArray[np.floating]) ->
     return estimate_window_from_mask(image, inside)
 
 
+def robust_std(values: NDArray[np.floating]) -> float:
+    """1.4826 × the median absolute deviation (Hampel 1974; common practice)."""
+    if values.size == 0:
+        return 0.0
+    med = float(np.median(values))
+    return 1.4826 * float(np.median(np.abs(values - med)))
+
+
 def estimate_window_from_mask(image: NDArray[np.floating], mask: NDArray[np.bool_]) -> tuple[float, float]:
+    """Intensity window median ± WINDOW_SPREAD robust standard deviations of ``image`` inside ``mask``.
+
+    Pass the smoothed image the speeds use, so the window matches them.
+    """
     values = image[mask]
     med = float(np.median(values))
-    mad = 1.4826 * float(np.median(np.abs(values - med)))
-    spread = max(mad, 0.02 * (float(np.percentile(image, 99)) - float(np.percentile(image, 1))), 1e-6)
-    return med - 3.0 * spread, med + 3.0 * spread
+    spread = max(robust_std(values), 0.01 * (float(np.percentile(image, 99)) - float(np.percentile(image, 1))), 1e-6)
+    return med - WINDOW_SPREAD * spread, med + WINDOW_SPREAD * spread

@@ -62,7 +62,7 @@ class FrontParams:
     degree: int = 4
     phs: int = 5
     cfl: float = 0.25
-    convergence_tol: float = 0.01  # mean front displacement per step, in node spacings
+    convergence_tol: float = 0.001  # mean front displacement per step, in node spacings
     convergence_window: int = 20  # steps
     extra: dict = field(default_factory=dict, compare=False)
 
