@@ -85,6 +85,8 @@ WINDOW_SPREAD = 5.0
 #: Outside pixels this close to the front (plus two smoothing scales) are
 #: partial-volume rim and do not count toward the local outside mean.
 RIM_PIXELS = 1.5
+#: Width of the ring of outside pixels, beyond the rim, of the local statistics.
+RING_PIXELS = 3.0
 #: Radius (mm) of the local outside statistics of the region model.
 DEFAULT_LOCAL_RADIUS = 6.0
 
@@ -465,9 +467,11 @@ class Front:
         outside pixels within ``local_radius`` of each layer node (Lankton &
         Tannenbaum 2008), so the front stops halfway between the structure and
         whatever actually borders it rather than halfway to the average of
-        the whole image. Outside pixels within the blurred rim of the edge
-        (RIM_PIXELS plus two smoothing scales) are left out, so partial volume
-        does not pull the outside mean toward the inside. Where the local outside is still the same tissue
+        the whole image. Only a ring of outside pixels counts: beyond the
+        blurred rim of the edge (RIM_PIXELS plus two smoothing scales, so
+        partial volume does not pull the mean toward the inside) and within
+        RING_PIXELS more (so the tissue that actually borders the front
+        outweighs tissues further away). Where the local outside is still the same tissue
         (within three noise standard deviations of the inside mean, as while
         the front grows from a seed) or there is too little of it, the
         global outside mean is used (Chan & Vese 2001). Computed on the
@@ -484,7 +488,8 @@ class Front:
         img = self.features.smoothed[box]
         # leave out the blurred rim of the edge (partial volume plus smoothing)
         rim = RIM_PIXELS + 2.0 * self.features.sigma_mm / float(np.min(self.features.spacing))
-        outside = (ndimage.distance_transform_edt(~self._inside[box]) > rim).astype(float)
+        depth = ndimage.distance_transform_edt(~self._inside[box])
+        outside = ((depth > rim) & (depth <= rim + RING_PIXELS)).astype(float)
         w_out = ndimage.gaussian_filter(outside, radius_px, mode="nearest")
         s_out = ndimage.gaussian_filter(img * outside, radius_px, mode="nearest")
         local = (px - lo).T
@@ -820,6 +825,13 @@ class Front:
         interp, coeffs = self._interpolant()
         _, grad, hess = interp.evaluate(x, coeffs)
         return curvature_from_derivatives(grad, hess)
+
+    def normals_at(self, points_px: ArrayLike) -> NDArray[np.floating]:
+        """Unit outward normals ∇φ/|∇φ| at pixel coordinates, in pixel axes order (mm-based directions)."""
+        x = self._to_mm(points_px)
+        interp, coeffs = self._interpolant()
+        _, grad, _ = interp.evaluate(x, coeffs, order=1)
+        return grad / np.maximum(np.linalg.norm(grad, axis=1, keepdims=True), 1e-300)
 
     def contours(self, *, refine: bool = True) -> list[NDArray[np.floating]]:
         """Closed sub-pixel outlines (2-D), (k, 2) pixel (row, col) arrays.

@@ -179,3 +179,31 @@ def test_phi_stays_a_signed_distance_after_reinitialisation() -> None:
         dev = np.abs(np.linalg.norm(grad[near], axis=1) - 1.0)
         assert dev.max() <= 0.02, dev.max()
         front.step(15)
+
+
+def test_read_outs_of_a_circle() -> None:
+    # A circle of radius R (exact signed distance sampled at the nodes):
+    # area πR², perimeter 2πR, φ = r − R, κ = 1/R on the front, normals
+    # radial (common geometry), on anisotropic pixels.
+    spacing = np.array([0.8, 1.1])
+    centre_mm = np.array([40.3, 44.1])
+    radius = 21.7
+    front = Front.from_function(circle_sd(centre_mm, radius), (100, 80), spacing=spacing, model="constant", drive=0.0)
+    # the outline is a polygon inscribed in the circle, vertices about a pixel
+    # apart: its area falls short by about 2π²/(3n²) (common geometry)
+    assert abs(front.area_mm2() - np.pi * radius**2) / (np.pi * radius**2) < 1e-3
+    assert abs(front.perimeter_mm() - 2 * np.pi * radius) / (2 * np.pi * radius) < 1e-3
+    probe_mm = centre_mm + np.array([[3.0, 4.0], [10.0, -12.0], [-20.0, 9.0]])
+    probe_px = probe_mm / spacing
+    expected = np.linalg.norm(probe_mm - centre_mm, axis=1) - radius
+    near = np.abs(expected) < 8.0  # inside the band
+    np.testing.assert_allclose(front.phi_at(probe_px)[near], expected[near], atol=1e-3)
+    verts = np.concatenate(front.contours())
+    np.testing.assert_allclose(front.curvature_at(verts), 1.0 / radius, rtol=5e-3)
+    radial = verts * spacing - centre_mm
+    radial /= np.linalg.norm(radial, axis=1, keepdims=True)
+    np.testing.assert_allclose(np.einsum("ij,ij->i", front.normals_at(verts), radial), 1.0, atol=1e-4)
+    # the mask is the pixel-centre inside test
+    rr, cc = np.indices(front.shape)
+    inside = np.hypot(rr * spacing[0] - centre_mm[0], cc * spacing[1] - centre_mm[1]) < radius
+    assert np.array_equal(front.mask(), inside)

@@ -215,7 +215,7 @@ def main() -> None:
         child(quick)
         return
     print("Front steps per second vs band size (each setting in a fresh child process; best of "
-          f"{REPEATS} runs of front.step(n))")
+          f"at least {REPEATS} runs of front.step(n), each from the same snapshot)")
     t0 = time.perf_counter()
     default = run_child(False, quick)
     single = run_child(True, quick)

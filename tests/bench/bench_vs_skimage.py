@@ -1,0 +1,235 @@
+"""Benchmark: the engine against scikit-image's Chan–Vese methods on one 512² phantom.
+
+Prints figures and ratios; asserts nothing. Not part of the test suite.
+
+    python tests/bench/bench_vs_skimage.py
+    python tests/bench/bench_vs_skimage.py --one-blas-thread   # rerun in a child with BLAS on one thread
+
+Phantom: the 512² member of the family in ``bench_front_scaling.py`` (dark
+blob 0.2 on 0.6 with a five-lobed ripple, 8 × 8 partial volume, Gaussian
+noise σ = 0.05, truth at pixel centres), one seed disk at the centre with
+radius 0.06 × 512 ≈ 30.7 px. Everything runs in this one process.
+
+Methods and the settings used (all converged; how is stated per method):
+
+1. ``engine.segment.segment(image, [seed], model="region")``, default
+   settings; converged by its own criterion (``Segmentation.converged``).
+2. ``skimage.segmentation.morphological_chan_vese(image, N,
+   init_level_set=<seed disk, bool>, smoothing=1, lambda1=1, lambda2=1)``.
+3. ``skimage.segmentation.chan_vese(image, mu=0.25, lambda1=1, lambda2=1,
+   tol=0, max_num_iter=N, dt=0.5, init_level_set="checkerboard")``; the
+   output label containing the seed centre is taken as the object.
+4. ``chan_vese`` with the same settings from the seed disk:
+   ``init_level_set = tanh(d)``, d the signed distance (px) to the seed
+   circle, positive inside. (The raw signed distance barely moves: the
+   update is scaled by δ_ε(φ) = ε / (π (ε² + φ²)) with ε = 1, tiny away from
+   the zero set, and ``tol`` then stops it far from the boundary; tanh keeps
+   the seed's zero set and the ±1 range of scikit-image's own presets.)
+5. ``chan_vese`` as 3 but stopped by its own rule, ``tol=1e-3`` (the
+   default), ``max_num_iter=500`` — for reference: it stops before the mask
+   settles.
+
+For 2–4, N is found by running in chunks of 10 iterations (both methods'
+state is their level set, so a chunked run equals one long run) until a
+chunk changes no pixel of the mask; the time printed is that of a fresh run
+of N iterations (the detection overhead left out, which favours them).
+
+Columns: wall time; Dice against the truth; boundary RMS = root mean square
+of the pooled surface distances between the mask and the truth
+(``engine.metrics.surface_distances``, pixels; 0 for a perfect mask);
+outline RMS = RMS distance from sub-pixel outline vertices to the exact
+boundary curve (engine: ``Segmentation.contours``; chan_vese:
+``skimage.measure.find_contours`` of its φ at 0; morphological: contours of
+the binary mask at 0.5, a staircase).
+
+Ratios (targets from issue 3): time ours / faster of 2 and 3 (≤ 1.0 must,
+≤ 0.1 aim), Dice ours vs each (≥), boundary RMS ours / each (≤ 1/3).
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+try:
+    import engine  # noqa: F401
+except ImportError:  # run from a checkout without installing
+    sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from bench_front_scaling import blas_threads, blob_boundary, make_phantom  # noqa: E402
+
+from engine.metrics import dice, surface_distances  # noqa: E402
+from engine.segment import segment  # noqa: E402
+
+SIDE = 512
+CHUNK = 10
+MAX_ITER = 5000
+CV_SETTINGS = {"mu": 0.25, "lambda1": 1.0, "lambda2": 1.0, "dt": 0.5}
+
+
+def boundary_rms(mask: np.ndarray, truth: np.ndarray) -> float:
+    d_ab, d_ba = surface_distances(mask, truth)
+    pooled = np.concatenate([d_ab, d_ba])
+    return float(np.sqrt(np.mean(pooled**2))) if pooled.size else 0.0
+
+
+def outline_rms(lines: list[np.ndarray], boundary_tree: cKDTree) -> float:
+    if not lines:
+        return float("inf")
+    d, _ = boundary_tree.query(np.concatenate(lines))
+    return float(np.sqrt(np.mean(d**2)))
+
+
+def mask_contours(field: np.ndarray, level: float) -> list[np.ndarray]:
+    from skimage.measure import find_contours
+
+    return [c for c in find_contours(field, level) if len(c) > 2]
+
+
+def converge_in_chunks(advance, state):
+    """Advance ``CHUNK`` iterations at a time until the mask stops changing; returns (N, state, mask)."""
+    state, mask = advance(state, None)
+    iterations = 0
+    while iterations < MAX_ITER:
+        state, new = advance(state, CHUNK)
+        iterations += CHUNK
+        if np.array_equal(new, mask):
+            return iterations, state, new
+        mask = new
+    return iterations, state, mask
+
+
+def run_ours(ph: dict) -> dict:
+    t0 = time.perf_counter()
+    res = segment(ph["image"], [ph["seed"]], model="region")
+    wall = time.perf_counter() - t0
+    return {"name": "engine.segment (region)", "wall": wall, "mask": res.mask, "lines": res.contours,
+            "iterations": f"{res.steps} steps", "converged": res.converged,
+            "detail": f"{res.timings['rebuilds']} rebuilds, {res.timings['nodes']} nodes"}
+
+
+def run_morphological(ph: dict) -> dict:
+    from skimage.segmentation import morphological_chan_vese
+
+    img = ph["image"]
+
+    def advance(level, n):
+        if n is None:
+            return level, level
+        new = morphological_chan_vese(img, n, init_level_set=level, smoothing=1, lambda1=1, lambda2=1).astype(bool)
+        return new, new
+
+    t0 = time.perf_counter()
+    n, _, chunked = converge_in_chunks(advance, ph["seed_disk"].copy())
+    detect = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    mask = morphological_chan_vese(img, n, init_level_set=ph["seed_disk"], smoothing=1, lambda1=1,
+                                   lambda2=1).astype(bool)
+    wall = time.perf_counter() - t0
+    return {"name": "morphological_chan_vese", "wall": wall, "mask": mask,
+            "lines": mask_contours(mask.astype(float), 0.5), "iterations": f"{n} iter",
+            "converged": n < MAX_ITER,
+            "detail": f"seed disk; detect {detect:.1f} s; same as chunked: {np.array_equal(mask, chunked)}"}
+
+
+def _object_label(seg: np.ndarray, seed: tuple[float, float, float]) -> bool:
+    """True when chan_vese's φ > 0 region holds the seed centre (else the object is φ < 0)."""
+    return bool(seg[int(round(seed[0])), int(round(seed[1]))])
+
+
+def run_chan_vese(ph: dict, init, label: str, *, own_stop: bool = False) -> dict:
+    from skimage.segmentation import chan_vese
+
+    img = ph["image"]
+    if own_stop:
+        t0 = time.perf_counter()
+        seg, phi, energies = chan_vese(img, tol=1e-3, max_num_iter=500, init_level_set=init, extended_output=True,
+                                       **CV_SETTINGS)
+        wall = time.perf_counter() - t0
+        n = len(energies)
+        detail = f"{label}; tol=1e-3, max_num_iter=500 (own stopping rule)"
+        converged = n < 500
+    else:
+        def advance(phi, k):
+            if k is None:
+                phi0 = chan_vese(img, tol=0.0, max_num_iter=0, init_level_set=phi, extended_output=True,
+                                 **CV_SETTINGS)[1]
+                return phi0, phi0 > 0
+            _, new_phi, _ = chan_vese(img, tol=0.0, max_num_iter=k, init_level_set=phi, extended_output=True,
+                                      **CV_SETTINGS)
+            return new_phi, new_phi > 0
+
+        t0 = time.perf_counter()
+        n, phi_chunked, seg_chunked = converge_in_chunks(advance, init)
+        detect = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        seg, phi, _ = chan_vese(img, tol=0.0, max_num_iter=n, init_level_set=init, extended_output=True,
+                                **CV_SETTINGS)
+        wall = time.perf_counter() - t0
+        detail = f"{label}; detect {detect:.1f} s; same as chunked: {np.array_equal(seg, seg_chunked)}"
+        converged = n < MAX_ITER
+    positive = _object_label(seg, ph["seed"])
+    mask = seg if positive else ~seg
+    lines = mask_contours(phi if positive else -phi, 0.0)
+    # find_contours follows the level through φ; orientation does not matter for distances
+    name = "chan_vese (own tol)" if own_stop else "chan_vese"
+    return {"name": name, "wall": wall, "mask": mask, "lines": lines, "iterations": f"{n} iter",
+            "converged": converged, "detail": detail + ("" if positive else "; object is phi<0")}
+
+
+def main() -> None:
+    if "--one-blas-thread" in sys.argv:
+        env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+        args = [a for a in sys.argv[1:] if a != "--one-blas-thread"]
+        raise SystemExit(subprocess.run([sys.executable, __file__, *args], env=env).returncode)
+    ph = make_phantom(SIDE)
+    truth = ph["truth"]
+    tree = cKDTree(blob_boundary(SIDE))
+    seed = ph["seed"]
+    d_seed = seed[2] - np.hypot(*(np.mgrid[0:SIDE, 0:SIDE] - np.array(seed[:2])[:, None, None]))
+    print(f"Engine vs scikit-image Chan–Vese on a {SIDE}² phantom, one process; BLAS threads: {blas_threads()}")
+    print(f"seed disk (row, col, r) = ({seed[0]:.1f}, {seed[1]:.1f}, {seed[2]:.1f}); truth area {truth.sum()} px\n")
+
+    runs = []
+    for fn in (lambda: run_ours(ph), lambda: run_morphological(ph),
+               lambda: run_chan_vese(ph, "checkerboard", "checkerboard"),
+               lambda: run_chan_vese(ph, np.tanh(d_seed), "tanh(signed distance of the seed disk)"),
+               lambda: run_chan_vese(ph, "checkerboard", "checkerboard", own_stop=True)):
+        r = fn()
+        r["dice"] = dice(r["mask"], truth)
+        r["brms"] = boundary_rms(r["mask"], truth)
+        r["orms"] = outline_rms(r["lines"], tree)
+        runs.append(r)
+        print(f"  done: {r['name']:<26} {r['wall']:7.2f} s  ({r['detail']})", flush=True)
+
+    print()
+    head = (f"{'#':>2} {'method':<26}{'wall s':>8}{'iterations':>12}{'conv':>6}{'Dice':>9}"
+            f"{'boundary RMS px':>17}{'outline RMS px':>16}")
+    print(head)
+    print("-" * len(head))
+    for i, r in enumerate(runs, start=1):
+        print(f"{i:>2} {r['name']:<26}{r['wall']:>8.2f}{r['iterations']:>12}{str(r['converged']):>6}"
+              f"{r['dice']:>9.5f}{r['brms']:>17.3f}{r['orms']:>16.3f}")
+    print("   (4: chan_vese from the seed disk, tanh(signed distance); 5: chan_vese stopped by tol=1e-3)")
+
+    ours = runs[0]
+    faster = min(runs[1:3], key=lambda r: r["wall"])
+    print("\nratios (ours / theirs)")
+    print(f"  time ours / faster of morphological_chan_vese and chan_vese ({faster['name']}, "
+          f"{faster['wall']:.2f} s): {ours['wall'] / faster['wall']:.2f}   (target ≤ 1.0, aim ≤ 0.1)")
+    for i, r in enumerate(runs[1:], start=2):
+        brms = ours["brms"] / r["brms"] if r["brms"] > 0 else float("inf")
+        print(f"  vs #{i} {r['name']:<26} time {ours['wall'] / r['wall']:6.2f}   Dice {ours['dice']:.5f} vs "
+              f"{r['dice']:.5f} ({'≥' if ours['dice'] >= r['dice'] else '<'})   boundary RMS {brms:5.2f} "
+              f"(target ≤ 0.33)   outline RMS {ours['orms'] / r['orms']:5.2f}")
+
+
+if __name__ == "__main__":
+    main()
