@@ -91,6 +91,10 @@ RING_PIXELS = 3.0
 DEFAULT_LOCAL_RADIUS = 6.0
 
 
+class FrontVanished(ValueError):
+    """The zero set disappeared (the outline shrank to nothing or filled the image)."""
+
+
 @dataclass(frozen=True)
 class FrontSnapshot:
     """Everything needed to restore a front exactly (band arrays, not images)."""
@@ -347,7 +351,7 @@ class Front:
         lookup = LatticeLookup(nodes)
         starts = crossing_points(nodes, approx, self.step_mm, lookup=lookup)
         if len(starts) == 0:
-            raise ValueError("the front vanished: no zero crossing is left")
+            raise FrontVanished("the front vanished: no zero crossing is left")
         todo = np.arange(len(nodes)) if trusted is None else np.flatnonzero(~trusted)
         phi = approx.copy()
         if len(todo):
@@ -379,7 +383,7 @@ class Front:
         width = 1.2 * float(np.max(self.step_mm))
         layer = np.flatnonzero(np.abs(phi[active]) <= width)
         if len(layer) == 0:
-            raise ValueError("the front has no node next to it; it is too small for this detail")
+            raise FrontVanished("the front has no node next to it; it is too small for this detail")
         crossings = crossing_points(indices, phi, self.step_mm, lookup=lookup)
         layer_tree = cKDTree(indices[active[layer]] * self.step_mm)
         crossing_tree = cKDTree(crossings)
@@ -617,6 +621,7 @@ class Front:
     _curvature_gain: float = 1.0
     _last_kappa_max: float = 0.0
     _since_reinit: int = 0
+    _vanished: bool = False
     _noise: float = 0.0  # robust std of the smoothed intensities inside the initial front
 
     def _time_step(self, speeds: NodeSpeeds, kappa_max: float) -> tuple[float, int]:
@@ -652,6 +657,9 @@ class Front:
         if n < 0:
             raise ValueError(f"n must be >= 0, got {n}")
         for _ in range(int(n)):
+            if self.vanished:
+                self.steps += 1
+                continue
             t0 = _time.perf_counter()
             b = self._band
             phi0 = self._phi
@@ -682,7 +690,22 @@ class Front:
             self._sync_inside()
             self.timings["step"] += _time.perf_counter() - t0
             if self._needs_rebuild(phi0):
-                self.rebuild()
+                try:
+                    self.rebuild()
+                except FrontVanished:
+                    self._vanish()
+
+    @property
+    def vanished(self) -> bool:
+        """True once the outline has shrunk to nothing (or filled the whole image)."""
+        return self._vanished
+
+    def _vanish(self) -> None:
+        """The zero set is gone: everything is inside or nothing is; stepping becomes a no-op."""
+        self._inside[:] = bool(np.all(self._phi < 0))
+        self._reset_sums()
+        self._vanished = True
+        self.converged = True
 
     def _record_motion(self, before: NDArray[np.floating], after: NDArray[np.floating]) -> None:
         """Mean displacement of the front this step, from the change of a smoothed Heaviside."""
@@ -842,6 +865,8 @@ class Front:
         """
         if self.ndim != 2:
             raise ValueError("contours() is for 2-D fronts; use surface() in 3-D")
+        if self.vanished:
+            return []
         from engine.contours import band_contours
 
         b = self._band
@@ -853,12 +878,13 @@ class Front:
 
     def mask(self) -> NDArray[np.bool_]:
         """Pixels whose centre lies inside the front (φ < 0)."""
-        self._sync_inside()
+        if not self.vanished:
+            self._sync_inside()
         return self._inside.copy()
 
     def area_mm2(self) -> float:
         """Area (2-D, from the refined contours) or volume (3-D, voxel count) inside the front."""
-        if self.ndim == 2:
+        if self.ndim == 2 and not self.vanished:
             from engine.contours import signed_area
 
             sp = self.features.spacing
@@ -875,6 +901,8 @@ class Front:
     # ------------------------------------------------------------------ edits
     def _edit(self, combine: Callable[[NDArray[np.floating], NDArray[np.int64]], NDArray[np.floating]],
               extra_starts: NDArray[np.floating] | None = None) -> None:
+        if self.vanished:
+            raise ValueError("the outline has vanished; start a new front from seeds or a mask")
         b = self._band
         starts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
         if extra_starts is not None and len(extra_starts):
@@ -1022,6 +1050,7 @@ class Front:
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
         self._since_reinit = snap.since_reinit
+        self._vanished = False
         self.time, self.steps, self.converged = snap.time, snap.steps, snap.converged
         self._motion = deque(snap.motion)
 
