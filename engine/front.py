@@ -67,6 +67,17 @@ from engine.lattice import LatticeLookup, symmetric_offsets
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
 from engine.time_stepping import rkl2, rkl2_stages
 
+try:  # the band's small dense products run far slower with threaded BLAS
+    from threadpoolctl import ThreadpoolController
+
+    _BLAS = ThreadpoolController()
+
+    def single_thread_blas():
+        """Context in which BLAS uses one thread (the front's products are small)."""
+        return _BLAS.limit(limits=1, user_api="blas")
+except ImportError:  # pragma: no cover - threadpoolctl is a declared dependency
+    from contextlib import nullcontext as single_thread_blas
+
 #: Values standing in for φ beyond the band (in units of the band half-width).
 _FAR = 1.5
 #: Floor of the front speed used for the time step (mm per unit time), so a
@@ -85,6 +96,9 @@ WINDOW_SPREAD = 5.0
 #: Outside pixels this close to the front (plus two smoothing scales) are
 #: partial-volume rim and do not count toward the local outside mean.
 RIM_PIXELS = 1.5
+#: Steps between refreshes of the layer next to the front and of the region
+#: model's local statistics.
+STATISTICS_EVERY = 10
 #: Width of the ring of outside pixels, beyond the rim, of the local statistics.
 RING_PIXELS = 3.0
 #: Radius (mm) of the local outside statistics of the region model.
@@ -363,7 +377,11 @@ class Front:
                                             phs=self.params.phs, translates=True, lattice_step=self.step_mm,
                                             lattice_indices=nodes)
             coeffs = interp.coefficients(approx)
-            _, nearest = cKDTree(starts).query(positions[todo])
+            near_dist, nearest = cKDTree(starts).query(positions[todo])
+            # nodes farther than the band from every zero crossing are dropped below
+            reach = near_dist <= width + 2.0 * float(np.max(self.step_mm))
+            phi[todo[~reach]] = np.where(approx[todo[~reach]] < 0, -1.0, 1.0) * 2.0 * width
+            todo, nearest = todo[reach], nearest[reach]
             cp = closest_points(interp, coeffs, positions[todo], start=starts[nearest], max_iter=8)
             phi[todo] = np.where(approx[todo] < 0, -1.0, 1.0) * cp.distance
         keep = np.abs(phi) <= width
@@ -478,7 +496,8 @@ class Front:
         outweighs tissues further away). Where the local outside is still the same tissue
         (within three noise standard deviations of the inside mean, as while
         the front grows from a seed) or there is too little of it, the
-        global outside mean is used (Chan & Vese 2001). Computed on the
+        global outside mean is used (Chan & Vese 2001). Refreshed at every
+        band rebuild and every ``STATISTICS_EVERY`` steps. Computed on the
         bounding box of the front plus three radii at every band rebuild;
         between rebuilds the front moves less than the statistics' radius.
         """
@@ -490,17 +509,19 @@ class Front:
         hi = np.minimum(np.ceil(px.max(axis=0) + 3 * radius_px).astype(int) + 1, np.array(self.shape))
         box = tuple(slice(a, c) for a, c in zip(lo, hi))
         img = self.features.smoothed[box]
+        c_in, c_out = self.region_means()
+        noise = max(self._noise, 1e-3 * self.features.intensity_scale)
         # leave out the blurred rim of the edge (partial volume plus smoothing)
-        rim = RIM_PIXELS + 2.0 * self.features.sigma_mm / float(np.min(self.features.spacing))
-        depth = ndimage.distance_transform_edt(~self._inside[box])
-        outside = ((depth > rim) & (depth <= rim + RING_PIXELS)).astype(float)
+        coarse = float(np.max(self.features.spacing))
+        rim = RIM_PIXELS * coarse + 2.0 * self.features.sigma_mm  # mm
+        depth = ndimage.distance_transform_edt(~self._inside[box], sampling=self.features.spacing)
+        outside = ((depth > rim) & (depth <= rim + RING_PIXELS * coarse)).astype(float)
         w_out = ndimage.gaussian_filter(outside, radius_px, mode="nearest")
         s_out = ndimage.gaussian_filter(img * outside, radius_px, mode="nearest")
         local = (px - lo).T
         weight = ndimage.map_coordinates(w_out, local, order=1, mode="nearest")
         mean = ndimage.map_coordinates(s_out, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
-        c_in, c_out = self.region_means()
-        distinct = (weight > 0.05) & (np.abs(mean - c_in) > 3.0 * self._noise)
+        distinct = (weight > 0.05) & (np.abs(mean - c_in) > 3.0 * noise)
         b.local_in = np.full(len(px), c_in)
         b.local_out = np.where(distinct, mean, c_out)
 
@@ -601,10 +622,13 @@ class Front:
         layer = b.layer
         v = speeds.normal[b.source]
         # Godunov Hamiltonian (Osher & Fedkiw 2003, eq. 6.3-6.4).
-        up2 = np.where((v > 0)[:, None],
-                       np.maximum(np.maximum(back, 0.0) ** 2, np.minimum(fwd, 0.0) ** 2),
-                       np.maximum(np.minimum(back, 0.0) ** 2, np.maximum(fwd, 0.0) ** 2))
-        rate = -v * np.sqrt(up2.sum(axis=1))
+        # with s = sign(V): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0)
+        sign = np.where(v > 0, 1.0, -1.0)[:, None]
+        up = np.maximum(np.maximum(sign * back, -sign * fwd), 0.0)
+        up2 = up[:, 0] * up[:, 0]
+        for i in range(1, up.shape[1]):
+            up2 = up2 + up[:, i] * up[:, i]
+        rate = -v * np.sqrt(up2)
         a = speeds.curvature
         if np.any(np.asarray(a) != 0):
             kappa = self._front_curvature(phi[b.active[layer]], grad[layer], hess[layer])
@@ -656,7 +680,11 @@ class Front:
         """Advance ``n`` time steps (RKL2 super time stepping; the band is rebuilt when needed)."""
         if n < 0:
             raise ValueError(f"n must be >= 0, got {n}")
-        for _ in range(int(n)):
+        with single_thread_blas():
+            self._step(int(n), dt_max)
+
+    def _step(self, n: int, dt_max: float | None) -> None:
+        for _ in range(n):
             if self.vanished:
                 self.steps += 1
                 continue
@@ -688,12 +716,25 @@ class Front:
             self.steps += 1
             self.timings["evaluations"] = self.timings.get("evaluations", 0) + stages
             self._sync_inside()
+            if self.steps % STATISTICS_EVERY == 0:
+                self._refresh_layer()
             self.timings["step"] += _time.perf_counter() - t0
             if self._needs_rebuild(phi0):
                 try:
                     self.rebuild()
                 except FrontVanished:
                     self._vanish()
+
+    def _refresh_layer(self) -> None:
+        """Re-pick the layer next to the front (and the region statistics) as the front moves."""
+        b = self._band
+        try:
+            b.layer, b.source, b.edge_source = self._front_layer(b.indices, self._phi, b.active, b.edge_nodes,
+                                                                 b.lookup)
+        except FrontVanished:
+            return
+        if self.params.model == "region":
+            self._update_local_statistics()
 
     @property
     def vanished(self) -> bool:
@@ -768,6 +809,11 @@ class Front:
         """Step until converged, ``until_time`` is reached, or ``max_steps`` steps were taken."""
         if until_time is None and max_steps is None:
             max_steps = 20000
+        with single_thread_blas():
+            self._run(until_time, max_steps, progress)
+
+    def _run(self, until_time: float | None, max_steps: int | None,
+             progress: Callable[[int, float], None] | None) -> None:
         taken = 0
         while True:
             if max_steps is not None and taken >= max_steps:
@@ -776,9 +822,9 @@ class Front:
                 remaining = until_time - self.time
                 if remaining <= 1e-12:
                     break
-                self.step(1, dt_max=remaining)
+                self._step(1, remaining)
             else:
-                self.step(1)
+                self._step(1, None)
             taken += 1
             if progress is not None:
                 progress(self.steps, self.time)

@@ -51,7 +51,7 @@ class FrontParams:
     model: str = "region"
     drive: float = 1.0
     smoothness: float | None = None  # mm; default depends on the model
-    edge_pull: float = 1.0
+    edge_pull: float = 3.0
     edge_sigma: float = 1.0  # mm
     edge_contrast: float | None = None  # intensity per mm; None = automatic
     edge_weight: float = 0.0  # region model: 0 = pure region term, 1 = fully gated by g
@@ -119,7 +119,7 @@ class FrontParams:
         """Smoothness actually used: the given value or the model's default."""
         if self.smoothness is not None:
             return float(self.smoothness)
-        return {"curvature": 1.0, "constant": 0.0}.get(self.model, 0.5)
+        return {"curvature": 1.0, "constant": 0.0, "region": 1.0}.get(self.model, 0.5)
 
     def updated(self, **changes: object) -> "FrontParams":
         """A copy with ``changes`` applied (unknown names raise ``ValueError``)."""
