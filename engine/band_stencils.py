@@ -34,7 +34,7 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from engine.lattice import symmetric_offsets
+from engine.lattice import symmetric_offsets, whole_shells
 from engine.polynomials import monomial_count
 from engine.rbffd import parse_operator, scaled_weights
 
@@ -69,13 +69,7 @@ def one_sided_offsets(dim: int, axis: int, direction: int, size: int) -> NDArray
     """
     reach = int(np.ceil((2 * size) ** (1.0 / dim))) + 2
     grid = np.array(list(itertools.product(range(-reach, reach + 1), repeat=dim)), dtype=np.int64)
-    grid = grid[grid[:, axis] * direction >= 0]
-    dist2 = np.sum(grid**2, axis=1)
-    order = np.lexsort((*grid.T[::-1], dist2))
-    grid, dist2 = grid[order], dist2[order]
-    counts = np.append(np.flatnonzero(np.diff(dist2)) + 1, len(grid))
-    best = counts[np.argmin(np.abs(counts - size) - 1e-3 * counts)]
-    return grid[:best]
+    return whole_shells(grid[grid[:, axis] * direction >= 0], size)
 
 
 @dataclass(frozen=True)

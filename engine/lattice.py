@@ -40,6 +40,15 @@ def symmetric_offsets(dim: int, size: int) -> NDArray[np.int64]:
         raise ValueError(f"stencil_size must be >= 1, got {size}")
     reach = int(np.ceil(size ** (1.0 / dim))) + 1
     grid = np.array(list(itertools.product(range(-reach, reach + 1), repeat=dim)), dtype=np.int64)
+    return whole_shells(grid, size)
+
+
+def whole_shells(grid: NDArray[np.int64], size: int) -> NDArray[np.int64]:
+    """The offsets of ``grid`` in whole shells |o|² = const, as many as closest to ``size``.
+
+    Sorted by |o|², then lexicographically (the centre first); ties between
+    two counts go to the larger.
+    """
     dist2 = np.sum(grid**2, axis=1)
     order = np.lexsort((*grid.T[::-1], dist2))
     grid, dist2 = grid[order], dist2[order]
