@@ -922,6 +922,29 @@ class Front:
         interp, coeffs = self._interpolant()
         return refine_polylines(lines, interp, coeffs, self.features.spacing)
 
+    def surface(self) -> tuple[NDArray[np.floating], NDArray[np.int64]]:
+        """Triangulated zero set of a 3-D front: vertices (k, 3) in voxel coordinates and faces (m, 3).
+
+        Marching cubes (Lorensen & Cline, SIGGRAPH 1987; scikit-image's
+        implementation) on the band's bounding box; lattice nodes outside the
+        band take ±(band half-width) with the sign of their voxel.
+        """
+        if self.ndim != 3:
+            raise ValueError("surface() is for 3-D fronts; use contours() in 2-D")
+        if self.vanished:
+            return np.empty((0, 3)), np.empty((0, 3), dtype=np.int64)
+        from skimage.measure import marching_cubes
+
+        b = self._band
+        lo = b.indices.min(axis=0)
+        hi = b.indices.max(axis=0)
+        grid = np.indices(tuple(hi - lo + 1)).reshape(3, -1).T + lo
+        dense = (_FAR * self.band_half_width * self._sign_from_pixels(grid)).reshape(tuple(hi - lo + 1))
+        dense[tuple((b.indices - lo).T)] = self._phi
+        verts, faces, _, _ = marching_cubes(dense, level=0.0, spacing=tuple(self.step_mm))
+        verts_px = (verts + lo * self.step_mm) / self.features.spacing
+        return verts_px, faces.astype(np.int64)
+
     def mask(self) -> NDArray[np.bool_]:
         """Pixels whose centre lies inside the front (φ < 0)."""
         if not self.vanished:

@@ -65,6 +65,11 @@ def test_sphere_mean_curvature_flow() -> None:
     front = Front.from_function(circle_sd(centre, 12.0), (40, 40, 40), model="curvature")
     front.run(until_time=(12.0**2 - 8.0**2) / 4.0)
     assert abs(mean_radius(front, centre) - 8.0) / 8.0 < 0.005
+    # the triangulated surface (marching cubes, linear interpolation: O(h²κ))
+    verts, faces = front.surface()
+    assert len(faces) > 100
+    radii = np.linalg.norm(verts - centre, axis=1)
+    assert np.abs(radii - 8.0).max() < 0.1
 
 
 def test_two_circles_merge_under_unit_speed() -> None:
