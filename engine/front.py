@@ -57,7 +57,6 @@ from engine.front_geometry import (
     ball_offsets,
     crossing_points,
     dilate_nodes,
-    polyline_distance,
     seed_function,
     stroke_distance,
 )
@@ -434,8 +433,6 @@ class Front:
         pixel_nodes = np.flatnonzero(on_pixel)
         pixel_index = tuple((indices[pixel_nodes] // self.detail).T)
         pixels = indices / self.detail
-        act_px = pixels[active]
-        near_px = tuple(np.clip(np.rint(act_px).astype(np.int64), 0, np.array(self.shape) - 1).T)
         near_all = tuple(np.clip(np.rint(pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
         frozen = self._pins[near_all] if self._pins is not None else np.zeros(len(indices), bool)
         barrier = self._barrier[near_all] if self._barrier is not None else np.zeros(len(indices), bool)
