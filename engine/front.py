@@ -381,8 +381,9 @@ class Front:
             reach = near_dist <= width + 2.0 * float(np.max(self.step_mm))
             phi[todo[~reach]] = np.where(approx[todo[~reach]] < 0, -1.0, 1.0) * 2.0 * width
             todo, nearest = todo[reach], nearest[reach]
-            cp = closest_points(interp, coeffs, positions[todo], start=starts[nearest], max_iter=8)
-            phi[todo] = np.where(approx[todo] < 0, -1.0, 1.0) * cp.distance
+            if len(todo):
+                cp = closest_points(interp, coeffs, positions[todo], start=starts[nearest], max_iter=8)
+                phi[todo] = np.where(approx[todo] < 0, -1.0, 1.0) * cp.distance
         keep = np.abs(phi) <= width
         self._install_band(nodes[keep], phi[keep])
         self.timings["rebuild"] += _time.perf_counter() - t0
@@ -402,6 +403,8 @@ class Front:
         if len(layer) == 0:
             raise FrontVanished("the front has no node next to it; it is too small for this detail")
         crossings = crossing_points(indices, phi, self.step_mm, lookup=lookup)
+        if len(crossings) == 0:
+            raise FrontVanished("the front vanished: no zero crossing is left")
         layer_tree = cKDTree(indices[active[layer]] * self.step_mm)
         crossing_tree = cKDTree(crossings)
 
@@ -713,10 +716,12 @@ class Front:
             self.steps += 1
             self.timings["evaluations"] = self.timings.get("evaluations", 0) + stages
             self._sync_inside()
-            if self.steps % STATISTICS_EVERY == 0:
+            if np.min(new) >= 0.0 or np.max(new) < 0.0:  # no zero crossing left
+                self._vanish()
+            elif self.steps % STATISTICS_EVERY == 0:
                 self._refresh_layer()
             self.timings["step"] += _time.perf_counter() - t0
-            if self._needs_rebuild(phi0):
+            if not self._vanished and self._needs_rebuild(phi0):
                 try:
                     self.rebuild()
                 except FrontVanished:
@@ -729,6 +734,7 @@ class Front:
             b.layer, b.source, b.edge_source = self._front_layer(b.indices, self._phi, b.active, b.edge_nodes,
                                                                  b.lookup)
         except FrontVanished:
+            self._vanish()
             return
         if self.params.model == "region":
             self._update_local_statistics()
