@@ -22,6 +22,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+import ellipse_reference
+
 from engine.contours import band_contour_set, band_contours, signed_area
 from engine.front import curvature_from_derivatives, refine_polylines
 from engine.interpolant import LocalInterpolant
@@ -43,32 +45,8 @@ BAND_PX = 8.0
 
 
 def exact_ellipse_distance(points: np.ndarray, *, samples: int = 4096) -> tuple[np.ndarray, np.ndarray]:
-    """Signed distance (negative inside) to the ellipse and the parameter t of the closest point.
-
-    Dense sampling of t, then Newton on f'(t) = 0 with f(t) = |q − (a cos t, b sin t)|²
-    (common geometry; independent of the engine).
-    """
-    q = np.asarray(points, dtype=float) - ELLIPSE_CENTRE
-    px, py = q[:, 0], q[:, 1]
-    t_grid = np.linspace(0.0, 2.0 * np.pi, samples, endpoint=False)
-    t = np.empty(len(q))
-    for start in range(0, len(q), 2048):  # bounded memory
-        sl = slice(start, start + 2048)
-        d2 = (A * np.cos(t_grid)[None] - px[sl, None]) ** 2 + (B * np.sin(t_grid)[None] - py[sl, None]) ** 2
-        t[sl] = t_grid[np.argmin(d2, axis=1)]
-    coarse = np.hypot(A * np.cos(t) - px, B * np.sin(t) - py)
-    step_limit = 2.0 * np.pi / samples
-    for _ in range(40):
-        s, c = np.sin(t), np.cos(t)
-        f1 = -A * s * (A * c - px) + B * c * (B * s - py)  # f'(t) / 2
-        f2 = A * A * s * s - A * c * (A * c - px) + B * B * c * c - B * s * (B * s - py)  # f''(t) / 2
-        t = t - np.clip(f1 / np.where(f2 > 0, f2, np.inf), -step_limit, step_limit)
-    s, c = np.sin(t), np.cos(t)
-    dist = np.hypot(A * c - px, B * s - py)
-    residual = -A * s * (A * c - px) + B * c * (B * s - py)
-    assert np.all(dist <= coarse + 1e-12) and np.all(np.abs(residual) < 1e-8 * (1 + dist) * A)
-    inside = px**2 / A**2 + py**2 / B**2 < 1.0
-    return np.where(inside, -dist, dist), np.mod(t, 2.0 * np.pi)
+    """Signed distance to this file's ellipse and the closest point's parameter (see ellipse_reference)."""
+    return ellipse_reference.exact_ellipse_distance(points, ELLIPSE_CENTRE, A, B, samples=samples)
 
 
 def ellipse_curvature(t: np.ndarray) -> np.ndarray:

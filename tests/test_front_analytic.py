@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from ellipse_reference import exact_ellipse_distance
 
 from engine.closest_point import closest_points
 from engine.front import Front
@@ -132,24 +133,8 @@ def test_square_corners_stay_sharp_under_shrinking() -> None:
 
 
 def ellipse_distance_mm(points: np.ndarray, centre: np.ndarray, a: float, b: float) -> np.ndarray:
-    """Exact signed distance to the ellipse (semi-axes a along rows, b along columns, mm).
-
-    Dense parametric sampling, then Newton on the parameter (common numerics).
-    """
-    p = points - centre
-    t = np.linspace(0, 2 * np.pi, 4001)[:-1]
-    curve = np.stack([a * np.cos(t), b * np.sin(t)], axis=1)
-    d2 = ((p[:, None, :] - curve[None]) ** 2).sum(-1)
-    s = t[np.argmin(d2, axis=1)]
-    for _ in range(30):
-        x, y = a * np.cos(s), b * np.sin(s)
-        dx, dy = -a * np.sin(s), b * np.cos(s)
-        g = (x - p[:, 0]) * dx + (y - p[:, 1]) * dy
-        gp = dx * dx + dy * dy + (x - p[:, 0]) * (-a * np.cos(s)) + (y - p[:, 1]) * (-b * np.sin(s))
-        s = s - g / gp
-    dist = np.hypot(a * np.cos(s) - p[:, 0], b * np.sin(s) - p[:, 1])
-    inside = (p[:, 0] / a) ** 2 + (p[:, 1] / b) ** 2 < 1
-    return np.where(inside, -dist, dist)
+    """Exact signed distance to the ellipse (mm), from the independent reference in ellipse_reference."""
+    return exact_ellipse_distance(points, centre, a, b)[0]
 
 
 @pytest.mark.parametrize("margin", [3.0, -3.0])
