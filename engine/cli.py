@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import importlib.util
 import sys
 from collections.abc import Sequence
 
@@ -12,26 +11,15 @@ from engine import __version__
 
 #: Verb name -> module under ``engine.commands`` that implements it. Each module
 #: exposes ``add_arguments(parser)``, ``HELP`` (one line) and ``run(args) -> int``.
-VERBS: dict[str, str] = {}
-
-
-def _register_available_verbs() -> None:
-    for verb, module in (
-        ("demo", "engine.commands.demo"),
-        ("segment", "engine.commands.segment"),
-        ("verify", "engine.commands.verify"),
-    ):
-        try:
-            importlib.util.find_spec(module)
-        except ModuleNotFoundError:  # pragma: no cover - package layout error
-            continue
-        if importlib.util.find_spec(module) is not None:
-            VERBS[verb] = module
+VERBS: dict[str, str] = {
+    "demo": "engine.commands.demo",
+    "segment": "engine.commands.segment",
+    "verify": "engine.commands.verify",
+}
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """Build the argument parser with one sub-parser per available verb."""
-    _register_available_verbs()
+    """Build the argument parser with one sub-parser per verb."""
     parser = argparse.ArgumentParser(
         prog="isotide",
         description=(
