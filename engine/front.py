@@ -721,7 +721,7 @@ class Front:
             elif self.steps % STATISTICS_EVERY == 0:
                 self._refresh_layer()
             self.timings["step"] += _time.perf_counter() - t0
-            if not self._vanished and self._needs_rebuild(phi0):
+            if not self._vanished and self._needs_rebuild():
                 try:
                     self.rebuild()
                 except FrontVanished:
@@ -765,7 +765,7 @@ class Front:
         self.converged = (len(self._motion) == self.params.convergence_window
                           and max(self._motion) < self.params.convergence_tol)
 
-    def _needs_rebuild(self, previous: NDArray[np.floating]) -> bool:
+    def _needs_rebuild(self) -> bool:
         """True once the front reaches nodes that were more than the safe distance from it."""
         safe = self._rebuild_distance()
         far = self._phi_at_rebuild > safe

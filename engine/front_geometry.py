@@ -110,8 +110,3 @@ def polyline_distance(points: NDArray[np.floating], polyline: NDArray[np.floatin
 def stroke_distance(points_mm: NDArray[np.floating], stroke_mm: NDArray[np.floating], radius_mm: float) -> NDArray[np.floating]:
     """Signed distance to a brush stroke (a capsule along the polyline), negative inside."""
     return polyline_distance(points_mm, stroke_mm) - radius_mm
-
-
-def offsets_box(dim: int, reach: int) -> NDArray[np.int64]:
-    """All integer offsets in [−reach, reach]^dim."""
-    return np.array(list(itertools.product(range(-reach, reach + 1), repeat=dim)), dtype=np.int64)

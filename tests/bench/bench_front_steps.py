@@ -134,12 +134,11 @@ def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
 
 
 def blas_threads() -> str:
-    try:
-        from threadpoolctl import threadpool_info
-    except ImportError:
-        return "unknown"
-    info = [f"{p.get('internal_api')}={p.get('num_threads')}" for p in threadpool_info() if p.get("user_api") == "blas"]
-    return ", ".join(info) or "none found"
+    """BLAS libraries and their thread counts (shared with the scaling benchmark)."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from bench_front_scaling import blas_threads as describe
+
+    return describe()
 
 
 def child(quick: bool) -> None:
