@@ -57,6 +57,7 @@ from engine.front_geometry import (
     ball_offsets,
     crossing_points,
     dilate_nodes,
+    seed_disks,
     seed_function,
     stroke_distance,
 )
@@ -234,7 +235,7 @@ class Front:
                    model: str = "region", detail: int = 1, **params: object) -> "Front":
         """Front starting from seed disks ``(row, col, radius_px)`` (3-D: ``(slice, row, col, r)``)."""
         img = np.asarray(image, dtype=float)
-        seeds_arr = _validate_seeds(seeds, img.shape)
+        seeds_arr = validate_seeds(seeds, img.shape)
         estimate = model == "window" and params.get("window") is None
         if estimate:  # placeholder until the smoothed image exists
             params = dict(params, window=(0.0, 1.0))
@@ -254,20 +255,47 @@ class Front:
             raise ValueError(f"mask shape {m.shape} does not match image shape {img.shape}")
         if not m.any():
             raise ValueError("mask is empty: nothing to start a front from")
+        sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
+        if sp.shape != (img.ndim,):
+            raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+        outside = ndimage.distance_transform_edt(~m, sampling=sp)
+        inside = ndimage.distance_transform_edt(m, sampling=sp)
+        half = 0.5 * float(np.min(sp))
+        pixel_phi = np.where(m, -(inside - half), outside - half)
+        return cls.from_pixel_phi(img, pixel_phi, spacing=spacing, model=model, detail=detail, **params)
+
+    @classmethod
+    def from_pixel_phi(cls, image: ArrayLike, pixel_phi: ArrayLike, *, spacing: ArrayLike | None = None,
+                       model: str = "region", detail: int = 1, window_from: ArrayLike | None = None,
+                       **params: object) -> "Front":
+        """Front whose initial zero set is that of ``pixel_phi`` (mm, negative inside), one value per pixel.
+
+        Between pixel centres the values are interpolated linearly; near the
+        zero set they should be close to a signed distance. With the
+        ``window`` model and no ``window`` given, the window is estimated from
+        the pixels of the boolean ``window_from`` (default: the initial inside).
+        """
+        img = np.asarray(image, dtype=float)
+        values = np.asarray(pixel_phi, dtype=float)
+        if values.shape != img.shape:
+            raise ValueError(f"pixel_phi shape {values.shape} does not match image shape {img.shape}")
+        if not np.all(np.isfinite(values)):
+            raise ValueError("pixel_phi contains NaN or infinite values")
+        if not np.any(values < 0):
+            raise ValueError("pixel_phi has no negative value: nothing to start a front from")
+        region = values < 0 if window_from is None else np.asarray(window_from, dtype=bool)
+        if region.shape != img.shape or not region.any():
+            raise ValueError("window_from must be a non-empty boolean mask of the image's shape")
         estimate = model == "window" and params.get("window") is None
         if estimate:
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params)
         if estimate:
-            front.params = front.params.updated(window=estimate_window_from_mask(front.features.smoothed, m))
+            front.params = front.params.updated(window=estimate_window_from_mask(front.features.smoothed, region))
         sp = front.features.spacing
-        outside = ndimage.distance_transform_edt(~m, sampling=sp)
-        inside = ndimage.distance_transform_edt(m, sampling=sp)
-        half = 0.5 * float(np.min(sp))
-        pixel_phi = np.where(m, -(inside - half), outside - half)
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
-            return ndimage.map_coordinates(pixel_phi, (points_mm / sp).T, order=1, mode="nearest")
+            return ndimage.map_coordinates(values, (points_mm / sp).T, order=1, mode="nearest")
 
         front._initialise(oracle)
         return front
@@ -585,34 +613,46 @@ class Front:
     def _speeds(self, phi: NDArray[np.floating], grad: NDArray[np.floating]) -> NodeSpeeds:
         """Speeds at the layer nodes, with image features taken at their closest points.
 
-        ``grad`` is the centred gradient at the layer nodes.
+        ``grad`` is the centred gradient at the layer nodes. For image-driven
+        models the normal speed is also taken half a node spacing inside and
+        outside the closest point; its slope along the normal (``slope``) lets
+        the step treat the speed's pull toward its zero linearly implicitly.
         """
         b = self._band
-        names = needed_features(self.params.model)
+        names = needed_features(self.params.model, edge_weight=self.params.edge_weight)
         act = b.active[b.layer]
         count = len(act)
-        sampled: dict[str, NDArray[np.floating]] = {}
-        normal = None
-        if names:
-            g2 = np.maximum(np.einsum("ni,ni->n", grad, grad), 1e-12)
-            normal = grad / np.sqrt(g2)[:, None]
-            closest_mm = b.positions[act] - (phi[act] / np.sqrt(g2))[:, None] * normal
-            px = closest_mm / self.features.spacing
-            px = np.clip(px, 0.0, np.array(self.shape) - 1.0)
-            for name in names:
-                if name == "edge_gradient":
-                    sampled[name] = np.stack([self.features.sample(f"edge_gradient{i}", px)
-                                              for i in range(self.ndim)], axis=1)
-                else:
-                    sampled[name] = self.features.sample(name, px)
+        if not names:
+            return node_speeds(self.params, intensity=None, edge=None, edge_gradient=None, normal=None,
+                               c_in=0.0, c_out=0.0, sigma_mm=self.features.sigma_mm, count=count)
+        g2 = np.maximum(np.einsum("ni,ni->n", grad, grad), 1e-12)
+        normal = grad / np.sqrt(g2)[:, None]
+        closest_mm = b.positions[act] - (phi[act] / np.sqrt(g2))[:, None] * normal
         if self.params.model == "region" and b.local_in is not None:
-            c_in = self.region_means()[0]
-            c_out = b.local_out
+            c_in: NDArray[np.floating] | float = self.region_means()[0]
+            c_out: NDArray[np.floating] | float = b.local_out
         else:
             c_in, c_out = self.region_means()
-        return node_speeds(self.params, intensity=sampled.get("smoothed"), edge=sampled.get("edge"),
-                           edge_gradient=sampled.get("edge_gradient"), normal=normal, c_in=c_in, c_out=c_out,
-                           sigma_mm=self.features.sigma_mm, count=count)
+        half = 0.5 * self.h
+        upper = np.array(self.shape) - 1.0
+        # the closest points, then half a spacing inside and outside, in one sampling pass
+        probe = np.concatenate([closest_mm, closest_mm - half * normal, closest_mm + half * normal])
+        px = np.clip(probe / self.features.spacing, 0.0, upper)
+        sampled: dict[str, NDArray[np.floating]] = {}
+        for name in names:
+            if name == "edge_gradient":
+                sampled[name] = np.stack([self.features.sample(f"edge_gradient{i}", px)
+                                          for i in range(self.ndim)], axis=1)
+            else:
+                sampled[name] = self.features.sample(name, px)
+        normals = np.concatenate([normal, normal, normal])
+        c_out3 = np.tile(c_out, 3) if np.ndim(c_out) else c_out
+        all3 = node_speeds(self.params, intensity=sampled.get("smoothed"), edge=sampled.get("edge"),
+                           edge_gradient=sampled.get("edge_gradient"), normal=normals, c_in=c_in, c_out=c_out3,
+                           sigma_mm=self.features.sigma_mm, count=3 * count)
+        v = all3.normal.reshape(3, count)
+        a = all3.curvature[:count] if np.ndim(all3.curvature) else all3.curvature
+        return NodeSpeeds(v[0], a, slope=(v[2] - v[1]) / (2.0 * half))
 
     def _rate(self, phi: NDArray[np.floating], speeds: NodeSpeeds,
               derivs: tuple[NDArray[np.floating], ...] | None = None) -> NDArray[np.floating]:
@@ -702,6 +742,7 @@ class Front:
                 if np.any(np.asarray(speeds.curvature) != 0):
                     radius = float(np.max(speeds.curvature)) * self.stencil.spectral_radius * self._curvature_gain
                     stages = rkl2_stages(dt, 2.0 / radius)
+            speeds = speeds.relaxed(dt)
             new = rkl2(phi0, lambda p: self._full_rate(p, speeds), dt, stages, first_rate=r0)
             # RKL2 combines stages with some negative weights, so hold pins and
             # barriers on the result, not only on the rates.
@@ -948,6 +989,16 @@ class Front:
         verts_px = (verts + lo * self.step_mm) / self.features.spacing
         return verts_px, faces.astype(np.int64)
 
+    def pixel_phi(self) -> NDArray[np.floating]:
+        """φ (mm) at every pixel centre: band values where the band has a node there, ±(beyond the band) elsewhere."""
+        if not self.vanished:
+            self._sync_inside()
+        out = np.where(self._inside, -1.0, 1.0) * (_FAR * self.band_half_width)
+        if not self.vanished:
+            b = self._band
+            out[b.pixel_index] = self._phi[b.pixel_nodes]
+        return out
+
     def mask(self) -> NDArray[np.bool_]:
         """Pixels whose centre lies inside the front (φ < 0)."""
         if not self.vanished:
@@ -1038,6 +1089,44 @@ class Front:
             remaining -= part
             if abs(remaining) < 1e-12:
                 break
+
+    def keep_parts(self, points_px: ArrayLike) -> int:
+        """Remove every separate part of the inside that holds none of ``points_px``; returns how many went.
+
+        Parts are the connected components of the pixel inside image (full
+        connectivity). Nothing is removed when no part holds any of the
+        points (so a front that moved off its seeds is never emptied).
+        """
+        pts = np.asarray(points_px, dtype=float).reshape(-1, self.ndim)
+        if len(pts) == 0 or not np.all(np.isfinite(pts)):
+            raise ValueError("points_px must be finite pixel coordinates")
+        inside = self.mask()
+        labels, count = ndimage.label(inside, structure=np.ones((3,) * self.ndim, dtype=bool))
+        if count <= 1:
+            return 0
+        px = np.clip(np.rint(pts).astype(np.int64), 0, np.array(self.shape) - 1)
+        held = np.unique(labels[tuple(px.T)])
+        held = held[held > 0]
+        if len(held) == 0:
+            return 0
+        drop = np.ones(count + 1, dtype=bool)
+        drop[0] = False
+        drop[held] = False
+        if not np.any(drop):
+            return 0
+        # pixels of dropped parts, grown by one so nodes between pixel centres go too,
+        # but never next to a kept part (whose outline must not move)
+        box = np.ones((3,) * self.ndim, dtype=bool)
+        kept = np.isin(labels, held)
+        gone = ndimage.binary_dilation(drop[labels], structure=box) & ~ndimage.binary_dilation(kept, structure=box)
+        far = _FAR * self.band_half_width
+
+        def combine(values: NDArray[np.floating], indices: NDArray[np.int64]) -> NDArray[np.floating]:
+            px_idx = tuple(np.clip(np.rint(indices / self.detail).astype(np.int64), 0, np.array(self.shape) - 1).T)
+            return np.where(gone[px_idx], np.maximum(values, far), values)
+
+        self._edit(combine)
+        return int(drop.sum())
 
     def pin(self, mask: ArrayLike | None, *, replace: bool = False) -> None:
         """Freeze the front inside ``mask`` (pixel array); ``None`` clears all pins."""
@@ -1166,7 +1255,8 @@ def _stroke_outline(points_mm: NDArray[np.floating], radius: float, h: float) ->
     return (path[:, None, :] + ring[None]).reshape(-1, dim)
 
 
-def _validate_seeds(seeds: Sequence[Sequence[float]], shape: tuple[int, ...]) -> NDArray[np.floating]:
+def validate_seeds(seeds: Sequence[Sequence[float]], shape: tuple[int, ...]) -> NDArray[np.floating]:
+    """Seed disks as an (n, d + 1) array; ValueError naming the problem (count, NaN, radius, outside)."""
     arr = np.asarray(seeds, dtype=float)
     dim = len(shape)
     if arr.ndim == 1 and arr.size == dim + 1:
@@ -1190,12 +1280,7 @@ def estimate_window(image: NDArray[np.floating], seeds: NDArray[np.floating]) ->
     The robust standard deviation is 1.4826 × the median absolute deviation
     (Hampel 1974; common practice).
     """
-    dim = image.ndim
-    grid = np.indices(image.shape)
-    inside = np.zeros(image.shape, dtype=bool)
-    for seed in seeds:
-        d2 = sum((grid[i] - seed[i]) ** 2 for i in range(dim))
-        inside |= d2 <= max(seed[-1], 1.0) ** 2
+    inside = seed_disks(image.shape, seeds)
     return estimate_window_from_mask(image, inside)
 
 

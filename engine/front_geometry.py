@@ -7,6 +7,7 @@ from collections.abc import Callable
 
 import numpy as np
 from numpy.typing import NDArray
+from scipy import ndimage
 
 from engine.lattice import LatticeLookup
 
@@ -20,13 +21,34 @@ def ball_offsets(step: NDArray[np.floating], radius: float) -> NDArray[np.int64]
     return grid[keep].astype(np.int64)
 
 
+#: Largest bounding box (nodes) that :func:`dilate_nodes` grows as a dense
+#: array (one byte per node); larger sets grow ring by ring on sorted keys.
+DENSE_DILATION_LIMIT = 1 << 26
+
+
 def dilate_nodes(indices: NDArray[np.int64], layers: int, upper: NDArray[np.int64]) -> NDArray[np.int64]:
-    """The node set grown by ``layers`` rings of lattice neighbours (3^d box), clipped to [0, upper]."""
-    dim = indices.shape[1]
+    """The node set grown by ``layers`` rings of lattice neighbours (3^d box), clipped to [0, upper].
+
+    Returned in row-major (lexicographic) order without duplicates.
+    """
+    idx = np.asarray(indices, dtype=np.int64)
+    dim = idx.shape[1]
+    upper = np.asarray(upper, dtype=np.int64)
+    layers = max(int(layers), 0)
+    low = np.maximum(idx.min(axis=0) - layers, 0)
+    high = np.minimum(idx.max(axis=0) + layers, upper)
+    shape = tuple(int(v) for v in high - low + 1)
+    if int(np.prod(shape)) <= DENSE_DILATION_LIMIT:
+        grid = np.zeros(shape, dtype=np.uint8)
+        grid[tuple((idx - low).T)] = 1
+        if layers:
+            # k rings of the 3^d box = one Chebyshev ball of radius k (separable)
+            grid = ndimage.maximum_filter(grid, size=2 * layers + 1, mode="constant", cval=0)
+        return np.argwhere(grid) + low
     dims = tuple(int(u) + 1 for u in upper)
     box = np.array(list(itertools.product((-1, 0, 1), repeat=dim)), dtype=np.int64)
-    keys = np.unique(np.ravel_multi_index(tuple(indices.T), dims))
-    frontier = indices
+    keys = np.unique(np.ravel_multi_index(tuple(idx.T), dims))
+    frontier = idx
     for _ in range(layers):
         grown = (frontier[:, None, :] + box[None]).reshape(-1, dim)
         grown = grown[np.all((grown >= 0) & (grown <= upper), axis=1)]
@@ -110,3 +132,13 @@ def polyline_distance(points: NDArray[np.floating], polyline: NDArray[np.floatin
 def stroke_distance(points_mm: NDArray[np.floating], stroke_mm: NDArray[np.floating], radius_mm: float) -> NDArray[np.floating]:
     """Signed distance to a brush stroke (a capsule along the polyline), negative inside."""
     return polyline_distance(points_mm, stroke_mm) - radius_mm
+
+
+def seed_disks(shape: tuple[int, ...], seeds: NDArray[np.floating]) -> NDArray[np.bool_]:
+    """Pixels whose centre lies inside any seed disk ``(..., radius_px)`` (radius at least one pixel)."""
+    grid = np.indices(shape, dtype=float)
+    inside = np.zeros(shape, dtype=bool)
+    for seed in np.asarray(seeds, dtype=float):
+        d2 = sum((grid[i] - seed[i]) ** 2 for i in range(len(shape)))
+        inside |= d2 <= max(seed[-1], 1.0) ** 2
+    return inside

@@ -57,8 +57,19 @@ def whole_shells(grid: NDArray[np.int64], size: int) -> NDArray[np.int64]:
     return grid[:best]
 
 
+#: Largest bounding box (nodes) for which a lookup keeps a dense position table
+#: (4 bytes per box node: 64 MiB at the limit); larger boxes use sorted keys.
+DENSE_LOOKUP_LIMIT = 1 << 24
+
+
 class LatticeLookup:
-    """Find the position of lattice indices within a node set (−1 where absent)."""
+    """Find the position of lattice indices within a node set (−1 where absent).
+
+    A dense table over the nodes' bounding box answers each query with one
+    array read when the box holds at most ``DENSE_LOOKUP_LIMIT`` nodes (every
+    2-D band, and 3-D bands of moderate extent); otherwise sorted keys and a
+    binary search.
+    """
 
     def __init__(self, indices: NDArray[np.integer]):
         idx = np.asarray(indices, dtype=np.int64)
@@ -66,27 +77,46 @@ class LatticeLookup:
             raise ValueError(f"indices must be a non-empty (N, d) integer array, got shape {idx.shape}")
         self.low = idx.min(axis=0)
         self.dims = idx.max(axis=0) - self.low + 1
-        keys = self._keys(idx)
-        self.order = np.argsort(keys, kind="stable")
-        self.sorted_keys = keys[self.order]
-        if np.any(np.diff(self.sorted_keys) == 0):
-            raise ValueError("indices contain duplicate lattice nodes")
+        self._strides = np.cumprod(np.concatenate([self.dims[1:], [1]])[::-1])[::-1].astype(np.int64)
+        keys = self._keys(idx - self.low)
+        size = int(np.prod(self.dims))
+        self.table: NDArray[np.int32] | None = None
+        if size <= DENSE_LOOKUP_LIMIT and len(idx) < np.iinfo(np.int32).max:
+            counts = np.bincount(keys, minlength=size)
+            if np.any(counts > 1):
+                raise ValueError("indices contain duplicate lattice nodes")
+            self.table = np.full(size, -1, dtype=np.int32)
+            self.table[keys] = np.arange(len(idx), dtype=np.int32)
+        else:
+            self.order = np.argsort(keys, kind="stable")
+            self.sorted_keys = keys[self.order]
+            if np.any(np.diff(self.sorted_keys) == 0):
+                raise ValueError("indices contain duplicate lattice nodes")
 
-    def _keys(self, idx: NDArray[np.int64]) -> NDArray[np.int64]:
-        rel = idx - self.low
-        return np.ravel_multi_index(tuple(rel.T), tuple(self.dims), mode="clip")
+    def _keys(self, rel: NDArray[np.int64]) -> NDArray[np.int64]:
+        """Row-major keys of offsets ``rel`` from ``low`` (valid only inside the box)."""
+        keys = rel[:, -1].copy()
+        for axis in range(rel.shape[1] - 1):
+            keys += rel[:, axis] * self._strides[axis]
+        return keys
 
     def find(self, query: NDArray[np.integer]) -> NDArray[np.int64]:
         """Positions of ``query`` (..., d) indices in the node set, −1 where absent."""
         q = np.asarray(query, dtype=np.int64)
         flat = q.reshape(-1, q.shape[-1])
         rel = flat - self.low
-        inside = np.all((rel >= 0) & (rel < self.dims), axis=1)
-        keys = self._keys(flat)
-        pos = np.searchsorted(self.sorted_keys, keys)
-        pos = np.minimum(pos, len(self.sorted_keys) - 1)
-        hit = inside & (self.sorted_keys[pos] == keys)
-        out = np.where(hit, self.order[pos], -1)
+        # negative offsets become huge unsigned values: one comparison per axis
+        inside = rel[:, 0].view(np.uint64) < np.uint64(self.dims[0])
+        for axis in range(1, rel.shape[1]):
+            inside &= rel[:, axis].view(np.uint64) < np.uint64(self.dims[axis])
+        keys = np.where(inside, self._keys(rel), 0)
+        if self.table is not None:
+            out = np.where(inside, self.table[keys], -1).astype(np.int64)
+        else:
+            pos = np.searchsorted(self.sorted_keys, keys)
+            pos = np.minimum(pos, len(self.sorted_keys) - 1)
+            hit = inside & (self.sorted_keys[pos] == keys)
+            out = np.where(hit, self.order[pos], -1)
         return out.reshape(q.shape[:-1])
 
 

@@ -9,7 +9,9 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from engine.front import Front
+from engine.coarse_start import block_mean, coarse_factor, coarse_seeds, upsample_phi
+from engine.front import Front, validate_seeds
+from engine.front_geometry import seed_disks
 
 
 @dataclass(frozen=True)
@@ -34,6 +36,7 @@ def segment(
     model: str = "region",
     max_steps: int | None = None,
     detail: int = 1,
+    coarse: int | None = None,
     progress: Callable[[int, float], None] | None = None,
     **params: object,
 ) -> Segmentation:
@@ -45,8 +48,11 @@ def segment(
     seeds : ``(row, col, radius_px)`` disks (3-D: ``(slice, row, col, radius_px)``).
     spacing : pixel spacing in mm, per axis.
     model : ``"region"``, ``"edge"``, ``"window"``, ``"curvature"`` or ``"constant"``.
-    max_steps : stop after this many steps even if not converged (default 20 000).
+    max_steps : stop after this many steps even if not converged (default 20 000; coarse and fine together).
     detail : lattice nodes per pixel along each axis (1, 2 or 4).
+    coarse : block size of a coarse start (1 = none; default: chosen from the image and seed sizes by
+        :func:`engine.coarse_start.coarse_factor`). The front first grows on the image averaged over
+        blocks of this size, then continues at full resolution from that outline.
     progress : called as ``progress(steps, time)`` after every step.
     **params : front settings (see :class:`engine.speeds.FrontParams`).
 
@@ -54,23 +60,61 @@ def segment(
     -------
     Segmentation
         Mask, sub-pixel contours, steps taken, convergence flag, the settings
-        actually used (including an estimated intensity window) and timings.
+        actually used (including an estimated intensity window and the
+        coarse block size) and timings. Parts of the outline that hold no
+        seed are dropped (:meth:`engine.front.Front.keep_parts`).
 
     References
     ----------
     Chan & Vese, IEEE Trans. Image Process. 10(2) (2001) 266-277; Caselles,
-    Kimmel & Sapiro, Int. J. Comput. Vis. 22(1) (1997) 61-79.
+    Kimmel & Sapiro, Int. J. Comput. Vis. 22(1) (1997) 61-79; Burt & Adelson,
+    IEEE Trans. Commun. 31(4) (1983) 532-540 (coarse to fine).
     """
     t0 = time.perf_counter()
-    front = Front.from_seeds(image, seeds, spacing=spacing, model=model, detail=detail, **params)
+    img = np.asarray(image, dtype=float)
+    seeds_arr = validate_seeds(seeds, img.shape)
+    budget = 20000 if max_steps is None else int(max_steps)
+    if coarse is None:
+        factor = coarse_factor(img.shape, seeds_arr, model)
+    elif isinstance(coarse, (int, np.integer)) and int(coarse) in (1, 2, 4, 8):
+        factor = int(coarse)
+    else:
+        raise ValueError(f"coarse must be 1, 2, 4 or 8, got {coarse!r}")
+    sp = np.asarray(spacing, dtype=float).reshape(-1)
+    if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
+        raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+    coarse_steps, coarse_time, coarse_s = 0, 0.0, 0.0
+    if factor > 1:
+        if img.ndim != 2:
+            raise ValueError("coarse start is for 2-D images; use coarse=1")
+        first = Front.from_seeds(block_mean(img, factor), coarse_seeds(seeds_arr, factor), spacing=sp * factor,
+                                 model=model, detail=1, **params)
+        first.run(max_steps=budget, progress=progress)
+        coarse_steps, coarse_time = first.steps, first.time
+        coarse_s = time.perf_counter() - t0
+        if first.vanished:
+            factor = 1  # nothing to refine: start again at full resolution
+        else:
+            start = upsample_phi(first.pixel_phi(), factor, img.shape)
+            if not np.any(start < 0):
+                factor = 1
+    if factor > 1:
+        front = Front.from_pixel_phi(img, start, spacing=sp, model=model, detail=detail,
+                                     window_from=seed_disks(img.shape, seeds_arr), **params)
+        front.time, front.steps = coarse_time, coarse_steps
+    else:
+        front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **params)
     t1 = time.perf_counter()
-    front.run(max_steps=20000 if max_steps is None else int(max_steps), progress=progress)
+    front.run(max_steps=max(budget - front.steps, 0), progress=progress)
+    if not front.vanished and front.keep_parts(seeds_arr[:, :-1]):
+        front.run(max_steps=max(budget - front.steps, 0), progress=progress)
     t2 = time.perf_counter()
     contours = front.contours() if front.ndim == 2 else []
     area = front.area_mm2()
     mask = front.mask()
     t3 = time.perf_counter()
     timings = {"setup_s": t1 - t0, "evolve_s": t2 - t1, "output_s": t3 - t2, "total_s": t3 - t0,
-               "rebuilds": front.timings["rebuilds"], "nodes": front.node_count}
-    return Segmentation(mask, contours, front.steps, front.converged, front.params.as_dict(), timings,
-                        front.time, area)
+               "rebuilds": front.timings["rebuilds"], "nodes": front.node_count, "coarse_steps": coarse_steps,
+               "coarse_s": coarse_s}
+    used = dict(front.params.as_dict(), coarse=factor)
+    return Segmentation(mask, contours, front.steps, front.converged, used, timings, front.time, area)

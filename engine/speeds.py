@@ -142,10 +142,30 @@ class FrontParams:
 
 @dataclass(frozen=True)
 class NodeSpeeds:
-    """Speed terms at the active nodes."""
+    """Speed terms at the nodes next to the front."""
 
     normal: NDArray[np.floating]  # V_adv (mm per unit time)
     curvature: NDArray[np.floating] | float  # coefficient a of κ|∇φ| (mm² per unit time)
+    slope: NDArray[np.floating] | None = None  # ∂V_adv/∂n along the outward normal (per unit time)
+
+    def relaxed(self, dt: float) -> "NodeSpeeds":
+        """Normal speeds for one explicit step of length ``dt``, the restoring part linearly implicit.
+
+        Where V falls along the outward normal (slope s < 0) the front is
+        pulled toward the zero of V; an explicit step overshoots it once
+        dt·|s| > 1 and oscillates about it once dt·|s| > 2 (a steep image
+        speed next to a low-contrast boundary). Linearising V about the
+        present position and stepping implicitly (backward Euler for
+        x' = V(x), i.e. a Rosenbrock step: Hairer & Wanner, "Solving Ordinary
+        Differential Equations II", Springer 1996, §IV.7) divides the
+        front's whole normal velocity, V and the curvature term alike, by
+        1 + dt |s|: unchanged where V is flat, never overshooting where it is
+        steep, and the same resting place V = a κ.
+        """
+        if self.slope is None:
+            return self
+        factor = 1.0 / (1.0 + dt * np.maximum(-self.slope, 0.0))
+        return replace(self, normal=self.normal * factor, curvature=self.curvature * factor)
 
 
 def clamp_unit(x: NDArray[np.floating]) -> NDArray[np.floating]:
@@ -205,7 +225,8 @@ def node_speeds(
     return NodeSpeeds(params.drive * edge + attraction, a * edge)
 
 
-def needed_features(model: str) -> tuple[str, ...]:
-    """Image features each model samples at the closest points."""
-    return {"region": ("smoothed", "edge"), "window": ("smoothed",), "edge": ("edge", "edge_gradient"),
+def needed_features(model: str, *, edge_weight: float = 0.0) -> tuple[str, ...]:
+    """Image features each model samples at the closest points (the region model needs edges when gated)."""
+    region = ("smoothed", "edge") if edge_weight > 0 else ("smoothed",)
+    return {"region": region, "window": ("smoothed",), "edge": ("edge", "edge_gradient"),
             "curvature": (), "constant": ()}[model]

@@ -1,0 +1,95 @@
+"""Coarse start of a segmentation: block averaging, upsampling, the choice of block size, no leak."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from skimage.transform import downscale_local_mean
+
+from engine.contours import signed_area
+from engine.coarse_start import block_mean, coarse_factor, coarse_seeds, to_coarse, upsample_phi
+from engine.front import Front
+from engine.metrics import dice
+from engine.segment import segment
+from tests.test_front_robustness import disk, supersampled
+
+
+@pytest.mark.parametrize("factor", [2, 4])
+def test_block_mean_matches_scikit_image(factor: int) -> None:
+    # Reference: skimage.transform.downscale_local_mean (same block mean when
+    # the shape divides evenly).
+    image = np.random.default_rng(0).normal(size=(64, 48))
+    np.testing.assert_allclose(block_mean(image, factor), downscale_local_mean(image, (factor, factor)),
+                               rtol=0, atol=1e-12)
+
+
+def test_block_mean_repeats_edge_pixels_for_partial_blocks() -> None:
+    image = np.arange(5 * 3, dtype=float).reshape(5, 3)
+    out = block_mean(image, 2)
+    assert out.shape == (3, 2)
+    # last row block is row 4 twice; last column block is column 2 twice (hand-computed)
+    assert out[2, 1] == image[4, 2]
+    assert out[0, 1] == pytest.approx((image[0, 2] + image[1, 2]) / 2)
+
+
+def test_upsampling_reproduces_a_plane_exactly() -> None:
+    # Linear interpolation is exact for affine functions; the coarse block
+    # centres sit at f·i + (f − 1)/2 on the full-resolution pixel grid.
+    factor = 4
+    shape = (40, 36)
+    fine = np.indices(shape, dtype=float)
+    plane = lambda r, c: 0.3 * r - 0.7 * c + 2.0  # noqa: E731
+    coarse_grid = np.indices((10, 9), dtype=float) * factor + 0.5 * (factor - 1)
+    coarse = plane(*coarse_grid)
+    up = upsample_phi(coarse, factor, shape)
+    inner = (slice(2, 38), slice(2, 34))  # away from the clamped border half-blocks
+    np.testing.assert_allclose(up[inner], plane(*fine)[inner], atol=1e-12)
+    np.testing.assert_allclose(to_coarse(np.array([[1.5, 5.5]]), factor), [[0.0, 1.0]])
+
+
+def test_block_size_follows_image_and_seed_sizes() -> None:
+    seeds = np.array([[256.0, 256.0, 30.0]])
+    assert coarse_factor((512, 512), seeds, "region") == 4
+    assert coarse_factor((1024, 1024), seeds * [2, 2, 2], "window") == 8
+    assert coarse_factor((256, 256), np.array([[128.0, 128.0, 3.0]]), "region") == 1  # seed too small
+    assert coarse_factor((512, 512), seeds, "edge") == 1
+    assert coarse_factor((512, 512), seeds, "curvature") == 1
+    assert coarse_factor((64, 512, 512), np.array([[32.0, 256, 256, 30]]), "region") == 1
+    np.testing.assert_allclose(coarse_seeds(seeds, 4), [[(256 - 1.5) / 4, (256 - 1.5) / 4, 7.5]])
+
+
+def test_keep_parts_drops_the_part_without_a_seed() -> None:
+    shape = (80, 120)
+    rr, cc = np.indices(shape)
+    left = (rr - 40) ** 2 + (cc - 35) ** 2 < 15**2
+    right = (rr - 40) ** 2 + (cc - 85) ** 2 < 12**2
+    image = np.where(left | right, 1.0, 0.0)
+    front = Front.from_mask(image, left | right, model="region")
+    lines = front.contours()
+    assert len(lines) == 2
+    left_area = [signed_area(c) for c in lines if c[:, 1].max() < 60]
+    assert front.keep_parts([(40, 35)]) == 1
+    mask = front.mask()
+    assert not mask[:, 60:].any()
+    assert mask[40, 35]
+    # the kept outline does not move (only reinitialised): same enclosed area
+    assert len(front.contours()) == 1
+    assert front.area_mm2() == pytest.approx(left_area[0], rel=1e-3)
+    assert front.keep_parts([(5, 5)]) == 0  # a point in no part removes nothing
+    assert front.mask().any()
+
+
+@pytest.mark.slow
+def test_coarse_start_does_not_leak_through_a_narrow_gap() -> None:
+    # The narrow-gap phantom of test_front_robustness at twice the size: the
+    # 1.5 px gap is narrower than the 2 × 2 blocks of the coarse start.
+    shape = (200, 280)
+    a = supersampled(shape, disk((100, 90), 50.0))
+    b = supersampled(shape, disk((100, 191.5), 50.0))
+    image = 40.0 + 120.0 * np.clip(a + b, 0, 1) + np.random.default_rng(6).normal(0.0, 6.0, shape)
+    result = segment(image, [(100, 90, 16)], model="region")
+    assert result.params["coarse"] == 2
+    assert dice(result.mask, a > 0.5) >= 0.97
+    assert result.mask[:, 141:].sum() == 0
+    full = segment(image, [(100, 90, 16)], model="region", coarse=1)
+    assert dice(result.mask, full.mask) >= 0.995
