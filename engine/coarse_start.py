@@ -15,6 +15,8 @@ reopens it (the gap's pixels push the outline back) and
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 from numpy.typing import NDArray
 from scipy import ndimage
@@ -75,9 +77,20 @@ def coarse_seeds(seeds: NDArray[np.floating], factor: int) -> NDArray[np.floatin
     return arr
 
 
-def upsample_phi(coarse_phi: NDArray[np.floating], factor: int, shape: tuple[int, ...]) -> NDArray[np.floating]:
-    """φ (mm) at the full-resolution pixel centres, linearly interpolated from the coarse pixel centres."""
-    grid = np.indices(shape, dtype=float).reshape(len(shape), -1)
-    coords = to_coarse(grid.T, factor).T
-    values = ndimage.map_coordinates(np.asarray(coarse_phi, dtype=float), coords, order=1, mode="nearest")
-    return values.reshape(shape)
+def upsample_phi(coarse_phi: NDArray[np.floating], factor: int, spacing: NDArray[np.floating]
+                 ) -> Callable[[NDArray[np.floating]], NDArray[np.floating]]:
+    """φ (mm) at full-resolution points (mm) from φ at the coarse pixel centres, by cubic B-spline interpolation.
+
+    The cubic spline (Unser, IEEE Signal Process. Mag. 16(6) (1999) 22-38)
+    is twice continuously differentiable, so the curvature of the upsampled
+    front has no kinks at the coarse cell lines, and it reproduces a smooth
+    signed distance to O(h⁴) near the zero set.
+    """
+    coeffs = ndimage.spline_filter(np.asarray(coarse_phi, dtype=float), order=3, mode="nearest")
+    sp = np.asarray(spacing, dtype=float)
+
+    def values(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
+        coords = to_coarse(np.asarray(points_mm, dtype=float) / sp, factor).T
+        return ndimage.map_coordinates(coeffs, coords, order=3, mode="nearest", prefilter=False)
+
+    return values

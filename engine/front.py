@@ -215,11 +215,24 @@ class Front:
     @classmethod
     def from_function(cls, phi: Callable[[NDArray[np.floating]], ArrayLike], shape: Sequence[int], *,
                       spacing: ArrayLike | None = None, model: str = "curvature", detail: int = 1,
-                      image: ArrayLike | None = None, **params: object) -> "Front":
-        """Front whose initial zero set is that of ``phi`` (callable on (N, d) points in mm)."""
-        front = cls._create(image, shape, spacing, model, detail, params)
+                      image: ArrayLike | None = None, signed_distance: bool = False,
+                      window_from: ArrayLike | None = None, **params: object) -> "Front":
+        """Front whose initial zero set is that of ``phi`` (callable on (N, d) points in mm).
+
+        With ``signed_distance`` the values of ``phi`` within the band are
+        taken as they are (they must be a smooth signed distance in mm there);
+        otherwise the band is reinitialised by Newton closest points. With the
+        ``window`` model and no ``window`` given, the window is estimated from
+        the pixels of the boolean ``window_from`` (default: the initial inside).
+        """
         if image is not None and tuple(np.shape(image)) != tuple(shape):
             raise ValueError(f"shape {tuple(shape)} does not match image shape {np.shape(image)}")
+        estimate = model == "window" and params.get("window") is None
+        if estimate:
+            if image is None:
+                raise ValueError("the window model needs an image")
+            params = dict(params, window=(0.0, 1.0))
+        front = cls._create(image, shape, spacing, model, detail, params)
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
             values = np.asarray(phi(points_mm), dtype=float).reshape(-1)
@@ -227,7 +240,8 @@ class Front:
                 raise ValueError("phi must return one finite value per point")
             return values
 
-        front._initialise(oracle)
+        front._initialise(oracle, signed_distance=signed_distance, window_from=window_from if estimate else None,
+                          estimate_window=estimate)
         return front
 
     @classmethod
@@ -283,21 +297,16 @@ class Front:
             raise ValueError("pixel_phi contains NaN or infinite values")
         if not np.any(values < 0):
             raise ValueError("pixel_phi has no negative value: nothing to start a front from")
-        region = values < 0 if window_from is None else np.asarray(window_from, dtype=bool)
-        if region.shape != img.shape or not region.any():
-            raise ValueError("window_from must be a non-empty boolean mask of the image's shape")
         estimate = model == "window" and params.get("window") is None
         if estimate:
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params)
-        if estimate:
-            front.params = front.params.updated(window=estimate_window_from_mask(front.features.smoothed, region))
         sp = front.features.spacing
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
             return ndimage.map_coordinates(values, (points_mm / sp).T, order=1, mode="nearest")
 
-        front._initialise(oracle)
+        front._initialise(oracle, window_from=window_from, estimate_window=estimate)
         return front
 
     # -------------------------------------------------------------- geometry
@@ -328,13 +337,21 @@ class Front:
         """Stencil radius in mm (largest offset times the largest step)."""
         return self.stencil.reach * float(np.max(self.step_mm))
 
-    def _initialise(self, oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]]) -> None:
+    def _initialise(self, oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], *,
+                    signed_distance: bool = False, window_from: ArrayLike | None = None,
+                    estimate_window: bool = False) -> None:
+        """Band around the zero set of ``oracle`` (values at points in mm); optionally estimate the window."""
         sp = self.features.spacing
         grid = np.indices(self.shape).reshape(self.ndim, -1).T
         pixel_values = oracle(grid * sp).reshape(self.shape)
         self._inside = pixel_values < 0
         if not self._inside.any():
             raise ValueError("the initial front is empty: no pixel centre lies inside it")
+        if estimate_window:
+            region = self._inside if window_from is None else np.asarray(window_from, dtype=bool)
+            if region.shape != self.shape or not region.any():
+                raise ValueError("window_from must be a non-empty boolean mask of the image's shape")
+            self.params = self.params.updated(window=estimate_window_from_mask(self.features.smoothed, region))
         self._noise = robust_std(self.features.smoothed[self._inside])
         self._reset_sums()
         pixel_lookup_values = pixel_values.reshape(-1)
@@ -345,7 +362,11 @@ class Front:
         def values_at(indices: NDArray[np.int64]) -> NDArray[np.floating]:
             return oracle(indices * self.step_mm)
 
-        self._build_band(starts, values_at)
+        if signed_distance:
+            nodes = self._candidate_nodes(starts, self.band_half_width)
+            self._build_band(starts, values_at, nodes=nodes, trusted=np.ones(len(nodes), dtype=bool))
+        else:
+            self._build_band(starts, values_at)
 
     # ------------------------------------------------------------- band build
     def _sign_from_pixels(self, indices: NDArray[np.int64]) -> NDArray[np.floating]:

@@ -92,15 +92,12 @@ def segment(
         first.run(max_steps=budget, progress=progress)
         coarse_steps, coarse_time = first.steps, first.time
         coarse_s = time.perf_counter() - t0
-        if first.vanished:
+        if first.vanished or first.mask().all():
             factor = 1  # nothing to refine: start again at full resolution
-        else:
-            start = upsample_phi(first.pixel_phi(), factor, img.shape)
-            if not np.any(start < 0):
-                factor = 1
     if factor > 1:
-        front = Front.from_pixel_phi(img, start, spacing=sp, model=model, detail=detail,
-                                     window_from=seed_disks(img.shape, seeds_arr), **params)
+        start = upsample_phi(first.pixel_phi(), factor, sp)
+        front = Front.from_function(start, img.shape, image=img, spacing=sp, model=model, detail=detail,
+                                    signed_distance=True, window_from=seed_disks(img.shape, seeds_arr), **params)
         front.time, front.steps = coarse_time, coarse_steps
     else:
         front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **params)
