@@ -115,6 +115,8 @@ def test_png_in_result_out_with_provenance(tmp_path, png, capsys, monkeypatch):
     (entry,) = block["History"]
     assert entry["Action"] == "segment" and entry["Label"] == 1 and entry["Slice"] == 0
     assert entry["Details"]["settings"] == {"smoothness": 0.3}
+    assert entry["Details"]["coarse"] == "auto"
+    assert record["Parameters"]["coarse"] == 1  # a 96² image starts at full resolution
     assert entry["Details"]["converged"] is (printed(captured.out, "converged") == "yes")
     # The label table names the structure (BIDS dseg.tsv columns).
     rows = paths["tsv"].read_text().splitlines()
@@ -213,6 +215,7 @@ BAD = {
     "bad smoothness": (lambda t, p: [str(p), "--seed", "10,10,3", "--smoothness", "-1", "--out", str(t / "o")],
                        "--smoothness"),
     "bad detail": (lambda t, p: [str(p), "--seed", "10,10,3", "--detail", "3", "--out", str(t / "o")], "--detail"),
+    "bad coarse": (lambda t, p: [str(p), "--seed", "10,10,3", "--coarse", "3", "--out", str(t / "o")], "--coarse"),
     "SEG from PNG": (lambda t, p: [str(p), "--seed", "10,10,3", "--dicom-seg", "--out", str(t / "o")],
                      "needs DICOM input"),
 }

@@ -99,6 +99,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--edge-sigma", metavar="MM", help="edge scale sigma in mm (>= 0)")
     parser.add_argument("--edge-contrast", metavar="K", help="edge contrast K (> 0; default automatic)")
     parser.add_argument("--detail", default="1", metavar="1|2|4", help="nodes per pixel along each axis")
+    parser.add_argument("--coarse", default="auto", metavar="auto|1|2|4|8",
+                        help="block size of the coarse start (1 = start at full resolution; default auto)")
     parser.add_argument("--max-steps", metavar="N", help="step limit (default 20000)")
     parser.add_argument("--slice", metavar="K", help="slice of a volume (default: the middle slice)")
     parser.add_argument("--label", default="structure", metavar="NAME", help="label name (default: structure)")
@@ -126,6 +128,7 @@ class Settings:
     model: str
     params: dict = field(default_factory=dict)
     detail: int = 1
+    coarse: int | None = None  # None: chosen automatically
     max_steps: int | None = None
     slice: int | None = None
     label: str = "structure"
@@ -235,6 +238,11 @@ def parse_settings(args: argparse.Namespace) -> Settings:
     detail = _integer(args.detail, "--detail", minimum=1)
     if detail not in (1, 2, 4):
         raise UsageError(f"--detail {args.detail!r}: must be 1, 2 or 4")
+    coarse = None
+    if str(args.coarse).strip().lower() != "auto":
+        coarse = _integer(args.coarse, "--coarse", minimum=1)
+        if coarse not in (1, 2, 4, 8):
+            raise UsageError(f"--coarse {args.coarse!r}: must be auto, 1, 2, 4 or 8")
     max_steps = None if args.max_steps is None else _integer(args.max_steps, "--max-steps", minimum=1)
     slice_index = None if args.slice is None else _integer(args.slice, "--slice", minimum=0)
     label = str(args.label)
@@ -247,8 +255,8 @@ def parse_settings(args: argparse.Namespace) -> Settings:
     if png and args.dicom_seg:
         raise UsageError("--dicom-seg: needs --out DIR/NAME, not a .png file")
     return Settings(
-        image=str(args.image), seeds=seeds, model=model, params=params, detail=detail, max_steps=max_steps,
-        slice=slice_index, label=label, out=out, png=png, dicom_seg=bool(args.dicom_seg),
+        image=str(args.image), seeds=seeds, model=model, params=params, detail=detail, coarse=coarse,
+        max_steps=max_steps, slice=slice_index, label=label, out=out, png=png, dicom_seg=bool(args.dicom_seg),
         progress=bool(args.progress),
     )
 
@@ -413,6 +421,7 @@ def provenance(
         "model": settings.model,
         "settings": {k: (list(v) if isinstance(v, tuple) else v) for k, v in settings.params.items()},
         "detail": settings.detail,
+        "coarse": "auto" if settings.coarse is None else settings.coarse,
         "max_steps": settings.max_steps,
         "label": settings.label,
         "out": settings.out,
@@ -524,7 +533,8 @@ def _run(settings: Settings) -> int:
         bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr)
     try:
         seg = segment(image, list(settings.seeds), spacing=spacing, model=settings.model,
-                      max_steps=settings.max_steps, detail=settings.detail, progress=bar, **settings.params)
+                      max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse, progress=bar,
+                      **settings.params)
     finally:
         if bar is not None:
             bar.close()
