@@ -99,12 +99,13 @@ def closest_points(
     lam = np.einsum("qd,qd->q", x - y, grad) / g2
     active = np.ones(len(x), dtype=bool)
     converged = np.zeros(len(x), dtype=bool)
-    iterations = 0
+    iterations = 0  # Newton steps taken (by the slowest point)
     eye = np.eye(dim)[None]
-    for iterations in range(1, max_iter + 1):
+    for _ in range(max_iter):
         ia = np.flatnonzero(active)
         if len(ia) == 0:
             break
+        iterations += 1
         ya, la, ga, ha, va = y[ia], lam[ia], grad[ia], hess[ia], value[ia]
         jac = np.zeros((len(ia), dim + 1, dim + 1))
         jac[:, :dim, :dim] = eye + la[:, None, None] * ha

@@ -131,6 +131,9 @@ def test_newton_converges_in_a_few_iterations(lattice: dict, name: str) -> None:
     print(f"{name}: all {len(query)} points within {CHECK_PX} px converged after {needed} Newton "
           f"iterations (reported iterations: {cp.iterations})")
     assert needed <= 6, needed
+    # The reported count is the Newton steps of the slowest point: exactly the
+    # smallest budget that suffices.
+    assert cp.iterations == needed, (cp.iterations, needed)
     # One iteration is not enough from a contour vertex (up to ~0.7 px off):
     # the flags must say so.
     assert not np.all(closest_points(interp, coeffs, query, start=start, max_iter=1).converged)

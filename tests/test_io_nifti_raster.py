@@ -88,6 +88,8 @@ def test_nifti_presets_nan_and_spacing_argument(tmp_path):
     vol = eio.load(tmp_path / "a.nii")
     assert vol.presets == ((20.0, 20.0),)
     assert vol.array[0, 0, 0] == 0.0 and any("non-finite" in w for w in vol.warnings)
+    assert vol.nonfinite == 1
+    assert eio.load(tmp_path / "a.nii").nonfinite == 1
     with pytest.raises(ValueError, match="spacing"):
         eio.load(tmp_path / "a.nii", spacing=(1.0, 1.0))
 

@@ -12,6 +12,7 @@ import hashlib
 import json
 import os
 import shutil
+import stat
 from pathlib import Path
 
 import highdicom as hd
@@ -438,3 +439,22 @@ def test_dicom_seg_of_a_multiframe_source(tmp_path):
             assert_missing_frames_are_empty=True,  # empty frames are omitted from the SEG
         )
         np.testing.assert_array_equal(lut[got[0]], labels[k])
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permission bits")
+def test_saved_files_get_the_usual_permissions(tmp_path):
+    # A new file gets 0o666 less the umask, as open() gives (POSIX, common
+    # practice); a replaced file keeps the permissions it had.
+    from engine.io.atomic import commit_files
+
+    mask = os.umask(0o027)
+    try:
+        fresh, kept = tmp_path / "fresh.txt", tmp_path / "kept.txt"
+        kept.write_bytes(b"old")
+        kept.chmod(0o604)
+        commit_files({fresh: b"new", kept: b"newer"})
+    finally:
+        os.umask(mask)
+    assert stat.S_IMODE(fresh.stat().st_mode) == 0o640
+    assert stat.S_IMODE(kept.stat().st_mode) == 0o604
+    assert kept.read_bytes() == b"newer"

@@ -475,17 +475,6 @@ def _check_seeds(seeds: tuple[tuple[float, float, float], ...], shape: tuple[int
             )
 
 
-def _nonfinite_count(volume: "Volume") -> int:
-    """Non-finite values the loader replaced (it notes them), or found in the array."""
-    import re
-
-    for note in getattr(volume, "warnings", ()):
-        match = re.search(r"(\d+) non-finite values", note)
-        if match:
-            return int(match.group(1))
-    return int(np.count_nonzero(~np.isfinite(volume.array)))
-
-
 def _one_line(exc: BaseException) -> str:
     return " ".join(str(exc).split()) or type(exc).__name__
 
@@ -519,7 +508,7 @@ def _run(settings: Settings) -> int:
     path = settings.image
     volume = load(path)
     load_s = time.perf_counter() - wall0
-    bad = _nonfinite_count(volume)
+    bad = volume.nonfinite or int(np.count_nonzero(~np.isfinite(volume.array)))
     if bad:
         raise UsageError(f"{path}: the image holds {bad} non-finite value{'s' if bad != 1 else ''} (NaN or infinity)")
     if settings.dicom_seg and volume.kind != "dicom":

@@ -22,9 +22,21 @@ from engine.io.errors import SaveError
 __all__ = ["commit_files"]
 
 
+def _file_mode(target: Path) -> int:
+    """Permissions for ``target``: those of the file it replaces, else 0o666 less the umask (as ``open`` does)."""
+    try:
+        return target.stat().st_mode & 0o7777
+    except OSError:
+        mask = os.umask(0)
+        os.umask(mask)
+        return 0o666 & ~mask
+
+
 def _write_temp(target: Path, data: bytes) -> Path:
     fd, name = tempfile.mkstemp(dir=target.parent, prefix=f".{target.name}.", suffix=".part")
     try:
+        if hasattr(os, "fchmod"):  # mkstemp makes 0600 files; give the usual permissions
+            os.fchmod(fd, _file_mode(target))
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -138,4 +138,5 @@ def load_nifti(
         source_files=(full,) * nk,
         slice_positions=tuple(float(k * spacing[0]) for k in range(nk)),
         warnings=tuple(notes),
+        nonfinite=int(bad.sum()),
     )

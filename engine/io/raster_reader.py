@@ -192,4 +192,5 @@ def load_raster(
         source_files=(full,) * n,
         slice_positions=tuple(float(k * full_spacing[0]) for k in range(n)),
         warnings=tuple(notes),
+        nonfinite=int(bad.sum()),
     )

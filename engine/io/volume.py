@@ -88,6 +88,10 @@ class Volume:
         slice gaps, assumed spacing, skipped files...).
     skipped : tuple of (str, str)
         ``(path, reason)`` for files of a folder that were not used.
+    nonfinite : int
+        How many values of the file were NaN or infinite (set to 0 in
+        ``array``, and noted in ``warnings``); callers that cannot accept
+        made-up values refuse when it is not 0.
     """
 
     array: np.ndarray
@@ -109,6 +113,7 @@ class Volume:
     inverted: bool = False
     warnings: tuple[str, ...] = ()
     skipped: tuple[tuple[str, str], ...] = field(default=())
+    nonfinite: int = 0
 
     def __post_init__(self) -> None:
         if not isinstance(self.array, np.ndarray) or self.array.ndim != 3:
