@@ -28,6 +28,18 @@ where c = 1, the band is rebuilt around it and φ is reinitialised to a signed
 distance by Newton closest points on the zero set of the local RBF
 interpolant (Saye 2014).
 
+With ``nodes="scattered"`` (2-D) the band is a subset of one fixed,
+edge-adaptive scattered node set per image
+(:class:`engine.node_set.ScatteredNodeSet`): band nodes are global node ids,
+each node carries its own cached RBF-FD weights (same operator columns as the
+lattice stencil), zero crossings lie on the edges of the nodes' neighbour
+graph, the pixel inside image follows φ interpolated to pixel centres, the
+time step follows the finest local spacing of the active nodes and the
+stage count a Gershgorin bound of the curvature operator. Contours are
+marching squares on φ interpolated to the band's pixel centres, projected
+onto the interpolant's zero set. The coarse start of :func:`engine.segment.segment`
+stays lattice-only.
+
 References
 ----------
 .. [1] D. Adalsteinsson, J. A. Sethian, "A fast level set method for
@@ -64,6 +76,8 @@ from engine.front_geometry import (
 from engine.image_features import ImageFeatures, compute_features
 from engine.interpolant import LocalInterpolant
 from engine.lattice import LatticeLookup, symmetric_offsets
+from engine.node_set import ScatteredNodeSet
+from engine.rbffd import assemble
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
 from engine.time_stepping import rkl2, rkl2_stages
 
@@ -101,8 +115,21 @@ RIM_PIXELS = 1.5
 STATISTICS_EVERY = 10
 #: Width of the ring of outside pixels, beyond the rim, of the local statistics.
 RING_PIXELS = 3.0
+#: Difference between the centred and the upwind |∇φ| beyond which a node is
+#: taken to sit on a kink of φ, where curvature motion uses the upwind value.
+KINK_GRADIENT = 0.1
 #: Radius (mm) of the local outside statistics of the region model.
 DEFAULT_LOCAL_RADIUS = 6.0
+#: Hyperviscosity coefficient γ (mm⁴ per unit curvature weight, times the node
+#: set's per-node factor (h_i / h_ref)^6) on scattered nodes. The linear
+#: tangential curvature operator is stable without it, but the full scheme
+#: (extension velocities, rebuilds) grew grid-scale wiggles on a shrinking
+#: circle after about 70 steps with γ = 0; 0.005 already removed them and
+#: 0.01 leaves a margin while the spectral radius (hence the RKL2 stage count)
+#: stays within about 3× of the undamped one.
+SCATTERED_DAMPING = 0.01
+#: Node layouts of the front.
+NODE_LAYOUTS = ("lattice", "scattered")
 
 
 class FrontVanished(ValueError):
@@ -155,6 +182,14 @@ class _Band:
     local_in: NDArray[np.floating] | None = None
     local_out: NDArray[np.floating] | None = None
     interpolant: LocalInterpolant | None = None
+    # scattered nodes only (global node ids in `indices`, sorted)
+    weights: NDArray[np.floating] | None = None  # (A, W, K) per-node operator weights, columns as the lattice's
+    pixel_matrix: object | None = None  # sparse (P, N): φ at the band's pixel centres (`pixel_index`)
+    spacing: NDArray[np.floating] | None = None  # local node spacing (mm) per node
+    h_min: float = 0.0  # smallest local spacing over the active nodes (mm)
+    reach: float = 0.0  # largest stencil radius over the active nodes (mm)
+    spectral: float = 0.0  # spectral radius bound of curvature motion per unit curvature weight (1/mm²)
+    edges: NDArray[np.int64] | None = None  # (E, 2) node pairs of the neighbour graph within the band
 
 
 @dataclass
@@ -184,11 +219,13 @@ class Front:
     _pins: NDArray[np.bool_] | None = field(default=None, repr=False)
     _barrier: NDArray[np.bool_] | None = field(default=None, repr=False)
     _coeffs: NDArray[np.floating] | None = field(default=None, repr=False)
+    node_set: ScatteredNodeSet | None = field(default=None, repr=False)  # scattered nodes (None: lattice)
+    _node_sets: dict = field(default_factory=dict, repr=False)  # node sets per (stencil size, degree, phs)
 
     # ------------------------------------------------------------------ build
     @classmethod
     def _create(cls, image: ArrayLike | None, shape: Sequence[int] | None, spacing: ArrayLike | None,
-                model: str, detail: int, params: dict) -> "Front":
+                model: str, detail: int, params: dict, layout: dict | None = None) -> "Front":
         if image is None:
             if shape is None:
                 raise ValueError("shape is required when no image is given")
@@ -206,17 +243,60 @@ class Front:
             raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
         if detail not in (1, 2, 4):
             raise ValueError(f"detail must be 1, 2 or 4, got {detail!r}")
+        layout = dict(layout or {})
+        nodes = layout.get("nodes", "lattice")
+        if nodes not in NODE_LAYOUTS:
+            raise ValueError(f"nodes must be one of {NODE_LAYOUTS}, got {nodes!r}")
+        given_set = layout.get("node_set")
+        if nodes == "lattice":
+            for name in ("finest", "coarsest", "node_set"):
+                if layout.get(name) is not None:
+                    raise ValueError(f"{name} applies to nodes='scattered' only")
+        else:
+            if img.ndim != 2:
+                raise ValueError("scattered nodes are 2-D for now; use nodes='lattice' for 3-D images")
+            if detail != 1:
+                raise ValueError("detail applies to nodes='lattice'; scattered nodes take finest and coarsest (mm)")
         fp = FrontParams(model=model, **params)
         feats = compute_features(img, sp, sigma_mm=fp.edge_sigma, contrast=fp.edge_contrast)
-        step_mm = sp / detail
-        stencil = band_stencil(step_mm, stencil_size=fp.stencil_size_for(img.ndim), degree=fp.degree, phs=fp.phs)
-        return cls(feats, fp, detail, step_mm, stencil)
+        if nodes == "lattice":
+            step_mm = sp / detail
+            stencil = band_stencil(step_mm, stencil_size=fp.stencil_size_for(img.ndim), degree=fp.degree,
+                                   phs=fp.phs)
+            return cls(feats, fp, detail, step_mm, stencil)
+        if given_set is not None:
+            node_set = given_set
+            if not isinstance(node_set, ScatteredNodeSet):
+                raise ValueError(f"node_set must be a ScatteredNodeSet, got {type(node_set).__name__}")
+            if node_set.shape != img.shape or not np.allclose(node_set.pixel_spacing, sp, rtol=1e-12, atol=0):
+                raise ValueError("node_set was made for another image shape or spacing")
+            if (node_set.stencil_size, node_set.degree, node_set.phs) != _node_options(fp, img.ndim):
+                raise ValueError("node_set: its stencil_size, degree and phs differ from the front's settings")
+        else:
+            finest = 0.5 * float(np.min(sp)) if layout.get("finest") is None else layout["finest"]
+            coarsest = float(np.max(sp)) if layout.get("coarsest") is None else layout["coarsest"]
+            for name, value in (("finest", finest), ("coarsest", coarsest)):
+                if not (isinstance(value, (int, float, np.integer, np.floating)) and np.isfinite(value)
+                        and value > 0):
+                    raise ValueError(f"{name} must be a positive node spacing in mm, got {value!r}")
+            if finest > coarsest:
+                raise ValueError(f"finest ({finest}) must not exceed coarsest ({coarsest})")
+            size, degree, phs = _node_options(fp, img.ndim)
+            node_set = ScatteredNodeSet.from_features(feats, finest=float(finest), coarsest=float(coarsest),
+                                                      stencil_size=size, degree=degree, phs=phs)
+        step_mm = np.full(img.ndim, node_set.reference_spacing)
+        stencil = band_stencil(sp, stencil_size=fp.stencil_size_for(img.ndim), degree=fp.degree, phs=fp.phs)
+        front = cls(feats, fp, 1, step_mm, stencil, node_set=node_set)
+        front._node_sets[_node_options(fp, img.ndim)] = node_set
+        return front
 
     @classmethod
     def from_function(cls, phi: Callable[[NDArray[np.floating]], ArrayLike], shape: Sequence[int], *,
                       spacing: ArrayLike | None = None, model: str = "curvature", detail: int = 1,
                       image: ArrayLike | None = None, signed_distance: bool = False,
-                      window_from: ArrayLike | None = None, **params: object) -> "Front":
+                      window_from: ArrayLike | None = None, nodes: str = "lattice", finest: float | None = None,
+                      coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
+                      **params: object) -> "Front":
         """Front whose initial zero set is that of ``phi`` (callable on (N, d) points in mm).
 
         With ``signed_distance`` the values of ``phi`` within the band are
@@ -224,6 +304,14 @@ class Front:
         otherwise the band is reinitialised by Newton closest points. With the
         ``window`` model and no ``window`` given, the window is estimated from
         the pixels of the boolean ``window_from`` (default: the initial inside).
+
+        Every constructor takes ``nodes``: ``"lattice"`` (default; ``detail``
+        lattice nodes per pixel) or ``"scattered"`` (2-D only): nodes of an
+        edge-adaptive :class:`~engine.node_set.ScatteredNodeSet`, ``finest``
+        mm apart near strong edges and ``coarsest`` mm in flat areas (default
+        half the smallest pixel spacing and the largest pixel spacing), or
+        the ``node_set`` given (to share one set between fronts on the same
+        image).
         """
         if image is not None and tuple(np.shape(image)) != tuple(shape):
             raise ValueError(f"shape {tuple(shape)} does not match image shape {np.shape(image)}")
@@ -232,7 +320,8 @@ class Front:
             if image is None:
                 raise ValueError("the window model needs an image")
             params = dict(params, window=(0.0, 1.0))
-        front = cls._create(image, shape, spacing, model, detail, params)
+        front = cls._create(image, shape, spacing, model, detail, params,
+                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set})
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
             values = np.asarray(phi(points_mm), dtype=float).reshape(-1)
@@ -246,14 +335,20 @@ class Front:
 
     @classmethod
     def from_seeds(cls, image: ArrayLike, seeds: Sequence[Sequence[float]], *, spacing: ArrayLike | None = None,
-                   model: str = "region", detail: int = 1, **params: object) -> "Front":
-        """Front starting from seed disks ``(row, col, radius_px)`` (3-D: ``(slice, row, col, r)``)."""
+                   model: str = "region", detail: int = 1, nodes: str = "lattice", finest: float | None = None,
+                   coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
+                   **params: object) -> "Front":
+        """Front starting from seed disks ``(row, col, radius_px)`` (3-D: ``(slice, row, col, r)``).
+
+        ``nodes``, ``finest``, ``coarsest``, ``node_set``: see :meth:`from_function`.
+        """
         img = np.asarray(image, dtype=float)
         seeds_arr = validate_seeds(seeds, img.shape)
         estimate = model == "window" and params.get("window") is None
         if estimate:  # placeholder until the smoothed image exists
             params = dict(params, window=(0.0, 1.0))
-        front = cls._create(img, None, spacing, model, detail, params)
+        front = cls._create(img, None, spacing, model, detail, params,
+                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set})
         if estimate:
             front.params = front.params.updated(window=estimate_window(front.features.smoothed, seeds_arr))
         front._initialise(seed_function(seeds_arr, front.features.spacing))
@@ -261,8 +356,13 @@ class Front:
 
     @classmethod
     def from_mask(cls, image: ArrayLike, mask: ArrayLike, *, spacing: ArrayLike | None = None,
-                  model: str = "region", detail: int = 1, **params: object) -> "Front":
-        """Front whose initial inside is the boolean ``mask`` (outline through pixel edges)."""
+                  model: str = "region", detail: int = 1, nodes: str = "lattice", finest: float | None = None,
+                  coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
+                  **params: object) -> "Front":
+        """Front whose initial inside is the boolean ``mask`` (outline through pixel edges).
+
+        ``nodes``, ``finest``, ``coarsest``, ``node_set``: see :meth:`from_function`.
+        """
         img = np.asarray(image, dtype=float)
         m = np.asarray(mask, dtype=bool)
         if m.shape != img.shape:
@@ -276,18 +376,21 @@ class Front:
         inside = ndimage.distance_transform_edt(m, sampling=sp)
         half = 0.5 * float(np.min(sp))
         pixel_phi = np.where(m, -(inside - half), outside - half)
-        return cls.from_pixel_phi(img, pixel_phi, spacing=spacing, model=model, detail=detail, **params)
+        return cls.from_pixel_phi(img, pixel_phi, spacing=spacing, model=model, detail=detail, nodes=nodes,
+                                  finest=finest, coarsest=coarsest, node_set=node_set, **params)
 
     @classmethod
     def from_pixel_phi(cls, image: ArrayLike, pixel_phi: ArrayLike, *, spacing: ArrayLike | None = None,
                        model: str = "region", detail: int = 1, window_from: ArrayLike | None = None,
-                       **params: object) -> "Front":
+                       nodes: str = "lattice", finest: float | None = None, coarsest: float | None = None,
+                       node_set: ScatteredNodeSet | None = None, **params: object) -> "Front":
         """Front whose initial zero set is that of ``pixel_phi`` (mm, negative inside), one value per pixel.
 
         Between pixel centres the values are interpolated linearly; near the
         zero set they should be close to a signed distance. With the
         ``window`` model and no ``window`` given, the window is estimated from
         the pixels of the boolean ``window_from`` (default: the initial inside).
+        ``nodes``, ``finest``, ``coarsest``, ``node_set``: see :meth:`from_function`.
         """
         img = np.asarray(image, dtype=float)
         values = np.asarray(pixel_phi, dtype=float)
@@ -300,7 +403,8 @@ class Front:
         estimate = model == "window" and params.get("window") is None
         if estimate:
             params = dict(params, window=(0.0, 1.0))
-        front = cls._create(img, None, spacing, model, detail, params)
+        front = cls._create(img, None, spacing, model, detail, params,
+                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set})
         sp = front.features.spacing
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
@@ -319,9 +423,18 @@ class Front:
         return self.features.image.shape
 
     @property
+    def nodes(self) -> str:
+        """Node layout: ``"lattice"`` or ``"scattered"``."""
+        return "lattice" if self.node_set is None else "scattered"
+
+    @property
     def h(self) -> float:
-        """Smallest lattice step (mm)."""
-        return float(np.min(self.step_mm))
+        """Smallest node spacing (mm): the lattice step, or the finest local spacing of the active scattered nodes."""
+        if self.node_set is None:
+            return float(np.min(self.step_mm))
+        if self._band is not None and self._band.h_min > 0:
+            return self._band.h_min
+        return float(np.min(self.node_set.local_spacing))
 
     @property
     def band_half_width(self) -> float:
@@ -334,8 +447,40 @@ class Front:
 
     @property
     def _reach_mm(self) -> float:
-        """Stencil radius in mm (largest offset times the largest step)."""
+        """Stencil radius in mm (largest offset times the largest step; scattered: largest over the active nodes)."""
+        if self.node_set is not None and self._band is not None:
+            return self._band.reach
         return self.stencil.reach * float(np.max(self.step_mm))
+
+    def _node_mm(self, keys: NDArray[np.int64]) -> NDArray[np.floating]:
+        """Positions (mm) of nodes given by lattice indices or scattered node ids."""
+        if self.node_set is None:
+            return keys * self.step_mm
+        return self.node_set.points[keys]
+
+    def _node_px(self, keys: NDArray[np.int64]) -> NDArray[np.floating]:
+        """Pixel coordinates of nodes given by lattice indices or scattered node ids."""
+        if self.node_set is None:
+            return keys / self.detail
+        return self.node_set.pixels[keys]
+
+    def _crossings(self, keys: NDArray[np.int64], phi: NDArray[np.floating],
+                   lookup: LatticeLookup | None) -> NDArray[np.floating]:
+        """Zero crossings (mm) of φ along lattice edges or the scattered nodes' neighbour graph."""
+        if self.node_set is None:
+            return crossing_points(keys, phi, self.step_mm, lookup=lookup)
+        b = self._band
+        if b is not None and b.edges is not None and keys is b.indices:
+            return _edge_crossings(self.node_set.points[keys], b.edges, phi)
+        return self.node_set.crossing_points(keys, phi)
+
+    @property
+    def _damping(self) -> float:
+        return self.stencil.damping if self.node_set is None else SCATTERED_DAMPING
+
+    @property
+    def _spectral_radius(self) -> float:
+        return self.stencil.spectral_radius if self.node_set is None else self._band.spectral
 
     def _initialise(self, oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], *,
                     signed_distance: bool = False, window_from: ArrayLike | None = None,
@@ -360,7 +505,7 @@ class Front:
             raise ValueError("the initial front has no boundary inside the image")
 
         def values_at(indices: NDArray[np.int64]) -> NDArray[np.floating]:
-            return oracle(indices * self.step_mm)
+            return oracle(self._node_mm(indices))
 
         if signed_distance:
             nodes = self._candidate_nodes(starts, self.band_half_width)
@@ -370,18 +515,34 @@ class Front:
 
     # ------------------------------------------------------------- band build
     def _sign_from_pixels(self, indices: NDArray[np.int64]) -> NDArray[np.floating]:
-        px = np.rint(indices / self.detail).astype(np.int64)
+        px = np.rint(self._node_px(indices)).astype(np.int64)
         px = np.clip(px, 0, np.array(self.shape) - 1)
         return np.where(self._inside[tuple(px.T)], -1.0, 1.0)
 
     def _current_values(self, indices: NDArray[np.int64]) -> NDArray[np.floating]:
-        """φ at lattice ``indices``: band values where known, ±(far) elsewhere."""
-        pos = self._band.lookup.find(indices)
+        """φ at lattice ``indices`` (scattered node ids): band values where known, ±(far) elsewhere."""
+        pos = self._band_positions(indices)
         far = _FAR * self.band_half_width * self._sign_from_pixels(indices)
         return np.where(pos >= 0, self._phi[np.maximum(pos, 0)], far)
 
+    def _band_positions(self, keys: NDArray[np.int64]) -> NDArray[np.int64]:
+        """Position of each node in the band, −1 where it is not in the band."""
+        b = self._band
+        if self.node_set is None:
+            return b.lookup.find(keys)
+        pos = np.minimum(np.searchsorted(b.indices, keys), len(b.indices) - 1)
+        return np.where(b.indices[pos] == keys, pos, -1)
+
+    @staticmethod
+    def _band_positions_in(ids: NDArray[np.int64], keys: NDArray[np.int64]) -> NDArray[np.int64]:
+        """Position of each of ``keys`` (any shape) in the sorted ``ids``, −1 where absent."""
+        pos = np.minimum(np.searchsorted(ids, keys), len(ids) - 1)
+        return np.where(ids[pos] == keys, pos, -1)
+
     def _candidate_nodes(self, starts_mm: NDArray[np.floating], radius_mm: float) -> NDArray[np.int64]:
         """Lattice nodes within ``radius_mm`` of any point of ``starts_mm`` (and inside the image)."""
+        if self.node_set is not None:
+            return self.node_set.nodes_near(starts_mm, radius_mm + float(np.max(self.step_mm)))
         upper = (np.array(self.shape) - 1) * self.detail
         dims = upper + 1
         centre = np.clip(np.rint(starts_mm / self.step_mm).astype(np.int64), 0, upper)
@@ -409,22 +570,28 @@ class Front:
         if nodes is None:
             nodes = self._candidate_nodes(starts_mm, width)
         approx = values_at(nodes)
-        # The zero set of the approximate values, as points on lattice edges.
-        lookup = LatticeLookup(nodes)
-        starts = crossing_points(nodes, approx, self.step_mm, lookup=lookup)
+        # The zero set of the approximate values, as points on lattice edges (scattered: graph edges).
+        lookup = LatticeLookup(nodes) if self.node_set is None else None
+        starts = self._crossings(nodes, approx, lookup)
         if len(starts) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
         todo = np.arange(len(nodes)) if trusted is None else np.flatnonzero(~trusted)
         phi = approx.copy()
         if len(todo):
-            pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
-            table = lookup.find(nodes[:, None, :] + pattern[None])
-            owners = np.flatnonzero(np.all(table >= 0, axis=1))
-            positions = nodes * self.step_mm
-            interp = LocalInterpolant.build(positions, table[owners], owners=owners, degree=self.params.degree,
-                                            phs=self.params.phs, translates=True, lattice_step=self.step_mm,
-                                            lattice_indices=nodes)
-            coeffs = interp.coefficients(approx)
+            if self.node_set is None:
+                pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
+                table = lookup.find(nodes[:, None, :] + pattern[None])
+                owners = np.flatnonzero(np.all(table >= 0, axis=1))
+                positions = nodes * self.step_mm
+                interp = LocalInterpolant.build(positions, table[owners], owners=owners,
+                                                degree=self.params.degree, phs=self.params.phs, translates=True,
+                                                lattice_step=self.step_mm, lattice_indices=nodes)
+                coeffs = interp.coefficients(approx)
+            else:
+                positions = self.node_set.points[nodes]
+                # Newton stays next to the zero set: interpolants there suffice
+                near_front = cKDTree(starts).query(positions)[0] <= 2.5 * float(np.max(self.step_mm))
+                interp, coeffs = self._scattered_interpolant(nodes, approx, near_front)
             near_dist, nearest = cKDTree(starts).query(positions[todo])
             # nodes farther than the band from every zero crossing are dropped below
             reach = near_dist <= width + 2.0 * float(np.max(self.step_mm))
@@ -447,20 +614,23 @@ class Front:
         front (approximated by its nearest zero crossing): the speed and
         curvature of the front there are the node's extension velocity.
         """
-        width = 1.2 * float(np.max(self.step_mm))
+        if self.node_set is None:
+            width: float | NDArray[np.floating] = 1.2 * float(np.max(self.step_mm))
+        else:
+            width = 1.2 * self.node_set.local_spacing[indices[active]]
         layer = np.flatnonzero(np.abs(phi[active]) <= width)
         if len(layer) == 0:
             raise FrontVanished("the front has no node next to it; it is too small for this detail")
-        crossings = crossing_points(indices, phi, self.step_mm, lookup=lookup)
+        crossings = self._crossings(indices, phi, lookup)
         if len(crossings) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
-        layer_tree = cKDTree(indices[active[layer]] * self.step_mm)
+        layer_tree = cKDTree(self._node_mm(indices[active[layer]]))
         crossing_tree = cKDTree(crossings)
 
         def source_of(nodes: NDArray[np.int64]) -> NDArray[np.int64]:
             if len(nodes) == 0:
                 return np.zeros(0, dtype=np.int64)
-            _, near = crossing_tree.query(indices[nodes] * self.step_mm)
+            _, near = crossing_tree.query(self._node_mm(indices[nodes]))
             _, src = layer_tree.query(crossings[near])
             return np.asarray(src, dtype=np.int64)
 
@@ -469,6 +639,9 @@ class Front:
         return layer, source, source_of(edge_nodes)
 
     def _install_band(self, indices: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
+        if self.node_set is not None:
+            self._install_scattered_band(indices, phi)
+            return
         order = np.lexsort(indices.T[::-1])
         indices, phi = indices[order], phi[order]
         lookup = LatticeLookup(indices)
@@ -497,6 +670,79 @@ class Front:
         if self.params.model == "region":
             self._update_local_statistics()
 
+    def _install_scattered_band(self, ids: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
+        """The band on scattered node ``ids`` (global ids of the front's node set).
+
+        Active nodes are the complete ones (every stencil node in the band, not
+        an edge node of the set); their gather and per-node weights come from
+        the node set's cache. The pixel centres covered by the active nodes
+        take φ through one sparse interpolation matrix.
+        """
+        ns = self.node_set
+        order = np.argsort(ids, kind="stable")
+        ids, phi = np.asarray(ids, dtype=np.int64)[order], phi[order]
+        table = ns.local_stencils(ids)
+        complete = ns.complete(ids)
+        active = np.flatnonzero(complete)
+        if len(active) == 0:
+            raise ValueError("the band has no node with a complete stencil; the front is too small for "
+                             "these node spacings and this stencil size")
+        _, weights = ns.operator_weights(ids[active])
+        gather = np.ascontiguousarray(table[active][:, :weights.shape[1]])
+        edge_nodes = np.flatnonzero(~complete)
+        layer, source, edge_source = self._front_layer(ids, phi, active, edge_nodes, None)
+        pixels = ns.pixels[ids]
+        # every pixel centre in a cell touched by an active node that the front can reach before the next
+        # rebuild (the rebuild distance plus two node spacings)
+        reach = float(np.sqrt(np.max(np.sum((ns.points[ids[gather]] - ns.points[ids[active]][:, None, :]) ** 2,
+                                            axis=2))))
+        safe = max(self.band_half_width - 2.0 * reach, 0.0) + 2.0 * float(np.max(self.step_mm))
+        covering = active[np.abs(phi[active]) <= safe]
+        base = np.floor(pixels[covering]).astype(np.int64)
+        corners = np.array(list(np.ndindex(*(2,) * self.ndim)), dtype=np.int64)
+        cand = (base[:, None, :] + corners[None]).reshape(-1, self.ndim)
+        cand = cand[np.all((cand >= 0) & (cand < np.array(self.shape)), axis=1)]
+        keys = np.unique(np.ravel_multi_index(tuple(cand.T), self.shape))
+        # interpolation on each pixel centre's nearest nodes of the whole set (cached per pixel); pixels
+        # whose stencil leaves the band (at its far edge, beyond the front's reach) are left out
+        stencils, pixel_weights = ns.pixel_weights(np.stack(np.unravel_index(keys, self.shape), axis=1))
+        columns = self._band_positions_in(ids, stencils)
+        inside_band = np.all(columns >= 0, axis=1)
+        keys, columns, pixel_weights = keys[inside_band], columns[inside_band], pixel_weights[inside_band]
+        pixel_index = np.unravel_index(keys, self.shape)
+        matrix = assemble(columns, pixel_weights, len(ids))
+        near_all = tuple(np.clip(np.rint(pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
+        frozen = self._pins[near_all] if self._pins is not None else np.zeros(len(ids), bool)
+        barrier = self._barrier[near_all] if self._barrier is not None else np.zeros(len(ids), bool)
+        pts = ns.points
+        spacing = ns.local_spacing[ids]
+        self._band = _Band(ids, pts[ids], pixels, None, gather, active, edge_nodes, layer, source,  # type: ignore[arg-type]
+                           edge_source, np.zeros(0, dtype=np.int64), tuple(pixel_index), frozen, barrier,
+                           weights=weights, pixel_matrix=matrix, spacing=spacing,
+                           h_min=float(np.min(spacing[active])), reach=reach,
+                           spectral=ns.spectral_bound(ids, damping=SCATTERED_DAMPING), edges=ns.edges(ids))
+        self._phi = phi
+        self._phi_at_rebuild = np.abs(phi)
+        self._coeffs = None
+        self._sync_inside()
+        if self.params.model == "region":
+            self._update_local_statistics()
+
+    def _scattered_interpolant(self, ids: NDArray[np.int64], values: NDArray[np.floating],
+                               owners_mask: NDArray[np.bool_] | None = None
+                               ) -> tuple[LocalInterpolant, NDArray[np.floating]]:
+        """Local interpolant on the k nearest scattered nodes of each node whose k nearest are all in ``ids``."""
+        ns = self.node_set
+        table = ns.local_stencils(ids)[:, :ns.stencil_size]
+        ok = np.all(table >= 0, axis=1)
+        if owners_mask is not None and np.any(ok & owners_mask):
+            ok &= owners_mask
+        owners = np.flatnonzero(ok)
+        if len(owners) == 0:
+            raise FrontVanished("the band is too thin for an interpolant")
+        interp = LocalInterpolant.build(ns.points[ids], table[owners], owners=owners, degree=ns.degree, phs=ns.phs)
+        return interp, _coefficients(interp, values)
+
     # ------------------------------------------------------ region statistics
     def _reset_sums(self) -> None:
         img = self.features.smoothed
@@ -507,7 +753,7 @@ class Front:
     def _sync_inside(self) -> None:
         """Update the pixel inside image (and the region sums) at pixel-centre band nodes."""
         b = self._band
-        now = self._phi[b.pixel_nodes] < 0
+        now = self._pixel_band_values() < 0
         before = self._inside[b.pixel_index]
         changed = np.flatnonzero(now != before)
         if len(changed) == 0:
@@ -522,6 +768,13 @@ class Front:
         self._sums[2] -= delta_sum
         self._sums[3] -= delta_n
         self._inside[idx] = gained
+
+    def _pixel_band_values(self) -> NDArray[np.floating]:
+        """φ at the band's pixel centres (``_band.pixel_index``)."""
+        b = self._band
+        if self.node_set is None:
+            return self._phi[b.pixel_nodes]
+        return b.pixel_matrix @ self._phi
 
     def region_means(self) -> tuple[float, float]:
         """Global mean (smoothed) intensity inside and outside the front."""
@@ -579,7 +832,10 @@ class Front:
         """Centred gradient (A, d), Hessian (A, d, d), one-sided derivatives (A, d) ×2 and (−Δ)³φ at active nodes."""
         b = self._band
         d = self.ndim
-        derivs = phi[b.gather] @ self.stencil.weights  # (A, K)
+        if self.node_set is None:
+            derivs = phi[b.gather] @ self.stencil.weights  # (A, K)
+        else:  # per-node weights, same columns
+            derivs = np.matmul(phi[b.gather][:, None, :], b.weights)[:, 0, :]
         grad = derivs[:, :d]
         hess = np.empty((len(grad), d, d))
         k = d
@@ -683,19 +939,21 @@ class Front:
         layer = b.layer
         v = speeds.normal[b.source]
         # Godunov Hamiltonian (Osher & Fedkiw 2003, eq. 6.3-6.4).
-        # with s = sign(V): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0)
-        sign = np.where(v > 0, 1.0, -1.0)[:, None]
-        up = np.maximum(np.maximum(sign * back, -sign * fwd), 0.0)
-        up2 = up[:, 0] * up[:, 0]
-        for i in range(1, up.shape[1]):
-            up2 = up2 + up[:, i] * up[:, i]
-        rate = -v * np.sqrt(up2)
+        rate = -v * _godunov_norm(v, back, fwd)
         a = speeds.curvature
         if np.any(np.asarray(a) != 0):
             kappa = self._front_curvature(phi[b.active[layer]], grad[layer], hess[layer])
             a_all = a[b.source] if np.ndim(a) else a
+            motion = a_all * kappa[b.source]  # curvature part of the normal speed (inward for κ > 0)
+            # Centred |∇φ| is accurate where φ is smooth, but on a kink of the
+            # distance function (the midline of a part that is collapsing) it
+            # tends to 0 and the part would linger there; the upwind |∇φ| of
+            # the same motion is the viscosity solution's (Osher & Fedkiw 2003,
+            # §6.4). Where the two differ by more than KINK_GRADIENT, take it.
             gnorm = np.sqrt(np.einsum("ni,ni->n", grad, grad))
-            rate += a_all * (kappa[b.source] * gnorm - self.stencil.damping * bih)
+            upwind = _godunov_norm(-motion, back, fwd)
+            gnorm = np.where(np.abs(gnorm - upwind) > KINK_GRADIENT, upwind, gnorm)
+            rate += motion * gnorm - a_all * self._damping * bih
         frozen = b.frozen[b.active]
         barrier = b.barrier[b.active]
         rate[frozen] = 0.0
@@ -723,7 +981,7 @@ class Front:
         dt = self.params.cfl * h / speed
         stages = 2
         if amax > 0:
-            radius = amax * self.stencil.spectral_radius * self._curvature_gain
+            radius = amax * self._spectral_radius * self._curvature_gain
             stages = rkl2_stages(dt, 2.0 / radius)
         return dt, stages
 
@@ -761,7 +1019,7 @@ class Front:
             if dt_max is not None and dt_max < dt:
                 dt = dt_max
                 if np.any(np.asarray(speeds.curvature) != 0):
-                    radius = float(np.max(speeds.curvature)) * self.stencil.spectral_radius * self._curvature_gain
+                    radius = float(np.max(speeds.curvature)) * self._spectral_radius * self._curvature_gain
                     stages = rkl2_stages(dt, 2.0 / radius)
             speeds = speeds.relaxed(dt)
             new = rkl2(phi0, lambda p: self._full_rate(p, speeds), dt, stages, first_rate=r0)
@@ -861,11 +1119,14 @@ class Front:
             dev = np.abs(np.sqrt(np.einsum("ni,ni->n", grad, grad)) - 1.0)
             drift = float(np.percentile(dev, 90)) if len(dev) else 1.0
             reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
-        starts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
-        # the front moved at most about the rebuild distance: grow the old band by that much
-        layers = int(np.ceil((self._rebuild_distance() + float(np.max(self.step_mm))) / self.h)) + 1
-        nodes = dilate_nodes(b.indices, layers, (np.array(self.shape) - 1) * self.detail)
-        trusted = None if reinitialise else b.lookup.find(nodes) >= 0
+        starts = self._crossings(b.indices, self._phi, b.lookup)
+        if self.node_set is None:
+            # the front moved at most about the rebuild distance: grow the old band by that much
+            layers = int(np.ceil((self._rebuild_distance() + float(np.max(self.step_mm))) / self.h)) + 1
+            nodes = dilate_nodes(b.indices, layers, (np.array(self.shape) - 1) * self.detail)
+        else:  # every node that can be in the new band
+            nodes = self._candidate_nodes(starts, self.band_half_width)
+        trusted = None if reinitialise else self._band_positions(nodes) >= 0
         self._build_band(starts, self._current_values, nodes=nodes, trusted=trusted)
         self._since_reinit = 0 if reinitialise else self._since_reinit + 1
 
@@ -883,6 +1144,10 @@ class Front:
         while True:
             if max_steps is not None and taken >= max_steps:
                 break
+            if self.vanished:  # nothing left to move: the time simply passes
+                if until_time is not None:
+                    self.time = max(self.time, float(until_time))
+                break
             if until_time is not None:
                 remaining = until_time - self.time
                 if remaining <= 1e-12:
@@ -899,6 +1164,12 @@ class Front:
     # ------------------------------------------------------------- read-outs
     def _interpolant(self) -> tuple[LocalInterpolant, NDArray[np.floating]]:
         b = self._band
+        if self.node_set is not None:
+            if b.interpolant is None:
+                b.interpolant, self._coeffs = self._scattered_interpolant(b.indices, self._phi)
+            elif self._coeffs is None:
+                self._coeffs = _coefficients(b.interpolant, self._phi)
+            return b.interpolant, self._coeffs
         if b.interpolant is None:
             pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
             table = b.lookup.find(b.indices[:, None, :] + pattern[None])
@@ -946,7 +1217,7 @@ class Front:
         outside_band = dist_owner > 1.5 * float(np.max(self.step_mm))
         if np.any(outside_band):
             b = self._band
-            verts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
+            verts = self._crossings(b.indices, self._phi, b.lookup)
             d, _ = cKDTree(verts).query(x[outside_band])
             px = np.clip(np.rint(x[outside_band] / self.features.spacing).astype(np.int64), 0,
                          np.array(self.shape) - 1)
@@ -981,7 +1252,10 @@ class Front:
         from engine.contours import band_contours
 
         b = self._band
-        lines = band_contours(b.indices, self._phi, detail=self.detail)
+        if self.node_set is None:
+            lines = band_contours(b.indices, self._phi, detail=self.detail)
+        else:  # marching squares on the band's pixel centres, φ interpolated there
+            lines = band_contours(np.stack(b.pixel_index, axis=1), self._pixel_band_values(), detail=1)
         if not refine or not lines:
             return lines
         interp, coeffs = self._interpolant()
@@ -1011,13 +1285,17 @@ class Front:
         return verts_px, faces.astype(np.int64)
 
     def pixel_phi(self) -> NDArray[np.floating]:
-        """φ (mm) at every pixel centre: band values where the band has a node there, ±(beyond the band) elsewhere."""
+        """φ (mm) at every pixel centre: band values where the band has a node there, ±(beyond the band) elsewhere.
+
+        With scattered nodes the band's values are interpolated to the pixel
+        centres the active nodes cover.
+        """
         if not self.vanished:
             self._sync_inside()
         out = np.where(self._inside, -1.0, 1.0) * (_FAR * self.band_half_width)
         if not self.vanished:
             b = self._band
-            out[b.pixel_index] = self._phi[b.pixel_nodes]
+            out[b.pixel_index] = self._pixel_band_values()
         return out
 
     def mask(self) -> NDArray[np.bool_]:
@@ -1043,17 +1321,19 @@ class Front:
         return float(sum(polyline_length(c * sp) for c in self.contours()))
 
     # ------------------------------------------------------------------ edits
-    def _edit(self, combine: Callable[[NDArray[np.floating], NDArray[np.int64]], NDArray[np.floating]],
+    def _edit(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating], NDArray[np.floating]],
+                                      NDArray[np.floating]],
               extra_starts: NDArray[np.floating] | None = None) -> None:
+        """Apply ``combine(values, positions_mm, pixels)`` to φ at nodes and pixel centres, and rebuild."""
         if self.vanished:
             raise ValueError("the outline has vanished; start a new front from seeds or a mask")
         b = self._band
-        starts = crossing_points(b.indices, self._phi, self.step_mm, lookup=b.lookup)
+        starts = self._crossings(b.indices, self._phi, b.lookup)
         if extra_starts is not None and len(extra_starts):
             starts = np.concatenate([starts, extra_starts]) if len(starts) else extra_starts
 
         def values_at(indices: NDArray[np.int64]) -> NDArray[np.floating]:
-            return combine(self._current_values(indices), indices)
+            return combine(self._current_values(indices), self._node_mm(indices), self._node_px(indices))
 
         # the inside image must follow the edit beyond the band as well
         self._apply_to_pixels(combine)
@@ -1061,14 +1341,20 @@ class Front:
         self.converged = False
         self._motion.clear()
 
-    def _apply_to_pixels(self, combine: Callable[[NDArray[np.floating], NDArray[np.int64]], NDArray[np.floating]]) -> None:
+    def _apply_to_pixels(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating],
+                                                  NDArray[np.floating]], NDArray[np.floating]]) -> None:
         """Re-evaluate the edit at every pixel centre it can change (those near the stroke)."""
         grid = np.argwhere(np.ones(self.shape, dtype=bool))
-        idx = grid * self.detail
         base = np.where(self._inside.reshape(-1), -1.0, 1.0) * _FAR * self.band_half_width
-        pos = self._band.lookup.find(idx)
-        base = np.where(pos >= 0, self._phi[np.maximum(pos, 0)], base)
-        new_inside = (combine(base, idx) < 0).reshape(self.shape)
+        if self.node_set is None:
+            idx = grid * self.detail
+            pos = self._band.lookup.find(idx)
+            base = np.where(pos >= 0, self._phi[np.maximum(pos, 0)], base)
+            new_inside = (combine(base, idx * self.step_mm, idx / self.detail) < 0).reshape(self.shape)
+        else:
+            b = self._band
+            base[np.ravel_multi_index(b.pixel_index, self.shape)] = self._pixel_band_values()
+            new_inside = (combine(base, grid * self.features.spacing, grid.astype(float)) < 0).reshape(self.shape)
         if np.array_equal(new_inside, self._inside):
             return
         self._inside = new_inside
@@ -1089,13 +1375,13 @@ class Front:
     def extend(self, stroke: tuple[ArrayLike, float]) -> None:
         """Add the area swept by a brush stroke: φ ← min(φ, d_stroke)."""
         pts, radius = self._stroke(stroke)
-        self._edit(lambda v, idx: np.minimum(v, stroke_distance(idx * self.step_mm, pts, radius)),
+        self._edit(lambda v, mm, px: np.minimum(v, stroke_distance(mm, pts, radius)),
                    _stroke_outline(pts, radius, self.h))
 
     def trim(self, stroke: tuple[ArrayLike, float]) -> None:
         """Cut the area swept by a brush stroke out: φ ← max(φ, −d_stroke)."""
         pts, radius = self._stroke(stroke)
-        self._edit(lambda v, idx: np.maximum(v, -stroke_distance(idx * self.step_mm, pts, radius)),
+        self._edit(lambda v, mm, px: np.maximum(v, -stroke_distance(mm, pts, radius)),
                    _stroke_outline(pts, radius, self.h))
 
     def margin(self, mm: float) -> None:
@@ -1106,7 +1392,7 @@ class Front:
         remaining = float(mm)
         while abs(remaining) > 0:
             part = float(np.clip(remaining, -chunk, chunk))
-            self._edit(lambda v, idx, p=part: v - p)
+            self._edit(lambda v, mm, px, p=part: v - p)
             remaining -= part
             if abs(remaining) < 1e-12:
                 break
@@ -1142,8 +1428,9 @@ class Front:
         gone = ndimage.binary_dilation(drop[labels], structure=box) & ~ndimage.binary_dilation(kept, structure=box)
         far = _FAR * self.band_half_width
 
-        def combine(values: NDArray[np.floating], indices: NDArray[np.int64]) -> NDArray[np.floating]:
-            px_idx = tuple(np.clip(np.rint(indices / self.detail).astype(np.int64), 0, np.array(self.shape) - 1).T)
+        def combine(values: NDArray[np.floating], mm: NDArray[np.floating],
+                    px: NDArray[np.floating]) -> NDArray[np.floating]:
+            px_idx = tuple(np.clip(np.rint(px).astype(np.int64), 0, np.array(self.shape) - 1).T)
             return np.where(gone[px_idx], np.maximum(values, far), values)
 
         self._edit(combine)
@@ -1191,13 +1478,30 @@ class Front:
                                              sigma_mm=new.edge_sigma, contrast=new.edge_contrast)
             self._reset_sums()
         if rebuild:
-            self.stencil = band_stencil(self.step_mm, stencil_size=new.stencil_size_for(self.ndim), degree=new.degree, phs=new.phs)
+            self._new_stencils(new)
         if rebuild or features:
-            self.rebuild()
+            # new stencils do not fit the old band: reinitialise instead of measuring drift with them
+            self.rebuild(reinitialise=True if rebuild else None)
         elif new.model == "region":
             self._update_local_statistics()
         self.converged = False
         self._motion.clear()
+
+    def _new_stencils(self, params: FrontParams) -> None:
+        """Stencils for changed stencil settings (scattered: the same nodes with new per-node operators)."""
+        if self.node_set is None:
+            self.stencil = band_stencil(self.step_mm, stencil_size=params.stencil_size_for(self.ndim),
+                                        degree=params.degree, phs=params.phs)
+            return
+        key = _node_options(params, self.ndim)
+        if key not in self._node_sets:
+            old = self.node_set
+            self._node_sets[key] = ScatteredNodeSet(self.shape, old.pixel_spacing, lambda p, s=old.local_spacing: s,
+                                                    stencil_size=key[0], degree=key[1], phs=key[2],
+                                                    points=old.points)
+        self.node_set = self._node_sets[key]
+        self.stencil = band_stencil(self.features.spacing, stencil_size=params.stencil_size_for(self.ndim),
+                                    degree=params.degree, phs=params.phs)
 
     # -------------------------------------------------------------- snapshots
     def snapshot(self) -> FrontSnapshot:
@@ -1213,6 +1517,8 @@ class Front:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
         if not isinstance(snap, FrontSnapshot):
             raise ValueError("snapshot must come from Front.snapshot()")
+        if (snap.indices.ndim == 1) != (self.node_set is not None):
+            raise ValueError("snapshot was taken on another node layout (lattice against scattered nodes)")
         size = int(np.prod(self.shape))
         inside = np.unpackbits(snap.inside_bits, count=size).astype(bool).reshape(self.shape)
         self._pins, self._barrier = snap.pins, snap.barrier
@@ -1220,8 +1526,7 @@ class Front:
             self.params = snap.params
             self.features = compute_features(self.features.image, self.features.spacing,
                                              sigma_mm=snap.params.edge_sigma, contrast=snap.params.edge_contrast)
-            self.stencil = band_stencil(self.step_mm, stencil_size=snap.params.stencil_size_for(self.ndim),
-                                        degree=snap.params.degree, phs=snap.params.phs)
+            self._new_stencils(snap.params)
         self._inside = inside
         self._sums = list(snap.sums)
         self._install_band(snap.indices.copy(), snap.phi.copy())
@@ -1238,6 +1543,46 @@ class Front:
 
 
 # ---------------------------------------------------------------- helpers
+def _godunov_norm(speed: NDArray[np.floating], back: NDArray[np.floating],
+                  fwd: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Upwind |∇φ| for motion with normal ``speed`` (Godunov; Osher & Fedkiw 2003, eq. 6.3-6.4).
+
+    With s = sign(speed): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0).
+    """
+    sign = np.where(speed > 0, 1.0, -1.0)[:, None]
+    up = np.maximum(np.maximum(sign * back, -sign * fwd), 0.0)
+    total = up[:, 0] * up[:, 0]
+    for i in range(1, up.shape[1]):
+        total = total + up[:, i] * up[:, i]
+    return np.sqrt(total)
+
+
+def _node_options(params: FrontParams, dim: int) -> tuple[int, int, int]:
+    """(stencil size, degree, phs) of a scattered node set for these settings."""
+    return params.stencil_size_for(dim), int(params.degree), int(params.phs)
+
+
+def _edge_crossings(points: NDArray[np.floating], edges: NDArray[np.int64],
+                    values: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Zero crossings of ``values`` along graph ``edges`` (pairs of rows of ``points``), linear interpolation."""
+    va, vb = values[edges[:, 0]], values[edges[:, 1]]
+    cross = (va < 0) != (vb < 0)
+    e, va, vb = edges[cross], va[cross], vb[cross]
+    t = va / (va - vb)
+    xa, xb = points[e[:, 0]], points[e[:, 1]]
+    return xa + t[:, None] * (xb - xa)
+
+
+def _coefficients(interp: LocalInterpolant, values: NDArray[np.floating], chunk: int = 4096) -> NDArray[np.floating]:
+    """Interpolation coefficients of every owner, one batched product (scattered stencils rarely share a shape)."""
+    local = np.asarray(values, dtype=float)[interp.stencils]
+    out = np.empty((len(local), interp.inverses.shape[1]))
+    for start in range(0, len(local), chunk):
+        rows = slice(start, start + chunk)
+        out[rows] = np.matmul(interp.inverses[interp.inverse_index[rows]], local[rows][:, :, None])[:, :, 0]
+    return out
+
+
 def curvature_from_derivatives(grad: NDArray[np.floating], hess: NDArray[np.floating]) -> NDArray[np.floating]:
     """κ = (|g|² tr H − gᵀHg) / |g|³ (sum of principal curvatures)."""
     g2 = np.einsum("ni,ni->n", grad, grad)

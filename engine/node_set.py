@@ -605,6 +605,11 @@ class ScatteredNodeSet:
         self._edge = np.zeros(0, dtype=bool)
         self._weights = np.zeros((0, 1, len(self.labels)))
         self._have_weights = np.zeros(0, dtype=bool)
+        # per-pixel interpolation weights (see pixel_weights), filled lazily
+        self._pixel_slot: NDArray[np.int64] | None = None
+        self._pixel_used = 0
+        self._pixel_stencils = np.zeros((0, k), dtype=np.int64)
+        self._pixel_weights = np.zeros((0, k))
 
     # ------------------------------------------------------------ builders
     @classmethod
@@ -953,6 +958,62 @@ class ScatteredNodeSet:
         self.solves += len(pix)
         return assemble(st, w, len(arr))
 
+    def pixel_weights(self, pixel_indices: ArrayLike) -> tuple[NDArray[np.int64], NDArray[np.floating]]:
+        """Interpolation stencils and weights of pixel centres on their nearest nodes of the whole set.
+
+        Parameters
+        ----------
+        pixel_indices : (P, d) int array
+            Pixel indices (array order), inside the image.
+
+        Returns
+        -------
+        stencils : (P, stencil_size) int64 array
+            Global ids of each pixel centre's ``stencil_size`` nearest nodes.
+        weights : (P, stencil_size) array
+            RBF-FD interpolation weights (PHS r^phs + degree ``degree``), as in
+            :meth:`pixel_interpolation` but on the global nearest nodes, so
+            they are computed once per pixel and cached. A band can use the
+            rows whose stencil lies entirely in it.
+        """
+        pix = np.asarray(pixel_indices)
+        if pix.ndim != 2 or pix.shape[1] != self.dim:
+            raise ValueError(f"pixel_indices: expected shape (P, {self.dim}), got {pix.shape}")
+        if pix.size and not np.issubdtype(pix.dtype, np.integer):
+            raise ValueError(f"pixel_indices: expected integers, got dtype {pix.dtype}")
+        pix = pix.astype(np.int64)
+        if len(pix) and (np.any(pix < 0) or np.any(pix >= np.array(self.shape))):
+            raise ValueError(f"pixel_indices: indices must lie inside the image shape {self.shape}")
+        k = self.stencil_size
+        if len(pix) == 0:
+            return np.zeros((0, k), dtype=np.int64), np.zeros((0, k))
+        if self._pixel_slot is None:
+            self._pixel_slot = np.full(int(np.prod(self.shape)), -1, dtype=np.int64)
+        flat = np.ravel_multi_index(tuple(pix.T), self.shape)
+        new = np.unique(flat[self._pixel_slot[flat] < 0])
+        if len(new):
+            centres = np.stack(np.unravel_index(new, self.shape), axis=1) * self.pixel_spacing
+            _, st = self.tree.query(centres, k=k)
+            st = np.asarray(st, dtype=np.int64).reshape(len(new), k)
+            (w,) = _local_weights(self.points[st] - centres[:, None, :],
+                                  [(self.phs, [parse_operator("value", self.dim)])], degree=self.degree)
+            self.solves += len(new)
+            used = self._pixel_used
+            need = used + len(new)
+            if need > len(self._pixel_stencils):
+                size = max(need, 2 * len(self._pixel_stencils), _MIN_ROWS)
+                grown_st = np.zeros((size, k), dtype=np.int64)
+                grown_w = np.zeros((size, k))
+                grown_st[:used] = self._pixel_stencils[:used]
+                grown_w[:used] = self._pixel_weights[:used]
+                self._pixel_stencils, self._pixel_weights = grown_st, grown_w
+            self._pixel_stencils[used:need] = st
+            self._pixel_weights[used:need] = w[:, :, 0]
+            self._pixel_slot[new] = np.arange(used, need)
+            self._pixel_used = need
+        slots = self._pixel_slot[flat]
+        return self._pixel_stencils[slots], self._pixel_weights[slots]
+
     # ------------------------------------------------------------ zero crossings
     def edges(self, ids: ArrayLike) -> NDArray[np.int64]:
         """Edges of the k-nearest-neighbour graph within ``ids``, as (E, 2) positions in ``ids``.
@@ -970,8 +1031,9 @@ class ScatteredNodeSet:
         a = np.repeat(np.arange(len(arr), dtype=np.int64), m)
         b = other.reshape(-1)
         keep = b >= 0
-        pairs = np.stack([np.minimum(a[keep], b[keep]), np.maximum(a[keep], b[keep])], axis=1)
-        return np.unique(pairs, axis=0)
+        n = np.int64(len(arr))
+        keys = np.unique(np.minimum(a[keep], b[keep]) * n + np.maximum(a[keep], b[keep]))
+        return np.stack([keys // n, keys % n], axis=1)
 
     def crossing_points(self, ids: ArrayLike, phi: ArrayLike) -> NDArray[np.floating]:
         """Zero crossings of φ along the graph :meth:`edges`, by linear interpolation (mm).

@@ -37,6 +37,7 @@ def segment(
     max_steps: int | None = None,
     detail: int = 1,
     coarse: int | None = None,
+    nodes: str = "lattice",
     progress: Callable[[int, float], None] | None = None,
     **params: object,
 ) -> Segmentation:
@@ -52,7 +53,11 @@ def segment(
     detail : lattice nodes per pixel along each axis (1, 2 or 4).
     coarse : block size of a coarse start (1 = none; default: chosen from the image and seed sizes by
         :func:`engine.coarse_start.coarse_factor`). The front first grows on the image averaged over
-        blocks of this size, then continues at full resolution from that outline.
+        blocks of this size, then continues at full resolution from that outline. Lattice nodes only:
+        with ``nodes="scattered"`` the default is 1 and any other value is refused.
+    nodes : ``"lattice"`` or ``"scattered"`` (2-D; edge-adaptive scattered nodes, see
+        :meth:`engine.front.Front.from_function`; ``finest`` and ``coarsest`` spacings in mm go in
+        ``params``).
     progress : called as ``progress(steps, time)`` after every step.
     **params : front settings (see :class:`engine.speeds.FrontParams`).
 
@@ -74,7 +79,13 @@ def segment(
     img = np.asarray(image, dtype=float)
     seeds_arr = validate_seeds(seeds, img.shape)
     budget = 20000 if max_steps is None else int(max_steps)
-    if coarse is None:
+    if nodes not in ("lattice", "scattered"):
+        raise ValueError(f"nodes must be 'lattice' or 'scattered', got {nodes!r}")
+    if nodes == "scattered" and coarse not in (None, 1):
+        raise ValueError(f"coarse start is for lattice nodes; use coarse=1 with nodes='scattered', got {coarse!r}")
+    if nodes == "scattered":
+        factor = 1
+    elif coarse is None:
         factor = coarse_factor(img.shape, seeds_arr, model)
     elif isinstance(coarse, (int, np.integer)) and int(coarse) in (1, 2, 4, 8):
         factor = int(coarse)
@@ -100,7 +111,8 @@ def segment(
                                     signed_distance=True, window_from=seed_disks(img.shape, seeds_arr), **params)
         front.time, front.steps = coarse_time, coarse_steps
     else:
-        front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **params)
+        layout = {} if nodes == "lattice" else {"nodes": nodes}
+        front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **layout, **params)
     t1 = time.perf_counter()
     front.run(max_steps=max(budget - front.steps, 0), progress=progress)
     if not front.vanished and front.keep_parts(seeds_arr[:, :-1]):
@@ -114,4 +126,6 @@ def segment(
                "rebuilds": front.timings["rebuilds"], "nodes": front.node_count, "coarse_steps": coarse_steps,
                "coarse_s": coarse_s}
     used = dict(front.params.as_dict(), coarse=factor)
+    if nodes == "scattered":
+        used["nodes"] = nodes
     return Segmentation(mask, contours, front.steps, front.converged, used, timings, front.time, area)

@@ -85,6 +85,16 @@ def test_png_in_png_out(tmp_path, png, capsys):
     assert "wall time" in captured.out and "evolution time" in captured.out
 
 
+def test_scattered_nodes_from_the_command_line(tmp_path, png, capsys):
+    out = tmp_path / "scattered.png"
+    rc = main(["segment", str(png), "--seed", "48,44,5", "--nodes", "scattered", "--out", str(out)])
+    captured = capsys.readouterr()
+    assert rc == 0, captured.err
+    mask = np.asarray(Image.open(out)) == 255
+    assert dice(mask, disk((96, 96), CENTRE, RADIUS)) >= 0.97  # analytic disk
+    assert printed(captured.out, "converged") == "yes"
+
+
 def test_png_in_result_out_with_provenance(tmp_path, png, capsys, monkeypatch):
     monkeypatch.setenv("USER", "tester")
     prefix = tmp_path / "results" / "disk"
@@ -116,6 +126,7 @@ def test_png_in_result_out_with_provenance(tmp_path, png, capsys, monkeypatch):
     assert entry["Action"] == "segment" and entry["Label"] == 1 and entry["Slice"] == 0
     assert entry["Details"]["settings"] == {"smoothness": 0.3}
     assert entry["Details"]["coarse"] == "auto"
+    assert entry["Details"]["nodes"] == "lattice"
     assert record["Parameters"]["coarse"] == 1  # a 96² image starts at full resolution
     assert entry["Details"]["converged"] is (printed(captured.out, "converged") == "yes")
     # The label table names the structure (BIDS dseg.tsv columns).
@@ -215,6 +226,9 @@ BAD = {
     "bad smoothness": (lambda t, p: [str(p), "--seed", "10,10,3", "--smoothness", "-1", "--out", str(t / "o")],
                        "--smoothness"),
     "bad detail": (lambda t, p: [str(p), "--seed", "10,10,3", "--detail", "3", "--out", str(t / "o")], "--detail"),
+    "bad nodes": (lambda t, p: [str(p), "--seed", "10,10,3", "--nodes", "grid", "--out", str(t / "o")], "--nodes"),
+    "coarse with scattered nodes": (lambda t, p: [str(p), "--seed", "10,10,3", "--nodes", "scattered", "--coarse", "2",
+                                                 "--out", str(t / "o")], "--coarse"),
     "bad coarse": (lambda t, p: [str(p), "--seed", "10,10,3", "--coarse", "3", "--out", str(t / "o")], "--coarse"),
     "SEG from PNG": (lambda t, p: [str(p), "--seed", "10,10,3", "--dicom-seg", "--out", str(t / "o")],
                      "needs DICOM input"),

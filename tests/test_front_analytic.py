@@ -49,6 +49,27 @@ def test_circle_curvature_flow_radius() -> None:
     assert err < 0.002, err
 
 
+def test_changing_the_stencil_mid_flow_keeps_the_exact_radius() -> None:
+    # Same exact solution r(t)² = r0² − 2t (Gage & Hamilton 1986); the stencil
+    # size and degree change halfway (set_params rebuilds the band with them).
+    centre = (64.3, 63.8)
+    front = Front.from_function(circle_sd(centre, 30.0), (128, 128), model="curvature")
+    t_end = (30.0**2 - 15.0**2) / 2.0
+    front.run(until_time=t_end / 2)
+    front.set_params(stencil_size=40, degree=3)
+    front.run(until_time=t_end)
+    assert abs(mean_radius(front, centre) - 15.0) / 15.0 < 0.002
+
+
+def test_a_vanished_circle_lets_time_pass() -> None:
+    # r0 = 3 px vanishes at t = r0²/2 = 4.5 (r² = r0² − 2t, Gage & Hamilton
+    # 1986); running to t = 10 must end there with nothing inside.
+    front = Front.from_function(circle_sd((20.2, 19.7), 3.0), (40, 40), model="curvature")
+    front.run(until_time=10.0)
+    assert front.vanished and front.time == 10.0
+    assert not front.mask().any()
+
+
 @pytest.mark.slow
 def test_circle_curvature_flow_converges_at_second_order() -> None:
     # Same exact solution; observed order between h = 1, 1/2, 1/4 px must be

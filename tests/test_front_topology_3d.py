@@ -7,17 +7,23 @@ against its bulbs pinches off under V = −κ (κ the sum of the principal
 curvatures) before the bulbs vanish (Grayson, "A short note on the evolution
 of a surface by its mean curvature", Duke Math. J. 58 (1989) 555-558).
 
-The references are
-- exact shrinking solutions: a sphere r² = r0² − 4t (Huisken, J. Differential
+References used by the checks:
+
+- exact shrinking solutions, a sphere r² = r0² − 4t (Huisken, J. Differential
   Geom. 20 (1984) 237-266) and a cylinder r² = r0² − 2t, with the comparison
   principle of the level-set flow (a set inside another stays inside it:
   Evans & Spruck, J. Differential Geom. 33 (1991) 635-681; Chen, Giga & Goto,
-  J. Differential Geom. 33 (1991) 749-786), which bounds each bulb between a
-  ball it contains and a cylinder that contains it;
+  J. Differential Geom. 33 (1991) 749-786): each bulb keeps a shrinking ball
+  inside it and stays inside a shrinking cylinder;
+- monotonicity of mean-convex flows: a surface with positive mean curvature
+  everywhere moves inward only, so the inside at a later time lies inside the
+  inside at any earlier time (B. White, J. Amer. Math. Soc. 13 (2000)
+  665-695). The dumbbell below is mean-convex (checked numerically);
 - the axisymmetric form of the same level-set equation, solved independently
   in the (z, ρ) half plane by central differences on a fine grid (Osher &
-  Sethian, J. Comput. Phys. 79 (1988) 12-49; Evans & Spruck's regularisation
-  of |∇φ|), for the time of the pinch and the volume and shape of the bulbs.
+  Sethian, J. Comput. Phys. 79 (1988) 12-49, with Evans & Spruck's
+  regularisation of |∇φ|), for the time of the pinch and the volume and shape
+  of the bulbs.
 """
 
 from __future__ import annotations
@@ -33,26 +39,28 @@ from scipy.sparse.csgraph import connected_components
 from engine.front import Front
 
 # The dumbbell: two balls of radius R_BULB with centres ±HALF_SPAN from the
-# neck plane along the third array axis, joined by a rod of radius R_NECK;
-# the union is blended by a smooth minimum of width BLEND (mm; spacing 1 mm).
-# The neck is 7 voxels across (the stencils reach about 3 voxels).
+# neck plane along the third array axis, joined by a rod of radius R_NECK,
+# blended by a smooth minimum of width BLEND (mm; spacing 1 mm). The blend
+# widens the neck to 3.48 mm radius (7 voxels across; the stencils reach
+# about 3 voxels) and makes the surface mean-convex.
 R_BULB = 9.0
-R_NECK = 3.5
+R_NECK = 3.0
 HALF_SPAN = 13.0
-BLEND = 1.0
-SHAPE = (36, 35, 62)
-CENTRE = np.array([17.3, 16.8, 30.6])  # on the axis, in the neck plane (voxel = mm)
+BLEND = 2.0
+SHAPE = (30, 30, 56)
+CENTRE = np.array([14.6, 14.3, 27.7])  # on the axis, in the neck plane (voxel = mm)
 
-# Time window. A cylinder of the neck's radius would pinch at R_NECK²/2 = 6.1
-# and a free ball of the bulbs' radius vanishes at R_BULB²/4 = 20.25 (exact
-# solutions above); the bulbs hold the neck open a little longer (the
-# reference below pinches at t ≈ 8.9). T_BEFORE: the reference neck is still
-# 1.6 mm in radius (3 voxels across). T_AFTER: 1.6 after the reference pinch,
-# the time a cylinder of radius 1.8 mm (under two voxels) needs to vanish, so
-# the check allows the front that much under-resolution of the last stage of
-# the pinch; the bulbs' balls then still have radius √(81 − 42) = 6.2 mm.
-T_BEFORE = 7.0
-T_AFTER = 10.5
+# Time window. A cylinder of the neck's radius (3.48) would pinch at
+# 3.48²/2 = 6.1 and a free ball of the bulbs' radius vanishes at
+# R_BULB²/4 = 20.25 (exact solutions above); the bulbs hold the neck open
+# longer: the reference below pinches at t = 10.85 (h = 0.2, 0.1 and 0.05
+# agree to 0.005). T_BEFORE: the reference neck still has radius 1.6 mm (3 voxels
+# across). T_AFTER: 1.65 after the reference pinch, the time a cylinder of
+# radius 1.8 mm (under two voxels) needs to vanish: the front may
+# under-resolve the last two voxels of the pinch by that much. The bulbs'
+# inner balls then still have radius √(81 − 50) = 5.6 mm.
+T_BEFORE = 9.0
+T_AFTER = 12.5
 SCAN_STEP = 0.25  # time between component counts while the neck closes
 
 
@@ -61,9 +69,8 @@ def dumbbell_profile(z: np.ndarray, rho: np.ndarray) -> np.ndarray:
 
     Smooth minimum −BLEND·log Σ exp(−d_k / BLEND) of the two balls' and the
     rod's signed distances (common practice for blending implicit
-    surfaces). It lies between min_k d_k − BLEND·log 3 and min_k d_k, so the
-    dumbbell contains both balls of radius R_BULB and lies inside the
-    cylinder of radius R_BULB + BLEND·log 3.
+    surfaces). It is at most min_k d_k, so the dumbbell contains both balls
+    of radius R_BULB.
     """
     d = np.stack([
         np.sqrt(rho**2 + (z - HALF_SPAN) ** 2) - R_BULB,
@@ -84,6 +91,33 @@ def dumbbell(points: np.ndarray) -> np.ndarray:
     return dumbbell_profile(*axial_coordinates(points))
 
 
+@dataclass(frozen=True)
+class Profile:
+    """The initial surface sampled finely in the (z, ρ) half plane."""
+
+    neck_radius: float  # ρ of the surface in the neck plane
+    max_radius: float  # largest ρ inside
+    min_mean_curvature: float  # smallest κ = ∇·(∇φ/|∇φ|) on the surface (1/mm)
+
+
+def initial_profile(h: float = 0.02) -> Profile:
+    z = np.arange(0.0, HALF_SPAN + R_BULB + 2.0, h)
+    rho = (np.arange(int((R_BULB + 2.0) / h)) + 0.5) * h
+    zz, rr = np.meshgrid(z, rho, indexing="ij")
+    f = dumbbell_profile(zz, rr)
+    fz, fr = np.gradient(f, h)
+    fzz, fzr = np.gradient(fz, h)
+    frr = np.gradient(fr, h, axis=1)
+    g2 = fz * fz + fr * fr
+    # mean curvature of the surface of revolution: 3-D divergence of the unit normal
+    kappa = (fzz + frr + fr / rr - (fz * fz * fzz + 2 * fz * fr * fzr + fr * fr * frr) / g2) / np.sqrt(g2)
+    on = np.abs(f) < h
+    on[:2] = on[-2:] = False  # one-sided differences at the grid's edges
+    on[:, :2] = on[:, -2:] = False
+    neck = rho[np.flatnonzero(f[0] >= 0)[0]]
+    return Profile(float(neck - 0.5 * h), float(rr[f < 0].max() + 0.5 * h), float(kappa[on].min()))
+
+
 # ---------------------------------------------------------------- reference
 @dataclass
 class AxisymmetricReference:
@@ -98,15 +132,13 @@ class AxisymmetricReference:
     def half_volume(self, t: float) -> float:
         """Volume (mm³) inside the surface of revolution on one side of the neck plane."""
         f = self.snapshots[t]
-        weight = 2.0 * np.pi * self.rho[None, :] * self.h * self.h
-        weight = np.broadcast_to(weight, f.shape).copy()
-        weight[0] *= 0.5  # the row z = 0 is the symmetry plane: half of its cells are on this side
+        weight = np.broadcast_to(2.0 * np.pi * self.rho[None, :] * self.h * self.h, f.shape).copy()
+        weight[0] *= 0.5  # the row z = 0 is the mirror plane: half of its cells are on this side
         return float(weight[f < 0].sum())
 
     def tip(self, t: float) -> float:
         """Distance (mm) from the neck plane to the nearest inside point on the axis."""
-        axis = self.snapshots[t][:, 0]
-        inside = np.flatnonzero(axis < 0)
+        inside = np.flatnonzero(self.snapshots[t][:, 0] < 0)
         return float(self.z[inside[0]]) if len(inside) else np.inf
 
     def distance(self, t: float, z: np.ndarray, rho: np.ndarray) -> np.ndarray:
@@ -127,9 +159,10 @@ def axisymmetric_reference(times: tuple[float, ...], *, h: float = 0.2) -> Axisy
     every level set, regularised as by Evans & Spruck (1991), central
     differences and forward Euler (Osher & Sethian 1988). Cells are centred at
     ρ = (j + ½)h with mirror values across the axis; the neck plane z = 0 is a
-    mirror plane. With ε = 0.01 h the pinch time agrees to 0.03 between
-    h = 0.2 and h = 0.1 (a larger ε = h delays the motion near the saddle of
-    the neck and gave first-order errors).
+    mirror plane. With ε = 0.01 h the pinch time moves by 0.004 and the
+    bulbs' volume at T_AFTER by 0.5 % from h = 0.2 to h = 0.1 (measured; with
+    ε = h the diffusion it adds where |∇φ| is small, at the saddle of the
+    neck, brought the pinch 2.4 too early at h = 0.2).
     """
     z = np.arange(0.0, HALF_SPAN + R_BULB + 3.0, h)
     rho = (np.arange(int((R_BULB + 3.0) / h)) + 0.5) * h
@@ -139,7 +172,7 @@ def axisymmetric_reference(times: tuple[float, ...], *, h: float = 0.2) -> Axisy
     ref = AxisymmetricReference(h, z, rho)
     t = 0.0
     for t_end in sorted(times):
-        n = max(int(np.ceil((t_end - t) / (0.15 * h * h))), 1)
+        n = max(int(np.ceil((t_end - t) / (0.15 * h * h))), 1)  # explicit diffusion limit, with room
         dt = (t_end - t) / n
         for _ in range(n):
             g = np.pad(f, 1, mode="edge")  # ρ = 0: mirror of the first cell; far sides: zero flux
@@ -166,8 +199,12 @@ def surface_pieces(faces: np.ndarray, n_vertices: int) -> tuple[int, np.ndarray]
     return connected_components(graph, directed=False)
 
 
-def bulb_centres() -> np.ndarray:
-    return np.stack([CENTRE - [0.0, 0.0, HALF_SPAN], CENTRE + [0.0, 0.0, HALF_SPAN]])
+def components(mask: np.ndarray) -> tuple[np.ndarray, int]:
+    return ndimage.label(mask)  # 6-connectivity (scipy's default structure)
+
+
+def voxel_centres() -> np.ndarray:
+    return np.indices(SHAPE).reshape(3, -1).T.astype(float)
 
 
 @dataclass
@@ -181,12 +218,9 @@ class State:
 
 @dataclass
 class Evolution:
-    initial_mask: np.ndarray
     before: State
     after: State
     counts: list[tuple[float, int]]  # (time, number of inside components) while the neck closes
-    nodes: int
-    steps: int
 
 
 def state(front: Front) -> State:
@@ -194,51 +228,55 @@ def state(front: Front) -> State:
     return State(front.time, front.mask(), verts, faces, bool(np.all(np.isfinite(front.phi))))
 
 
-def components(mask: np.ndarray) -> tuple[np.ndarray, int]:
-    return ndimage.label(mask)  # 6-connectivity (scipy's default structure)
-
-
 @pytest.fixture(scope="module")
 def reference() -> AxisymmetricReference:
-    return axisymmetric_reference((T_BEFORE, T_AFTER))
+    return axisymmetric_reference((0.0, T_BEFORE, T_AFTER))
 
 
 @pytest.fixture(scope="module")
 def evolution() -> Evolution:
     front = Front.from_function(dumbbell, SHAPE, model="curvature")
-    nodes = front.node_count
-    grid = np.indices(SHAPE).reshape(3, -1).T.astype(float)
-    initial = (dumbbell(grid) < 0).reshape(SHAPE)  # voxel centres inside the analytic dumbbell
     front.run(until_time=T_BEFORE)
     before = state(front)
     counts = [(front.time, components(before.mask)[1])]
     while front.time < T_AFTER - 1e-9:
         front.run(until_time=min(front.time + SCAN_STEP, T_AFTER))
+        assert np.all(np.isfinite(front.phi)), front.time
         counts.append((front.time, components(front.mask())[1]))
-    return Evolution(initial, before, state(front), counts, nodes, front.steps)
+    return Evolution(before, state(front), counts)
 
 
 # -------------------------------------------------------------------- tests
-def test_reference_pinches_inside_the_window(reference: AxisymmetricReference) -> None:
-    # The reference neck must pinch after the cylinder of the neck's radius
-    # would (the bulbs hold it open: mean curvature of the concave blend is
-    # smaller) and well before the bulbs' balls vanish (exact solutions
-    # r² = r0² − 2t and r² = r0² − 4t), and inside the checked window.
+def test_the_dumbbell_and_its_reference(reference: AxisymmetricReference) -> None:
+    profile = initial_profile()
+    assert 3.0 <= profile.neck_radius < 3.6  # 6 to 7 voxels across
+    # mean-convex, so the flow is monotone (White 2000); the margin covers
+    # the finite differences of the sampled curvature
+    assert profile.min_mean_curvature > 0.02
+    # The reference neck pinches after a cylinder of the neck's radius would
+    # (the concave blend lowers the mean curvature there) and long before the
+    # bulbs' balls vanish (exact solutions r² = r0² − 2t and r² = r0² − 4t),
+    # inside the checked window.
     assert reference.pinch_time is not None
-    assert R_NECK**2 / 2.0 < reference.pinch_time < R_BULB**2 / 4.0
+    assert profile.neck_radius**2 / 2.0 < reference.pinch_time < R_BULB**2 / 4.0
     assert T_BEFORE + 1.0 < reference.pinch_time < T_AFTER - 1.0, reference.pinch_time
 
 
 def test_one_body_before_the_pinch(evolution: Evolution, reference: AxisymmetricReference) -> None:
     s = evolution.before
     assert s.finite
-    assert reference.pinch_time > s.time  # the reference neck is still open
-    labels, n = components(s.mask)
-    assert n == 1
-    # the neck plane still has inside voxels on the axis
-    plane = int(round(CENTRE[2]))
-    assert s.mask[int(round(CENTRE[0])), int(round(CENTRE[1])), plane]
+    assert components(s.mask)[1] == 1
+    assert s.mask[tuple(np.rint(CENTRE).astype(int))]  # the neck is open on its axis
     assert surface_pieces(s.faces, len(s.vertices))[0] == 1
+    # Mean-convex flow moves inward only (White 2000): nothing outside the
+    # initial dumbbell is inside now.
+    initial = (dumbbell(voxel_centres()) < 0).reshape(SHAPE)
+    assert np.count_nonzero(s.mask & ~initial) == 0
+    # Shape, neck included: every surface vertex within half a voxel of the
+    # reference surface (the marching-cubes vertices interpolate linearly).
+    vz, vrho = axial_coordinates(s.vertices)
+    gap = np.abs(reference.distance(s.time, vz, vrho))
+    assert gap.max() < 0.5, gap.max()
 
 
 def test_splits_into_two_after_the_pinch(evolution: Evolution, reference: AxisymmetricReference) -> None:
@@ -246,64 +284,65 @@ def test_splits_into_two_after_the_pinch(evolution: Evolution, reference: Axisym
     assert s.finite
     counts = evolution.counts
     split_at = next((t for t, n in counts if n == 2), None)
-    assert split_at is not None, f"the neck did not separate by t = {T_AFTER} (reference pinch t = {reference.pinch_time:.2f}); counts {counts}"
-    # once separated, the pieces never join again (comparison principle) and never vanish here
+    assert split_at is not None, (f"the neck did not separate by t = {T_AFTER} (reference pinch at "
+                                  f"t = {reference.pinch_time:.2f}); components {counts}")
+    # once apart, the bulbs never join again (comparison principle) nor vanish here
     assert all(n == 2 for t, n in counts if t >= split_at), counts
 
     labels, n = components(s.mask)
     assert n == 2
-    z = np.indices(s.mask.shape)[2] - CENTRE[2]
-    sides = sorted(np.sign(z[labels == k]).min() + np.sign(z[labels == k]).max() for k in (1, 2))
+    z = np.indices(SHAPE)[2] - CENTRE[2]
+    sides = sorted(int(np.sign(z[labels == k]).min() + np.sign(z[labels == k]).max()) for k in (1, 2))
     assert sides == [-2, 2]  # each component lies wholly on its own side of the neck plane
-    # Gap around the neck plane: the reference bulb tips are `tip` from the
-    # plane; allow the front one voxel more reach.
+    # A gap around the neck plane: the reference bulbs' tips are `tip` from
+    # the plane; the front may reach one voxel nearer.
     tip = reference.tip(s.time)
-    assert tip > 1.5, tip
-    assert not np.any(s.mask & (np.abs(z) < tip - 1.0)), tip
+    assert tip > 2.0, tip
+    near_plane = np.count_nonzero(s.mask & (np.abs(z) < tip - 1.0))
+    assert near_plane == 0, f"{near_plane} voxels inside within {tip - 1.0} mm of the neck plane"
+    assert np.count_nonzero(s.mask & ~evolution.before.mask) == 0  # monotone (White 2000)
 
-    # the triangulated surface: two closed pieces, one on each side
-    pieces, labels_v = surface_pieces(s.faces, len(s.vertices))
+    # the triangulated surface: two pieces, one on each side
+    pieces, piece_of = surface_pieces(s.faces, len(s.vertices))
     assert pieces == 2
     for k in range(2):
-        side = np.sign(s.vertices[labels_v == k, 2] - CENTRE[2])
+        side = np.sign(s.vertices[piece_of == k, 2] - CENTRE[2])
         assert abs(side.sum()) == len(side)
 
 
-def test_bulbs_stay_between_the_exact_bounds(evolution: Evolution, reference: AxisymmetricReference) -> None:
+def test_bulbs_after_the_pinch(evolution: Evolution, reference: AxisymmetricReference) -> None:
     s = evolution.after
     t = s.time
     labels, n = components(s.mask)
     assert n == 2
-    grid = np.indices(s.mask.shape).reshape(3, -1).T.astype(float)
+    grid = voxel_centres()
     z, rho = axial_coordinates(grid)
+    inside = s.mask.reshape(-1)
     # Comparison with exact solutions (Evans & Spruck 1991; Huisken 1984):
     # each ball of radius R_BULB inside the dumbbell shrinks as a free ball
-    # and stays inside; the cylinder of radius R_BULB + BLEND·log 3 around
-    # the dumbbell shrinks as r² = r0² − 2t and keeps it inside. Tolerance:
-    # half a voxel (the inside image is read at voxel centres).
+    # and stays inside; the cylinder of the dumbbell's largest radius shrinks
+    # as r² = r0² − 2t and keeps it inside. Tolerance: half a voxel.
     ball = np.sqrt(R_BULB**2 - 4.0 * t)
-    cylinder = np.sqrt((R_BULB + BLEND * np.log(3.0)) ** 2 - 2.0 * t)
-    inside = s.mask.reshape(-1)
-    for centre in bulb_centres():
-        near = np.linalg.norm(grid - centre, axis=1) < ball - 0.5
-        assert np.all(inside[near])
-    assert np.all(rho[inside] < cylinder + 0.5)
+    cylinder = np.sqrt(initial_profile().max_radius ** 2 - 2.0 * t)
+    for sign in (-1.0, 1.0):
+        near = np.hypot(z - sign * HALF_SPAN, rho) < ball - 0.5
+        assert np.count_nonzero(near & ~inside) == 0
+    assert rho[inside].max() < cylinder + 0.5, (rho[inside].max(), cylinder)
 
-    initial_labels = np.where(np.indices(SHAPE)[2] < CENTRE[2], 1, 2) * evolution.initial_mask
     ref_radius = (3.0 * reference.half_volume(t) / (4.0 * np.pi)) ** (1.0 / 3.0)
+    start_radius = (3.0 * reference.half_volume(0.0) / (4.0 * np.pi)) ** (1.0 / 3.0)
     for k in (1, 2):
-        part = labels == k
-        radius = (3.0 * part.sum() / (4.0 * np.pi)) ** (1.0 / 3.0)  # equivalent radius (voxel = 1 mm³)
-        side = 1 if np.mean(np.indices(SHAPE)[2][part]) < CENTRE[2] else 2
-        start = (3.0 * (initial_labels == side).sum() / (4.0 * np.pi)) ** (1.0 / 3.0)
-        # shrunk, but not below the free ball's radius (it contains that ball)
-        assert ball - 0.5 < radius < start
-        # Against the axisymmetric reference: 3 % in equivalent radius (about
-        # 0.2 mm, a fifth of a voxel; the voxel count of a body of ~1300
-        # voxels varies by about that much with sub-voxel shifts).
-        assert abs(radius - ref_radius) < 0.03 * ref_radius, (radius, ref_radius)
+        radius = (3.0 * np.count_nonzero(labels == k) / (4.0 * np.pi)) ** (1.0 / 3.0)  # voxel = 1 mm³
+        # shrunk (monotone flow), but not below the ball it contains
+        assert ball - 0.5 < radius < start_radius
+        # Against the axisymmetric reference: 2 % in equivalent radius
+        # (0.13 mm). The number of voxel centres in a body of radius r
+        # differs from its volume by O(r^1.5) (lattice points in a ball; from
+        # memory): about 1.5 % of the volume, 0.5 % of the radius here.
+        assert abs(radius - ref_radius) < 0.02 * ref_radius, (radius, ref_radius)
 
     # Shape: every surface vertex within half a voxel of the reference surface.
     vz, vrho = axial_coordinates(s.vertices)
     gap = np.abs(reference.distance(t, vz, vrho))
-    assert gap.max() < 0.5, gap.max()
+    worst = int(np.argmax(gap))
+    assert gap[worst] < 0.5, f"vertex at z = {vz[worst]:.2f}, rho = {vrho[worst]:.2f} is {gap[worst]:.2f} mm off"

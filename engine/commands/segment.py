@@ -99,6 +99,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--edge-sigma", metavar="MM", help="edge scale sigma in mm (>= 0)")
     parser.add_argument("--edge-contrast", metavar="K", help="edge contrast K (> 0; default automatic)")
     parser.add_argument("--detail", default="1", metavar="1|2|4", help="nodes per pixel along each axis")
+    parser.add_argument("--nodes", default="lattice", metavar="lattice|scattered",
+                        help="where the front lives: a lattice (default) or scattered nodes, finer near edges")
     parser.add_argument("--coarse", default="auto", metavar="auto|1|2|4|8",
                         help="block size of the coarse start (1 = start at full resolution; default auto)")
     parser.add_argument("--max-steps", metavar="N", help="step limit (default 20000)")
@@ -129,6 +131,7 @@ class Settings:
     params: dict = field(default_factory=dict)
     detail: int = 1
     coarse: int | None = None  # None: chosen automatically
+    nodes: str = "lattice"
     max_steps: int | None = None
     slice: int | None = None
     label: str = "structure"
@@ -238,7 +241,12 @@ def parse_settings(args: argparse.Namespace) -> Settings:
     detail = _integer(args.detail, "--detail", minimum=1)
     if detail not in (1, 2, 4):
         raise UsageError(f"--detail {args.detail!r}: must be 1, 2 or 4")
+    nodes = str(args.nodes).strip().lower()
+    if nodes not in ("lattice", "scattered"):
+        raise UsageError(f"--nodes {args.nodes!r}: must be lattice or scattered")
     coarse = None
+    if nodes == "scattered" and str(args.coarse).strip().lower() not in ("auto", "1"):
+        raise UsageError(f"--coarse {args.coarse!r}: the coarse start is for lattice nodes (use --coarse 1)")
     if str(args.coarse).strip().lower() != "auto":
         coarse = _integer(args.coarse, "--coarse", minimum=1)
         if coarse not in (1, 2, 4, 8):
@@ -256,7 +264,7 @@ def parse_settings(args: argparse.Namespace) -> Settings:
         raise UsageError("--dicom-seg: needs --out DIR/NAME, not a .png file")
     return Settings(
         image=str(args.image), seeds=seeds, model=model, params=params, detail=detail, coarse=coarse,
-        max_steps=max_steps, slice=slice_index, label=label, out=out, png=png, dicom_seg=bool(args.dicom_seg),
+        nodes=nodes, max_steps=max_steps, slice=slice_index, label=label, out=out, png=png, dicom_seg=bool(args.dicom_seg),
         progress=bool(args.progress),
     )
 
@@ -422,6 +430,7 @@ def provenance(
         "settings": {k: (list(v) if isinstance(v, tuple) else v) for k, v in settings.params.items()},
         "detail": settings.detail,
         "coarse": "auto" if settings.coarse is None else settings.coarse,
+        "nodes": settings.nodes,
         "max_steps": settings.max_steps,
         "label": settings.label,
         "out": settings.out,
@@ -522,8 +531,8 @@ def _run(settings: Settings) -> int:
         bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr)
     try:
         seg = segment(image, list(settings.seeds), spacing=spacing, model=settings.model,
-                      max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse, progress=bar,
-                      **settings.params)
+                      max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse,
+                      nodes=settings.nodes, progress=bar, **settings.params)
     finally:
         if bar is not None:
             bar.close()
