@@ -916,6 +916,18 @@ class ScatteredNodeSet:
         return self._edge[slots].copy()
 
     # ------------------------------------------------------------ pixels
+    def _check_pixels(self, pixel_indices: ArrayLike) -> NDArray[np.int64]:
+        """Pixel indices as a (P, d) int64 array inside the image; ValueError naming the problem."""
+        pix = np.asarray(pixel_indices)
+        if pix.ndim != 2 or pix.shape[1] != self.dim:
+            raise ValueError(f"pixel_indices: expected shape (P, {self.dim}), got {pix.shape}")
+        if pix.size and not np.issubdtype(pix.dtype, np.integer):
+            raise ValueError(f"pixel_indices: expected integers, got dtype {pix.dtype}")
+        pix = pix.astype(np.int64)
+        if len(pix) and (np.any(pix < 0) or np.any(pix >= np.array(self.shape))):
+            raise ValueError(f"pixel_indices: indices must lie inside the image shape {self.shape}")
+        return pix
+
     def pixel_interpolation(self, ids: ArrayLike, pixel_indices: ArrayLike) -> sp.csr_matrix:
         """Sparse matrix taking φ at ``ids`` to φ at pixel centres.
 
@@ -935,14 +947,7 @@ class ScatteredNodeSet:
             are extrapolated: keep them within the band.
         """
         arr = self._check_ids(ids)
-        pix = np.asarray(pixel_indices)
-        if pix.ndim != 2 or pix.shape[1] != self.dim:
-            raise ValueError(f"pixel_indices: expected shape (P, {self.dim}), got {pix.shape}")
-        if pix.size and not np.issubdtype(pix.dtype, np.integer):
-            raise ValueError(f"pixel_indices: expected integers, got dtype {pix.dtype}")
-        pix = pix.astype(np.int64)
-        if len(pix) and (np.any(pix < 0) or np.any(pix >= np.array(self.shape))):
-            raise ValueError(f"pixel_indices: indices must lie inside the image shape {self.shape}")
+        pix = self._check_pixels(pixel_indices)
         k = self.stencil_size
         if len(arr) < k:
             raise ValueError(f"ids: {len(arr)} nodes are fewer than a stencil ({k})")
@@ -976,14 +981,7 @@ class ScatteredNodeSet:
             they are computed once per pixel and cached. A band can use the
             rows whose stencil lies entirely in it.
         """
-        pix = np.asarray(pixel_indices)
-        if pix.ndim != 2 or pix.shape[1] != self.dim:
-            raise ValueError(f"pixel_indices: expected shape (P, {self.dim}), got {pix.shape}")
-        if pix.size and not np.issubdtype(pix.dtype, np.integer):
-            raise ValueError(f"pixel_indices: expected integers, got dtype {pix.dtype}")
-        pix = pix.astype(np.int64)
-        if len(pix) and (np.any(pix < 0) or np.any(pix >= np.array(self.shape))):
-            raise ValueError(f"pixel_indices: indices must lie inside the image shape {self.shape}")
+        pix = self._check_pixels(pixel_indices)
         k = self.stencil_size
         if len(pix) == 0:
             return np.zeros((0, k), dtype=np.int64), np.zeros((0, k))
