@@ -61,6 +61,19 @@ def _undivided_sixth_differences(step: NDArray[np.floating]) -> tuple[NDArray[np
     return keys, summed
 
 
+def centred_derivatives(dim: int) -> tuple[list[tuple[int, ...]], list[str]]:
+    """Multi-indices and labels of the band's centred columns: ``d<i>``, then ``d<i><j>`` (i <= j)."""
+    unit = [tuple(int(a == k) for k in range(dim)) for a in range(dim)]
+    second, labels = [], []
+    for i, j in itertools.combinations_with_replacement(range(dim), 2):
+        alpha = [0] * dim
+        alpha[i] += 1
+        alpha[j] += 1
+        second.append(tuple(alpha))
+        labels.append(f"d{i}{j}")
+    return unit + second, [f"d{a}" for a in range(dim)] + labels
+
+
 def one_sided_offsets(dim: int, axis: int, direction: int, size: int) -> NDArray[np.int64]:
     """Offsets of a half ball (o_axis * direction >= 0) with about ``size`` nodes.
 
@@ -128,17 +141,10 @@ def _make_band_stencil(
     centred = symmetric_offsets(dim, stencil_size)
     n_side = 2 * monomial_count(dim, upwind_degree) + 1
     columns: list[tuple[str, NDArray[np.int64], NDArray[np.floating]]] = []
-    unit = [tuple(int(a == k) for k in range(dim)) for a in range(dim)]
-    second = []
-    labels_second = []
-    for i, j in itertools.combinations_with_replacement(range(dim), 2):
-        alpha = [0] * dim
-        alpha[i] += 1
-        alpha[j] += 1
-        second.append(tuple(alpha))
-        labels_second.append(f"d{i}{j}")
-    w_c = _weights_on(centred, h, unit + second, degree, phs)
-    for k, label in enumerate([f"d{a}" for a in range(dim)] + labels_second):
+    derivatives, labels = centred_derivatives(dim)
+    unit = derivatives[:dim]
+    w_c = _weights_on(centred, h, derivatives, degree, phs)
+    for k, label in enumerate(labels):
         columns.append((label, centred, w_c[:, k]))
     columns.append(("hv", *_undivided_sixth_differences(h)))
     for axis in range(dim):

@@ -63,6 +63,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 from scipy.spatial import cKDTree
 
+from engine.band_stencils import centred_derivatives
 from engine.image_features import ImageFeatures
 from engine.kernels import check_phs
 from engine.polynomials import (
@@ -314,10 +315,8 @@ def _as_int(value: object, name: str, low: int, high: int) -> int:
 
 def operator_labels(dim: int) -> tuple[str, ...]:
     """Column labels of the band operators: ``d<i>``, ``d<i><j>`` (i <= j), ``hv``, then ``b<i>``, ``f<i>``."""
-    first = [f"d{a}" for a in range(dim)]
-    second = [f"d{i}{j}" for i, j in itertools.combinations_with_replacement(range(dim), 2)]
     sides = [f"{tag}{a}" for a in range(dim) for tag in ("b", "f")]
-    return tuple(first + second + ["hv"] + sides)
+    return tuple(centred_derivatives(dim)[1] + ["hv"] + sides)
 
 
 def _local_weights(
@@ -806,15 +805,9 @@ class ScatteredNodeSet:
         nodes = self._union[ok, 0]
         x = self.points[nodes]
         centred = self._centred[ok]
-        unit = [tuple(int(a == b) for b in range(dim)) for a in range(dim)]
-        second = []
-        for i, j in itertools.combinations_with_replacement(range(dim), 2):
-            alpha = [0] * dim
-            alpha[i] += 1
-            alpha[j] += 1
-            second.append(tuple(alpha))
+        derivatives, _ = centred_derivatives(dim)
         # centred: gradient and Hessian from r^phs, (−Δ)^3 from r^7, one shared geometry
-        ops_c = [parse_operator(op, dim) for op in unit + second]
+        ops_c = [parse_operator(op, dim) for op in derivatives]
         hv_op = parse_operator(("hyperviscosity", HYPERVISCOSITY_POWER), dim)
         rel_c = self.points[centred] - x[:, None, :]
         hv_kernel = (max(self.phs, HYPERVISCOSITY_PHS), [hv_op])

@@ -11,7 +11,7 @@ from engine.coarse_start import block_mean, coarse_factor, coarse_seeds, to_coar
 from engine.front import Front
 from engine.metrics import dice
 from engine.segment import segment
-from tests.test_front_robustness import disk, supersampled
+from tests.test_front_robustness import narrow_gap_phantom
 
 
 @pytest.mark.parametrize("factor", [2, 4])
@@ -84,10 +84,7 @@ def test_keep_parts_drops_the_part_without_a_seed() -> None:
 def test_coarse_start_does_not_leak_through_a_narrow_gap() -> None:
     # The narrow-gap phantom of test_front_robustness at twice the size: the
     # 1.5 px gap is narrower than the 2 × 2 blocks of the coarse start.
-    shape = (200, 280)
-    a = supersampled(shape, disk((100, 90), 50.0))
-    b = supersampled(shape, disk((100, 191.5), 50.0))
-    image = 40.0 + 120.0 * np.clip(a + b, 0, 1) + np.random.default_rng(6).normal(0.0, 6.0, shape)
+    image, a = narrow_gap_phantom(scale=2)
     result = segment(image, [(100, 90, 16)], model="region")
     assert result.params["coarse"] == 2
     assert dice(result.mask, a > 0.5) >= 0.97

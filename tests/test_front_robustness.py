@@ -40,13 +40,19 @@ def test_fading_edge_does_not_leak() -> None:
     assert result.mask[:, 92:].sum() < 20  # nothing of the neighbour's far side
 
 
+def narrow_gap_phantom(scale: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """Two same-intensity disks (radius 25·scale px) 1.5 px apart, noise σ = 6; returns image and left disk's fraction."""
+    shape = (100 * scale, 140 * scale)
+    a = supersampled(shape, disk((50 * scale, 45 * scale), 25.0 * scale))
+    b = supersampled(shape, disk((50 * scale, 45 * scale + 50 * scale + 1.5), 25.0 * scale))
+    image = 40.0 + 120.0 * np.clip(a + b, 0, 1) + np.random.default_rng(6).normal(0.0, 6.0, shape)
+    return image, a
+
+
 @pytest.mark.slow
 def test_narrow_gap_to_a_same_intensity_neighbour() -> None:
     # Two touching-close disks of the same intensity, 1.5 px apart.
-    shape = (100, 140)
-    a = supersampled(shape, disk((50, 45), 25.0))
-    b = supersampled(shape, disk((50, 96.5), 25.0))
-    image = 40.0 + 120.0 * np.clip(a + b, 0, 1) + np.random.default_rng(6).normal(0.0, 6.0, shape)
+    image, a = narrow_gap_phantom()
     result = segment(image, [(50, 45, 8)], model="region")
     assert dice(result.mask, a > 0.5) >= 0.95
     assert result.mask[:, 75:].sum() == 0
