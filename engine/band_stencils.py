@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cached_property, lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -98,6 +98,11 @@ class BandStencil:
 
     def column(self, label: str) -> int:
         return self.labels.index(label)
+
+    @cached_property
+    def rows(self) -> NDArray[np.floating]:
+        """The weights transposed, (K, n_u) and contiguous: ``rows @ φ[gather]`` has one row per operator."""
+        return np.ascontiguousarray(self.weights.T)
 
 
 def _weights_on(offsets: NDArray[np.int64], step: NDArray[np.floating], ops: list, degree: int,

@@ -131,14 +131,14 @@ def closest_points(
         value[ia], grad[ia], hess[ia] = interp.evaluate(y[ia], coeffs)
     still = np.flatnonzero(~converged)
     if len(still):
-        y[still] = _chopp_fallback(interp, coeffs, x[still], y[still], trust=trust)
+        y[still] = _chopp_fallback(interp, coeffs, x[still], y[still], trust=trust, tol=tol)
     dist = np.sqrt(np.einsum("qd,qd->q", y - x, y - x))
     return ClosestPoints(y, dist, converged, iterations)
 
 
 def _chopp_fallback(
     interp: LocalInterpolant, coeffs: NDArray[np.floating], x: NDArray[np.floating],
-    y: NDArray[np.floating], *, trust: float, iterations: int = 30
+    y: NDArray[np.floating], *, trust: float, tol: float, iterations: int = 30
 ) -> NDArray[np.floating]:
     """Chopp's alternating projection: onto the zero set, then orthogonal to ∇φ toward x.
 
@@ -147,21 +147,31 @@ def _chopp_fallback(
     where |D| exceeds the radius of curvature (far points, medial axis). It is
     therefore scaled by 1 / (1 + |D| ‖H‖ / |∇φ|) (‖H‖/|∇φ| bounds every
     curvature), which makes it a contraction toward the nearest minimum of
-    the distance, and both steps are limited to ``trust``.
+    the distance, and both steps are limited to ``trust``. A point stops
+    iterating once it moves less than ``tol``; three final projections onto
+    the zero set follow for every point.
     """
     y = y.copy()
-    for k in range(iterations + 3):
-        value, grad, hess = interp.evaluate(y, coeffs, order=2 if k < iterations else 1)
+    moving = np.arange(len(y))
+    for _ in range(iterations):
+        if len(moving) == 0:
+            break
+        ym, xm = y[moving], x[moving]
+        value, grad, hess = interp.evaluate(ym, coeffs)
         g2 = np.maximum(np.einsum("qd,qd->q", grad, grad), 1e-300)
-        y0 = y + _limit(-(value / g2)[:, None] * grad, trust)
-        if k >= iterations:  # final projections onto the zero set
-            y = y0
-            continue
-        v = x - y0
+        y0 = ym + _limit(-(value / g2)[:, None] * grad, trust)
+        v = xm - y0
         along = np.einsum("qd,qd->q", v, grad)
         d2 = v - (along / g2)[:, None] * grad
         bound = np.linalg.norm(hess, ord=2, axis=(1, 2)) / g2
-        y = y0 + _limit(d2 / (1.0 + np.abs(along) * bound)[:, None], trust)
+        new = y0 + _limit(d2 / (1.0 + np.abs(along) * bound)[:, None], trust)
+        y[moving] = new
+        moved = np.sqrt(np.einsum("qd,qd->q", new - ym, new - ym))
+        moving = moving[moved >= tol]
+    for _ in range(3):  # final projections onto the zero set
+        value, grad, _ = interp.evaluate(y, coeffs, order=1)
+        g2 = np.maximum(np.einsum("qd,qd->q", grad, grad), 1e-300)
+        y = y + _limit(-(value / g2)[:, None] * grad, trust)
     return y
 
 

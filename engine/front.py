@@ -57,6 +57,7 @@ import time as _time
 from collections import deque
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -113,8 +114,22 @@ RIM_PIXELS = 1.5
 #: Steps between refreshes of the layer next to the front and of the region
 #: model's local statistics.
 STATISTICS_EVERY = 10
+#: The layer is re-picked (every STATISTICS_EVERY steps) only once the front
+#: has moved this many node spacings at some layer node since it was picked
+#: (the layer, |φ| <= 1.2 spacings, still straddles the front), and at least
+#: every LAYER_IDLE_STEPS steps.
+LAYER_DRIFT = 0.25
+LAYER_IDLE_STEPS = 100
 #: Width of the ring of outside pixels, beyond the rim, of the local statistics.
 RING_PIXELS = 3.0
+#: A local outside mean on the other side of the inside mean than the global
+#: outside mean counts only if it differs from the inside mean by at least
+#: this fraction of the global contrast (besides three noise deviations). On
+#: a noise-free image a ring that still lies mostly in the structure differs
+#: from the inside mean by a trace, on that side once the inside mean has
+#: taken in some partial-volume pixels; taken as the outside it would make
+#: the whole uniform structure look like outside and turn the front back.
+LOCAL_CONTRAST = 0.1
 #: Difference between the centred and the upwind |∇φ| beyond which a node is
 #: taken to sit on a kink of φ, where curvature motion uses the upwind value.
 KINK_GRADIENT = 0.1
@@ -154,7 +169,7 @@ class FrontSnapshot:
     barrier: NDArray[np.bool_] | None
     local_out: NDArray[np.floating] | None = None
     since_reinit: int = 0
-    layer: tuple[NDArray[np.int64], ...] = ()  # layer, source, edge_source of the last rebuild
+    layer: tuple[NDArray, ...] = ()  # layer, source, edge_source and layer_phi of the last refresh
 
     @property
     def nbytes(self) -> int:
@@ -169,7 +184,7 @@ class _Band:
     positions: NDArray[np.floating]  # mm
     pixels: NDArray[np.floating]  # pixel coordinates
     lookup: LatticeLookup
-    gather: NDArray[np.int64]  # (A, n_u) stencil nodes of the active nodes
+    gather: NDArray[np.int64]  # stencil nodes of the active nodes: (n_u, A) on a lattice, (A, W) scattered
     active: NDArray[np.int64]  # nodes evolved (complete stencil)
     edge_nodes: NDArray[np.int64]  # nodes whose stencil is incomplete
     layer: NDArray[np.int64]  # active nodes next to the front (indices into `active`)
@@ -179,6 +194,7 @@ class _Band:
     pixel_index: tuple[NDArray[np.int64], ...]  # their pixel indices
     frozen: NDArray[np.bool_]  # per node: pinned
     barrier: NDArray[np.bool_]  # per node: inside another label's locked outline
+    layer_phi: NDArray[np.floating] | None = None  # φ at the layer nodes when the layer was picked
     local_in: NDArray[np.floating] | None = None
     local_out: NDArray[np.floating] | None = None
     interpolant: LocalInterpolant | None = None
@@ -253,8 +269,6 @@ class Front:
                 if layout.get(name) is not None:
                     raise ValueError(f"{name} applies to nodes='scattered' only")
         else:
-            if img.ndim != 2:
-                raise ValueError("scattered nodes are 2-D for now; use nodes='lattice' for 3-D images")
             if detail != 1:
                 raise ValueError("detail applies to nodes='lattice'; scattered nodes take finest and coarsest (mm)")
         fp = FrontParams(model=model, **params)
@@ -651,7 +665,7 @@ class Front:
         if len(active) == 0:
             raise ValueError("the band has no node with a complete stencil; the front is too small for "
                              "this detail and stencil size")
-        gather = table[active]
+        gather = np.ascontiguousarray(table[active].T)  # one row per stencil offset
         edge_nodes = np.flatnonzero(~complete)
         layer, source, edge_source = self._front_layer(indices, phi, active, edge_nodes, lookup)
         on_pixel = np.all(indices % self.detail == 0, axis=1)
@@ -666,6 +680,7 @@ class Front:
         self._phi = phi
         self._phi_at_rebuild = np.abs(phi)
         self._coeffs = None
+        self._band.layer_phi = phi[active[layer]]
         self._sync_inside()
         if self.params.model == "region":
             self._update_local_statistics()
@@ -724,6 +739,7 @@ class Front:
         self._phi = phi
         self._phi_at_rebuild = np.abs(phi)
         self._coeffs = None
+        self._band.layer_phi = phi[active[layer]]
         self._sync_inside()
         if self.params.model == "region":
             self._update_local_statistics()
@@ -797,9 +813,11 @@ class Front:
         RING_PIXELS more (so the tissue that actually borders the front
         outweighs tissues further away). Where the local outside is still the same tissue
         (within three noise standard deviations of the inside mean, as while
-        the front grows from a seed) or there is too little of it, the
-        global outside mean is used (Chan & Vese 2001). Refreshed at every
-        band rebuild and every ``STATISTICS_EVERY`` steps. Computed on the
+        the front grows from a seed; on the far side of the inside mean from
+        the global outside mean, within LOCAL_CONTRAST of the global
+        contrast) or there is too little of it, the global outside mean is
+        used (Chan & Vese 2001). Refreshed at every band rebuild and with the
+        layer (``LAYER_DRIFT``, ``LAYER_IDLE_STEPS``). Computed on the
         bounding box of the front plus three radii at every band rebuild;
         between rebuilds the front moves less than the statistics' radius.
         """
@@ -823,74 +841,70 @@ class Front:
         local = (px - lo).T
         weight = ndimage.map_coordinates(w_out, local, order=1, mode="nearest")
         mean = ndimage.map_coordinates(s_out, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
-        distinct = (weight > 0.05) & (np.abs(mean - c_in) > 3.0 * noise)
+        gap = mean - c_in
+        far_side = np.sign(gap) != np.sign(c_out - c_in)
+        need = np.where(far_side, max(3.0 * noise, LOCAL_CONTRAST * abs(c_in - c_out)), 3.0 * noise)
+        distinct = (weight > 0.05) & (np.abs(gap) > need)
         b.local_in = np.full(len(px), c_in)
         b.local_out = np.where(distinct, mean, c_out)
 
     # --------------------------------------------------------------- stepping
-    def _derivatives(self, phi: NDArray[np.floating]) -> tuple[NDArray[np.floating], ...]:
-        """Centred gradient (A, d), Hessian (A, d, d), one-sided derivatives (A, d) ×2 and (−Δ)³φ at active nodes."""
+    def _derivatives(self, phi: NDArray[np.floating]) -> NDArray[np.floating]:
+        """Every band operator at the active nodes, one row each (K, A); rows as in :func:`_derivative_rows`.
+
+        Row layout keeps each derivative contiguous for the element-wise work
+        that follows (a column per operator would be strided).
+        """
         b = self._band
-        d = self.ndim
         if self.node_set is None:
-            derivs = phi[b.gather] @ self.stencil.weights  # (A, K)
-        else:  # per-node weights, same columns
-            derivs = np.matmul(phi[b.gather][:, None, :], b.weights)[:, 0, :]
-        grad = derivs[:, :d]
-        hess = np.empty((len(grad), d, d))
-        k = d
-        for i in range(d):
-            for j in range(i, d):
-                hess[:, i, j] = hess[:, j, i] = derivs[:, k]
-                k += 1
-        bih = derivs[:, k]
-        back = derivs[:, k + 1:k + 1 + 2 * d:2]
-        fwd = derivs[:, k + 2:k + 2 + 2 * d:2]
-        return grad, hess, back, fwd, bih
+            return self.stencil.rows @ np.take(phi, b.gather)
+        local = phi[b.gather]  # per-node weights, same operators
+        return np.ascontiguousarray(np.matmul(local[:, None, :], b.weights)[:, 0, :].T)
 
     def _front_curvature(self, phi_act: NDArray[np.floating], grad: NDArray[np.floating],
                          hess: NDArray[np.floating]) -> NDArray[np.floating]:
-        """Curvature of the front at each active node's closest point (1/mm).
+        """Curvature of the front at each layer node's closest point (1/mm); ``grad`` (d, L), ``hess`` (d, d, L).
 
         For a signed distance, the level set through x at distance s from the
         front has principal curvatures k_i(x) = k_i(y) / (1 + s k_i(y)), so
         k_i(y) = k_i(x) / (1 − s k_i(x)); summing them gives the extension of
         the front's curvature along the normals.
         """
-        g2 = np.maximum(np.einsum("ni,ni->n", grad, grad), 1e-12)
+        g2 = np.maximum(np.sum(grad * grad, axis=0), 1e-12)
         gnorm = np.sqrt(g2)
         s = phi_act / gnorm
         kmax = 1.0 / self.h
         if self.ndim == 2:
-            trace = hess[:, 0, 0] + hess[:, 1, 1]
-            ghg = np.einsum("ni,nij,nj->n", grad, hess, grad)
-            k_x = [np.clip((g2 * trace - ghg) / g2**1.5, -kmax, kmax)]
+            gx, gy = grad
+            trace = hess[0, 0] + hess[1, 1]
+            ghg = gx * gx * hess[0, 0] + 2.0 * gx * gy * hess[0, 1] + gy * gy * hess[1, 1]
+            k_x = [_clip((g2 * trace - ghg) / (g2 * gnorm), kmax)]
         else:
-            n = grad / gnorm[:, None]
+            n = (grad / gnorm).T
             proj = np.eye(3)[None] - n[:, :, None] * n[:, None, :]
-            shape_op = proj @ hess @ proj / gnorm[:, None, None]
+            shape_op = proj @ np.moveaxis(hess, 2, 0) @ proj / gnorm[:, None, None]
             ev = np.linalg.eigvalsh(shape_op)
             drop = np.argmin(np.abs(ev), axis=1)
             keep = np.ones_like(ev, dtype=bool)
             keep[np.arange(len(ev)), drop] = False
             ev = ev[keep].reshape(len(ev), 2)
-            k_x = [np.clip(ev[:, 0], -kmax, kmax), np.clip(ev[:, 1], -kmax, kmax)]
+            k_x = [_clip(ev[:, 0], kmax), _clip(ev[:, 1], kmax)]
         total = np.zeros(len(phi_act))
-        gain = np.ones(len(phi_act))
+        denom_min = np.full(len(phi_act), np.inf)
         for k in k_x:
             denom = np.maximum(1.0 - s * k, 0.25)
-            total += np.clip(k / denom, -kmax, kmax)
-            gain = np.maximum(gain, 1.0 / denom**2)
+            total += _clip(k / denom, kmax)
+            np.minimum(denom_min, denom, out=denom_min)
         # d k(y) / d k(x) = 1 / (1 − s k)²: the extension amplifies the
         # diffusion-like curvature term; the time step must follow.
-        self._curvature_gain = float(np.max(gain)) if len(gain) else 1.0
+        self._curvature_gain = max(1.0, 1.0 / float(np.min(denom_min)) ** 2) if len(total) else 1.0
         self._last_kappa_max = float(np.max(np.abs(total))) if len(total) else 0.0
         return total
 
     def _speeds(self, phi: NDArray[np.floating], grad: NDArray[np.floating]) -> NodeSpeeds:
         """Speeds at the layer nodes, with image features taken at their closest points.
 
-        ``grad`` is the centred gradient at the layer nodes. For image-driven
+        ``grad`` (d, L) is the centred gradient at the layer nodes. For image-driven
         models the normal speed is also taken half a node spacing inside and
         outside the closest point; its slope along the normal (``slope``) lets
         the step treat the speed's pull toward its zero linearly implicitly.
@@ -902,8 +916,8 @@ class Front:
         if not names:
             return node_speeds(self.params, intensity=None, edge=None, edge_gradient=None, normal=None,
                                c_in=0.0, c_out=0.0, sigma_mm=self.features.sigma_mm, count=count)
-        g2 = np.maximum(np.einsum("ni,ni->n", grad, grad), 1e-12)
-        normal = grad / np.sqrt(g2)[:, None]
+        g2 = np.maximum(np.sum(grad * grad, axis=0), 1e-12)
+        normal = (grad / np.sqrt(g2)).T
         closest_mm = b.positions[act] - (phi[act] / np.sqrt(g2))[:, None] * normal
         if self.params.model == "region" and b.local_in is not None:
             c_in: NDArray[np.floating] | float = self.region_means()[0]
@@ -931,34 +945,47 @@ class Front:
         a = all3.curvature[:count] if np.ndim(all3.curvature) else all3.curvature
         return NodeSpeeds(v[0], a, slope=(v[2] - v[1]) / (2.0 * half))
 
-    def _rate(self, phi: NDArray[np.floating], speeds: NodeSpeeds,
-              derivs: tuple[NDArray[np.floating], ...] | None = None) -> NDArray[np.floating]:
+    def _stage_speeds(self, speeds: NodeSpeeds) -> _StageSpeeds:
+        """The layer's speeds extended to every active node (the extension velocities of one step)."""
+        b = self._band
+        normal = speeds.normal[b.source] if np.any(speeds.normal != 0) else None
+        a = speeds.curvature
+        curving = bool(np.any(np.asarray(a) != 0))
+        a_all = a[b.source] if np.ndim(a) else a
+        frozen = np.flatnonzero(b.frozen[b.active])
+        barrier = np.flatnonzero(b.barrier[b.active])
+        return _StageSpeeds(normal, a if curving else None, a_all * self._damping, frozen, barrier)
+
+    def _rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
+              derivs: NDArray[np.floating] | None = None) -> NDArray[np.floating]:
         """φ_t at the active nodes (extension velocities from the front's layer)."""
         b = self._band
-        grad, hess, back, fwd, bih = derivs if derivs is not None else self._derivatives(phi)
-        layer = b.layer
-        v = speeds.normal[b.source]
-        # Godunov Hamiltonian (Osher & Fedkiw 2003, eq. 6.3-6.4).
-        rate = -v * _godunov_norm(v, back, fwd)
-        a = speeds.curvature
-        if np.any(np.asarray(a) != 0):
-            kappa = self._front_curvature(phi[b.active[layer]], grad[layer], hess[layer])
-            a_all = a[b.source] if np.ndim(a) else a
-            motion = a_all * kappa[b.source]  # curvature part of the normal speed (inward for κ > 0)
+        d = self.ndim
+        rows = derivs if derivs is not None else self._derivatives(phi)
+        where = _derivative_rows(d)
+        grad, back, fwd = rows[:d], rows[where.back], rows[where.fwd]
+        if speeds.normal is not None:
+            # Godunov Hamiltonian (Osher & Fedkiw 2003, eq. 6.3-6.4).
+            rate = -speeds.normal * _godunov_norm(speeds.normal, back, fwd)
+        else:
+            rate = np.zeros(rows.shape[1])
+        if speeds.curvature is not None:
+            layer = rows[:, b.layer]
+            kappa = self._front_curvature(phi[b.active[b.layer]], layer[:d], layer[where.hess])
+            motion = (speeds.curvature * kappa)[b.source]  # curvature part of the normal speed (inward for κ > 0)
             # Centred |∇φ| is accurate where φ is smooth, but on a kink of the
             # distance function (the midline of a part that is collapsing) it
             # tends to 0 and the part would linger there; the upwind |∇φ| of
             # the same motion is the viscosity solution's (Osher & Fedkiw 2003,
             # §6.4). Where the two differ by more than KINK_GRADIENT, take it.
-            gnorm = np.sqrt(np.einsum("ni,ni->n", grad, grad))
+            gnorm = np.sqrt(np.sum(grad * grad, axis=0))
             upwind = _godunov_norm(-motion, back, fwd)
             gnorm = np.where(np.abs(gnorm - upwind) > KINK_GRADIENT, upwind, gnorm)
-            rate += motion * gnorm - a_all * self._damping * bih
-        frozen = b.frozen[b.active]
-        barrier = b.barrier[b.active]
-        rate[frozen] = 0.0
-        if np.any(barrier):
-            rate[barrier] = np.maximum(rate[barrier], 0.0)
+            rate += motion * gnorm - speeds.damping * rows[where.hv]
+        if len(speeds.frozen):
+            rate[speeds.frozen] = 0.0
+        if len(speeds.barrier):
+            rate[speeds.barrier] = np.maximum(rate[speeds.barrier], 0.0)
         return rate
 
     _curvature_gain: float = 1.0
@@ -985,8 +1012,8 @@ class Front:
             stages = rkl2_stages(dt, 2.0 / radius)
         return dt, stages
 
-    def _full_rate(self, phi: NDArray[np.floating], speeds: NodeSpeeds,
-                   derivs: tuple[NDArray[np.floating], ...] | None = None) -> NDArray[np.floating]:
+    def _full_rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
+                   derivs: NDArray[np.floating] | None = None) -> NDArray[np.floating]:
         """φ_t at every band node; edge nodes take the rate of the layer node nearest their closest front point."""
         b = self._band
         rate = self._rate(phi, speeds, derivs)
@@ -1011,9 +1038,9 @@ class Front:
             b = self._band
             phi0 = self._phi
             derivs = self._derivatives(phi0)
-            speeds = self._speeds(phi0, derivs[0][b.layer])
+            speeds = self._speeds(phi0, derivs[:self.ndim, b.layer])
             self._last_kappa_max = 0.0
-            r0 = self._full_rate(phi0, speeds, derivs)  # also measures the curvature gain
+            r0 = self._full_rate(phi0, self._stage_speeds(speeds), derivs)  # also measures the curvature gain
             kappa_max = self._last_kappa_max
             dt, stages = self._time_step(speeds, kappa_max)
             if dt_max is not None and dt_max < dt:
@@ -1021,8 +1048,14 @@ class Front:
                 if np.any(np.asarray(speeds.curvature) != 0):
                     radius = float(np.max(speeds.curvature)) * self._spectral_radius * self._curvature_gain
                     stages = rkl2_stages(dt, 2.0 / radius)
-            speeds = speeds.relaxed(dt)
-            new = rkl2(phi0, lambda p: self._full_rate(p, speeds), dt, stages, first_rate=r0)
+            factor = speeds.relax_factor(dt)
+            if factor is not None:
+                # every term of the rate scales with the (positive) factor that relaxes
+                # the speeds, so the first rate follows without a second evaluation
+                r0[b.active] *= factor[b.source]
+                r0[b.edge_nodes] *= factor[b.edge_source]
+            stage_speeds = self._stage_speeds(speeds.relaxed(dt))
+            new = rkl2(phi0, lambda p: self._full_rate(p, stage_speeds), dt, stages, first_rate=r0)
             # RKL2 combines stages with some negative weights, so hold pins and
             # barriers on the result, not only on the rates.
             if np.any(b.frozen):
@@ -1038,7 +1071,7 @@ class Front:
             self._sync_inside()
             if np.min(new) >= 0.0 or np.max(new) < 0.0:  # no zero crossing left
                 self._vanish()
-            elif self.steps % STATISTICS_EVERY == 0:
+            elif self.steps % STATISTICS_EVERY == 0 and self._layer_is_stale():
                 self._refresh_layer()
             self.timings["step"] += _time.perf_counter() - t0
             if not self._vanished and self._needs_rebuild():
@@ -1046,6 +1079,14 @@ class Front:
                     self.rebuild()
                 except FrontVanished:
                     self._vanish()
+
+    def _layer_is_stale(self) -> bool:
+        """True once the front moved LAYER_DRIFT node spacings at some layer node, or every LAYER_IDLE_STEPS steps."""
+        b = self._band
+        if self.steps % LAYER_IDLE_STEPS == 0 or b.layer_phi is None:
+            return True
+        moved = np.abs(self._phi[b.active[b.layer]] - b.layer_phi)
+        return bool(np.max(moved) > LAYER_DRIFT * self.h) if len(moved) else True
 
     def _refresh_layer(self) -> None:
         """Re-pick the layer next to the front (and the region statistics) as the front moves."""
@@ -1056,6 +1097,7 @@ class Front:
         except FrontVanished:
             self._vanish()
             return
+        b.layer_phi = self._phi[b.active[b.layer]]
         if self.params.model == "region":
             self._update_local_statistics()
 
@@ -1115,8 +1157,8 @@ class Front:
         """
         b = self._band
         if reinitialise is None:
-            grad = self._derivatives(self._phi)[0][b.layer]
-            dev = np.abs(np.sqrt(np.einsum("ni,ni->n", grad, grad)) - 1.0)
+            grad = self._derivatives(self._phi)[:self.ndim, b.layer]
+            dev = np.abs(np.sqrt(np.sum(grad * grad, axis=0)) - 1.0)
             drift = float(np.percentile(dev, 90)) if len(dev) else 1.0
             reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
         starts = self._crossings(b.indices, self._phi, b.lookup)
@@ -1511,7 +1553,7 @@ class Front:
                              np.packbits(self._inside.reshape(-1)), tuple(self._sums), self.time, self.steps,
                              self.converged, tuple(self._motion), self.params, self._pins, self._barrier,
                              None if b.local_out is None else b.local_out.copy(), self._since_reinit,
-                             (b.layer.copy(), b.source.copy(), b.edge_source.copy()))
+                             (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()))
 
     def restore(self, snap: FrontSnapshot) -> None:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
@@ -1533,7 +1575,8 @@ class Front:
         self._phi_at_rebuild = snap.phi_at_rebuild.copy()
         # the layer and statistics of the last rebuild, not recomputed from the present φ
         if snap.layer:
-            self._band.layer, self._band.source, self._band.edge_source = (a.copy() for a in snap.layer)
+            (self._band.layer, self._band.source, self._band.edge_source,
+             self._band.layer_phi) = (a.copy() for a in snap.layer)
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
         self._since_reinit = snap.since_reinit
@@ -1543,18 +1586,56 @@ class Front:
 
 
 # ---------------------------------------------------------------- helpers
+def _clip(x: NDArray[np.floating], bound: float) -> NDArray[np.floating]:
+    """x limited to [−bound, bound] (np.clip without its per-call overhead, which shows at every RKL2 stage)."""
+    return np.minimum(np.maximum(x, -bound, out=x), bound, out=x)
+
+
 def _godunov_norm(speed: NDArray[np.floating], back: NDArray[np.floating],
                   fwd: NDArray[np.floating]) -> NDArray[np.floating]:
     """Upwind |∇φ| for motion with normal ``speed`` (Godunov; Osher & Fedkiw 2003, eq. 6.3-6.4).
 
-    With s = sign(speed): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0).
+    With s = sign(speed): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0); ``back``, ``fwd`` are (d, A).
     """
-    sign = np.where(speed > 0, 1.0, -1.0)[:, None]
-    up = np.maximum(np.maximum(sign * back, -sign * fwd), 0.0)
-    total = up[:, 0] * up[:, 0]
-    for i in range(1, up.shape[1]):
-        total = total + up[:, i] * up[:, i]
+    outward = speed > 0
+    total = np.zeros(len(speed))
+    for b_i, f_i in zip(back, fwd):
+        up = np.where(outward, np.maximum(b_i, -f_i), np.maximum(-b_i, f_i))
+        np.maximum(up, 0.0, out=up)
+        total += up * up
     return np.sqrt(total)
+
+
+@dataclass(frozen=True)
+class _DerivativeRows:
+    hess: NDArray[np.int64]  # (d, d) row of each second derivative
+    hv: int  # row of the hyperviscosity operator
+    back: slice  # rows of the backward one-sided first derivatives
+    fwd: slice  # rows of the forward ones
+
+
+@lru_cache(maxsize=4)
+def _derivative_rows(dim: int) -> _DerivativeRows:
+    """Where each operator sits in :meth:`Front._derivatives` (the columns of ``band_stencils.centred_derivatives``
+    followed by ``hv`` and the one-sided pairs b0, f0, b1, f1, …)."""
+    hess = np.empty((dim, dim), dtype=np.int64)
+    k = dim
+    for i in range(dim):
+        for j in range(i, dim):
+            hess[i, j] = hess[j, i] = k
+            k += 1
+    return _DerivativeRows(hess, k, slice(k + 1, k + 1 + 2 * dim, 2), slice(k + 2, k + 2 + 2 * dim, 2))
+
+
+@dataclass(frozen=True)
+class _StageSpeeds:
+    """One step's speeds as every RKL2 stage uses them (extended from the layer to the active nodes)."""
+
+    normal: NDArray[np.floating] | None  # V per active node (None: no normal motion)
+    curvature: NDArray[np.floating] | float | None  # a per layer node or one value (None: no curvature motion)
+    damping: NDArray[np.floating] | float  # a·γ per active node: the hyperviscosity weight
+    frozen: NDArray[np.int64]  # active positions that are pinned
+    barrier: NDArray[np.int64]  # active positions inside a barrier
 
 
 def _node_options(params: FrontParams, dim: int) -> tuple[int, int, int]:

@@ -9,9 +9,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from engine.coarse_start import block_mean, coarse_factor, coarse_seeds, upsample_phi
+from engine.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, MIN_COARSE_SEED, block_mean, coarse_factor,
+                                 coarse_seeds, upsample_phi)
 from engine.front import Front, validate_seeds
 from engine.front_geometry import seed_disks
+from engine.speeds import FrontParams
 
 
 @dataclass(frozen=True)
@@ -53,8 +55,11 @@ def segment(
     detail : lattice nodes per pixel along each axis (1, 2 or 4).
     coarse : block size of a coarse start (1 = none; default: chosen from the image and seed sizes by
         :func:`engine.coarse_start.coarse_factor`). The front first grows on the image averaged over
-        blocks of this size, then continues at full resolution from that outline. Lattice nodes only:
-        with ``nodes="scattered"`` the default is 1 and any other value is refused.
+        blocks of this size, then continues at full resolution from that outline. By default, seeds
+        too small for the block size the image allows first grow at full resolution until a disk of
+        ``MIN_COARSE_SEED`` blocks fits around each seed centre (a small structure converges there,
+        without a coarse start). Lattice nodes only: with ``nodes="scattered"`` the default is 1 and
+        any other value is refused.
     nodes : ``"lattice"`` or ``"scattered"`` (2-D; edge-adaptive scattered nodes, see
         :meth:`engine.front.Front.from_function`; ``finest`` and ``coarsest`` spacings in mm go in
         ``params``).
@@ -95,23 +100,41 @@ def segment(
     if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
         raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
     coarse_steps, coarse_time, coarse_s = 0, 0.0, 0.0
+    layout = {} if nodes == "lattice" else {"nodes": nodes}
+    front: Front | None = None
+    if coarse is None and nodes == "lattice" and coarse_factor(img.shape, None, model) > factor:
+        # seeds too small for the block size the image allows: grow them at full resolution first
+        target = coarse_factor(img.shape, None, model)
+        front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **params)
+        if _grow_until(front, seeds_arr, MIN_COARSE_SEED * target * float(np.max(sp)), budget, progress):
+            factor = target
     if factor > 1:
         if img.ndim != 2:
             raise ValueError("coarse start is for 2-D images; use coarse=1")
-        first = Front.from_seeds(block_mean(img, factor), coarse_seeds(seeds_arr, factor), spacing=sp * factor,
-                                 model=model, detail=1, **params)
-        first.run(max_steps=budget, progress=progress)
+        small = block_mean(img, factor)
+        small_seeds = coarse_seeds(seeds_arr, factor)
+        tol = params.get("convergence_tol", FrontParams().convergence_tol)
+        coarse_params = dict(params, convergence_tol=COARSE_TOL_FACTOR * float(tol))  # type: ignore[arg-type]
+        if front is None:
+            first = Front.from_seeds(small, small_seeds, spacing=sp * factor, model=model, detail=1,
+                                     **coarse_params)
+        else:  # continue from the grown seeds
+            first = Front.from_pixel_phi(small, block_mean(front.pixel_phi(), factor), spacing=sp * factor,
+                                         model=model, detail=1, window_from=seed_disks(small.shape, small_seeds),
+                                         **coarse_params)
+            first.time, first.steps = front.time, front.steps
+        first.run(max_steps=min(max(budget - first.steps, 0), COARSE_MAX_STEPS), progress=progress)
         coarse_steps, coarse_time = first.steps, first.time
         coarse_s = time.perf_counter() - t0
         if first.vanished or first.mask().all():
             factor = 1  # nothing to refine: start again at full resolution
+            front = None
     if factor > 1:
         start = upsample_phi(first.pixel_phi(), factor, sp)
         front = Front.from_function(start, img.shape, image=img, spacing=sp, model=model, detail=detail,
                                     signed_distance=True, window_from=seed_disks(img.shape, seeds_arr), **params)
         front.time, front.steps = coarse_time, coarse_steps
-    else:
-        layout = {} if nodes == "lattice" else {"nodes": nodes}
+    elif front is None:
         front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **layout, **params)
     t1 = time.perf_counter()
     front.run(max_steps=max(budget - front.steps, 0), progress=progress)
@@ -129,3 +152,22 @@ def segment(
     if nodes == "scattered":
         used["nodes"] = nodes
     return Segmentation(mask, contours, front.steps, front.converged, used, timings, front.time, area)
+
+
+#: Steps between checks of how far grown seeds have come (before a coarse start).
+GROW_CHECK_STEPS = 10
+
+
+def _grow_until(front: Front, seeds: NDArray[np.floating], radius_mm: float, budget: int,
+                progress: Callable[[int, float], None] | None) -> bool:
+    """Step ``front`` until a disk of ``radius_mm`` fits inside it around every seed centre.
+
+    Returns False when it converged, vanished or used up ``budget`` first
+    (the structure is small; the front then carries on at full resolution).
+    """
+    centres = seeds[:, :-1]
+    while front.steps < budget and not front.converged and not front.vanished:
+        front.run(max_steps=min(GROW_CHECK_STEPS, budget - front.steps), progress=progress)
+        if not front.vanished and np.min(-front.phi_at(centres)) >= radius_mm:
+            return True
+    return False

@@ -162,10 +162,16 @@ class NodeSpeeds:
         1 + dt |s|: unchanged where V is flat, never overshooting where it is
         steep, and the same resting place V = a κ.
         """
-        if self.slope is None:
+        factor = self.relax_factor(dt)
+        if factor is None:
             return self
-        factor = 1.0 / (1.0 + dt * np.maximum(-self.slope, 0.0))
         return replace(self, normal=self.normal * factor, curvature=self.curvature * factor)
+
+    def relax_factor(self, dt: float) -> NDArray[np.floating] | None:
+        """The factor 1 / (1 + dt·max(−slope, 0)) of :meth:`relaxed` (None without a slope)."""
+        if self.slope is None:
+            return None
+        return 1.0 / (1.0 + dt * np.maximum(-self.slope, 0.0))
 
 
 def clamp_unit(x: NDArray[np.floating]) -> NDArray[np.floating]:

@@ -91,3 +91,48 @@ def test_coarse_start_does_not_leak_through_a_narrow_gap() -> None:
     assert result.mask[:, 141:].sum() == 0
     full = segment(image, [(100, 90, 16)], model="region", coarse=1)
     assert dice(result.mask, full.mask) >= 0.995
+
+
+def _noisy_disks(shape: tuple[int, int], disks: list[tuple[float, float, float]], seed: int) -> np.ndarray:
+    """Dark disks (0.2) on 0.6 with exact area fractions at the rim (8 × 8 subsamples) and noise σ = 0.05."""
+    sub = (np.arange(8) + 0.5) / 8 - 0.5
+    rr, cc = np.indices(shape, dtype=float)
+    fraction = np.zeros(shape)
+    for dr in sub:
+        for dc in sub:
+            inside = np.zeros(shape, dtype=bool)
+            for r0, c0, radius in disks:
+                inside |= np.hypot(rr + dr - r0, cc + dc - c0) < radius
+            fraction += inside
+    fraction /= 64.0
+    return 0.6 - 0.4 * fraction + np.random.default_rng(seed).normal(0.0, 0.05, shape)
+
+
+@pytest.mark.slow
+def test_a_small_seed_grows_at_full_resolution_then_goes_coarse() -> None:
+    # A 3 px click on a 256² image (too small for the 2 × 2 blocks the image
+    # allows): it grows at full resolution until a disk of 4 blocks fits
+    # around it, then the coarse start takes over; the result agrees with a
+    # run at full resolution throughout.
+    image = _noisy_disks((256, 256), [(126.3, 131.7, 70.0)], seed=3)
+    rr, cc = np.indices(image.shape)
+    truth = np.hypot(rr - 126.3, cc - 131.7) < 70.0
+    seed = (128.0, 128.0, 3.0)
+    assert coarse_factor(image.shape, np.array([seed]), "region") == 1
+    result = segment(image, [seed], model="region")
+    assert result.params["coarse"] == 2
+    assert result.converged
+    full = segment(image, [seed], model="region", coarse=1)
+    assert dice(result.mask, full.mask) >= 0.995
+    assert dice(result.mask, truth) >= 0.97
+
+
+def test_a_small_structure_stays_at_full_resolution() -> None:
+    # A structure smaller than the coarse start needs (radius 6 px, 4 blocks
+    # of 2 px would be 8) converges while it grows: no coarse start.
+    image = _noisy_disks((256, 256), [(100.4, 140.6, 6.0)], seed=4)
+    result = segment(image, [(100.0, 141.0, 2.0)], model="region")
+    assert result.params["coarse"] == 1
+    assert result.converged
+    rr, cc = np.indices(image.shape)
+    assert dice(result.mask, np.hypot(rr - 100.4, cc - 140.6) < 6.0) >= 0.95

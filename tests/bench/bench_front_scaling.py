@@ -93,8 +93,8 @@ def blob_boundary(side: int, count: int | None = None) -> np.ndarray:
     return np.stack([cr + np.cos(turn) * ur - np.sin(turn) * vr, cc + np.sin(turn) * ur + np.cos(turn) * vr], axis=1)
 
 
-def make_phantom(side: int, *, noise_seed: int = 7) -> dict:
-    """The benchmark phantom at ``side``² pixels: noisy image, clean image, truth, seed disk."""
+def make_phantom(side: int, *, noise_seed: int = 7, noise: float = NOISE_SIGMA) -> dict:
+    """The benchmark phantom at ``side``² pixels: noisy image (σ = ``noise``), clean image, truth, seed disk."""
     offsets = (np.arange(SUPERSAMPLE) + 0.5) / SUPERSAMPLE - 0.5
     clean = np.empty((side, side))
     cols = (np.arange(side)[:, None] + offsets[None, :]).ravel()
@@ -107,7 +107,7 @@ def make_phantom(side: int, *, noise_seed: int = 7) -> dict:
         clean[rows_px] = OUTSIDE + (INSIDE - OUTSIDE) * fraction
     r, c = np.mgrid[0:side, 0:side].astype(float)
     truth = blob_level(r, c, side) < 0
-    image = clean + NOISE_SIGMA * np.random.default_rng(noise_seed).standard_normal(clean.shape)
+    image = clean + noise * np.random.default_rng(noise_seed).standard_normal(clean.shape)
     seed = (0.5 * side, 0.5 * side, SEED_RADIUS * side)
     seed_disk = np.hypot(r - seed[0], c - seed[1]) <= seed[2]
     return {"image": image, "clean": clean, "truth": truth, "seed": seed, "seed_disk": seed_disk}

@@ -28,14 +28,14 @@ shrinking front keeps its size), and the best run is kept (median and worst
 are printed in the last table). Reported per size: band nodes, active nodes,
 steps/s, ms per step (``front.timings["step"]``, which leaves rebuilds out),
 RKL2 evaluations per step (``front.timings["evaluations"]``), ms per
-evaluation, ms of the derivative product ``phi[gather] @ W`` alone, and the
+evaluation, ms of the derivative product ``W.T @ take(phi, gather)`` alone, and the
 exponent of a least-squares line through log(time per step) against
 log(band nodes). Targets (issue 3): ≥ 200 steps/s at 10 000 nodes; exponent
 ≤ 1.1.
 
 Every measurement runs in a fresh child process, once with the BLAS thread
 count left alone and once with ``OPENBLAS_NUM_THREADS=1 OMP_NUM_THREADS=1``
-in the child's environment: the small dense product ``phi[gather] @ W`` can
+in the child's environment: the small dense product of the derivatives can
 be much slower with threaded BLAS on a busy 2-core machine. The last table
 gives the ratio of the two.
 """
@@ -113,12 +113,12 @@ def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
     if model == "curvature":
         time_per_step = max(front.time / front.steps, 1e-9)
         n = int(np.clip(0.1 * radius**2 / 2.0 / time_per_step, 5, n))
-    band, weights, phi = front._band, front.stencil.weights, front.phi
+    band, rows, phi = front._band, front.stencil.rows, front.phi
     product = []
     for _ in range(5):
         t0 = time.perf_counter()
         for _ in range(10):
-            phi[band.gather] @ weights
+            rows @ np.take(phi, band.gather)
         product.append((time.perf_counter() - t0) / 10)
     snap = front.snapshot()
     repeats = int(np.clip(np.ceil(REPEATS * seconds / max(n * per_step, 1e-9)), REPEATS, 20))
@@ -211,7 +211,7 @@ def print_table(title: str, result: dict) -> dict:
                 exponents[(model, detail)] = (fit_exponent(rows), fit_exponent(
                     [dict(r, per_eval=r["step_s"] / r["evals"]) for r in rows], "per_eval"))
     print("\n'nodes'/'active': band nodes / nodes with a complete stencil at the start of each run; "
-          "'wall' includes rebuilds;\n'gather@W': ms of the derivative product phi[gather] @ W alone "
+          "'wall' includes rebuilds;\n'gather@W': ms of the derivative product W.T @ take(phi, gather) alone "
           "(median of 5 x 10 calls; one per RKL2 evaluation)")
     print("fitted exponent p of time ∝ nodes^p (least squares on log-log; target ≤ 1.1)")
     for (model, detail), (p_step, p_eval) in exponents.items():

@@ -4,10 +4,11 @@ Prints figures and ratios; asserts nothing. Not part of the test suite.
 
     python tests/bench/bench_vs_skimage.py
     python tests/bench/bench_vs_skimage.py --one-blas-thread   # rerun in a child with BLAS on one thread
+    python tests/bench/bench_vs_skimage.py --noise 0           # the same phantom without noise
 
 Phantom: the 512² member of the family in ``bench_front_scaling.py`` (dark
 blob 0.2 on 0.6 with a five-lobed ripple, 8 × 8 partial volume, Gaussian
-noise σ = 0.05, truth at pixel centres), one seed disk at the centre with
+noise σ = 0.05 unless ``--noise`` says otherwise, truth at pixel centres), one seed disk at the centre with
 radius 0.06 × 512 ≈ 30.7 px. Everything runs in this one process.
 
 Methods and the settings used (all converged; how is stated per method):
@@ -63,7 +64,7 @@ except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from bench_front_scaling import blas_threads, blob_boundary, make_phantom  # noqa: E402
+from bench_front_scaling import NOISE_SIGMA, blas_threads, blob_boundary, make_phantom  # noqa: E402
 
 from engine.metrics import dice, surface_distances  # noqa: E402
 from engine.segment import segment  # noqa: E402
@@ -189,12 +190,14 @@ def main() -> None:
         env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
         args = [a for a in sys.argv[1:] if a != "--one-blas-thread"]
         raise SystemExit(subprocess.run([sys.executable, __file__, *args], env=env).returncode)
-    ph = make_phantom(SIDE)
+    noise = float(sys.argv[sys.argv.index("--noise") + 1]) if "--noise" in sys.argv else NOISE_SIGMA
+    ph = make_phantom(SIDE, noise=noise)
     truth = ph["truth"]
     tree = cKDTree(blob_boundary(SIDE))
     seed = ph["seed"]
     d_seed = seed[2] - np.hypot(*(np.mgrid[0:SIDE, 0:SIDE] - np.array(seed[:2])[:, None, None]))
-    print(f"Engine vs scikit-image Chan–Vese on a {SIDE}² phantom, one process; BLAS threads: {blas_threads()}")
+    print(f"Engine vs scikit-image Chan–Vese on a {SIDE}² phantom (noise σ = {noise}), one process; "
+          f"BLAS threads: {blas_threads()}")
     print(f"seed disk (row, col, r) = ({seed[0]:.1f}, {seed[1]:.1f}, {seed[2]:.1f}); truth area {truth.sum()} px\n")
 
     runs = []
