@@ -28,17 +28,19 @@ where c = 1, the band is rebuilt around it and φ is reinitialised to a signed
 distance by Newton closest points on the zero set of the local RBF
 interpolant (Saye 2014).
 
-With ``nodes="scattered"`` (2-D) the band is a subset of one fixed,
+With ``nodes="scattered"`` (2-D and 3-D) the band is a subset of one fixed,
 edge-adaptive scattered node set per image
 (:class:`engine.node_set.ScatteredNodeSet`): band nodes are global node ids,
 each node carries its own cached RBF-FD weights (same operator columns as the
 lattice stencil), zero crossings lie on the edges of the nodes' neighbour
 graph, the pixel inside image follows φ interpolated to pixel centres, the
 time step follows the finest local spacing of the active nodes and the
-stage count a Gershgorin bound of the curvature operator. Contours are
-marching squares on φ interpolated to the band's pixel centres, projected
-onto the interpolant's zero set. The coarse start of :func:`engine.segment.segment`
-stays lattice-only.
+stage count the node set's Arnoldi estimate of the curvature operator's
+spectral radius. Contours are marching squares (surfaces: marching cubes) on
+φ interpolated to the band's pixel centres, contours projected onto the
+interpolant's zero set. In 3-D a scattered front must not cross the
+volume's border (refused: the scheme is not stable there yet). The coarse
+start of :func:`engine.segment.segment` stays lattice-only.
 
 References
 ----------
@@ -194,6 +196,7 @@ class _Band:
     pixel_index: tuple[NDArray[np.int64], ...]  # their pixel indices
     frozen: NDArray[np.bool_]  # per node: pinned
     barrier: NDArray[np.bool_]  # per node: inside another label's locked outline
+    held: tuple[NDArray[np.int64], NDArray[np.int64]] | None = None  # active positions pinned, in a barrier
     layer_phi: NDArray[np.floating] | None = None  # φ at the layer nodes when the layer was picked
     local_in: NDArray[np.floating] | None = None
     local_out: NDArray[np.floating] | None = None
@@ -320,7 +323,8 @@ class Front:
         the pixels of the boolean ``window_from`` (default: the initial inside).
 
         Every constructor takes ``nodes``: ``"lattice"`` (default; ``detail``
-        lattice nodes per pixel) or ``"scattered"`` (2-D only): nodes of an
+        lattice nodes per pixel) or ``"scattered"`` (2-D or 3-D, detail 1; in 3-D the front must not
+        cross the volume's border): nodes of an
         edge-adaptive :class:`~engine.node_set.ScatteredNodeSet`, ``finest``
         mm apart near strong edges and ``coarsest`` mm in flat areas (default
         half the smallest pixel spacing and the largest pixel spacing), or
@@ -698,6 +702,20 @@ class Front:
         ids, phi = np.asarray(ids, dtype=np.int64)[order], phi[order]
         table = ns.local_stencils(ids)
         complete = ns.complete(ids)
+        if self.ndim == 3:
+            # Where the front crosses the volume's border, edge nodes of the set (which copy the
+            # rates of layer nodes) lie on both sides of it; on scattered 3-D nodes the loop they
+            # close through the curvature stencils grows (a still plane through the box: 2.4 times
+            # a step), unlike on a lattice. Refuse rather than blow up: nodes within a spacing of
+            # the box's faces and next to the front on both sides of it mean it crosses a face.
+            pts, step = ns.points[ids], ns.local_spacing[ids]
+            at_face = np.any((pts - ns.box_min <= step[:, None]) | (ns.box_max - pts <= step[:, None]), axis=1)
+            rim = at_face & (np.abs(phi) <= 1.2 * step)
+            if np.any(phi[rim] < 0) and np.any(phi[rim] >= 0):
+                voxel = tuple(int(v) for v in np.rint(ns.pixels[ids[np.flatnonzero(rim)[0]]]))
+                raise ValueError(f"scattered nodes in 3-D: the front meets the volume's border near voxel "
+                                 f"{voxel}, where the scattered scheme is not stable; use nodes='lattice' "
+                                 f"for this volume")
         active = np.flatnonzero(complete)
         if len(active) == 0:
             raise ValueError("the band has no node with a complete stencil; the front is too small for "
@@ -952,9 +970,9 @@ class Front:
         a = speeds.curvature
         curving = bool(np.any(np.asarray(a) != 0))
         a_all = a[b.source] if np.ndim(a) else a
-        frozen = np.flatnonzero(b.frozen[b.active])
-        barrier = np.flatnonzero(b.barrier[b.active])
-        return _StageSpeeds(normal, a if curving else None, a_all * self._damping, frozen, barrier)
+        if b.held is None:
+            b.held = (np.flatnonzero(b.frozen[b.active]), np.flatnonzero(b.barrier[b.active]))
+        return _StageSpeeds(normal, a if curving else None, a_all * self._damping, *b.held)
 
     def _rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
               derivs: NDArray[np.floating] | None = None) -> NDArray[np.floating]:
@@ -1308,7 +1326,8 @@ class Front:
 
         Marching cubes (Lorensen & Cline, SIGGRAPH 1987; scikit-image's
         implementation) on the band's bounding box; lattice nodes outside the
-        band take ±(band half-width) with the sign of their voxel.
+        band take ±(band half-width) with the sign of their voxel. Scattered
+        fronts use φ at the voxel centres (:meth:`pixel_phi`).
         """
         if self.ndim != 3:
             raise ValueError("surface() is for 3-D fronts; use contours() in 2-D")
@@ -1316,6 +1335,9 @@ class Front:
             return np.empty((0, 3)), np.empty((0, 3), dtype=np.int64)
         from skimage.measure import marching_cubes
 
+        if self.node_set is not None:
+            verts, faces, _, _ = marching_cubes(self.pixel_phi(), level=0.0)
+            return verts, faces.astype(np.int64)
         b = self._band
         lo = b.indices.min(axis=0)
         hi = b.indices.max(axis=0)
@@ -1506,6 +1528,7 @@ class Front:
         near = tuple(np.clip(np.rint(b.pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
         b.frozen = self._pins[near] if self._pins is not None else np.zeros(len(b.indices), bool)
         b.barrier = self._barrier[near] if self._barrier is not None else np.zeros(len(b.indices), bool)
+        b.held = None
         self.converged = False
         self._motion.clear()
 

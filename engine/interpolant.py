@@ -24,8 +24,16 @@ from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
 from engine.kernels import check_phs
-from engine.polynomials import apply_to_monomials, monomial_count, monomial_exponents, monomial_table
+from engine.polynomials import (
+    derivative_shift,
+    monomial_count,
+    monomial_exponents,
+    monomial_values,
+)
 from engine.rbffd import SOLVE_CHUNK, validate_points
+
+#: Entries of the systems and right-hand sides solved per batched call (cache-sized chunks).
+_CHUNK_ENTRIES = 3_000_000
 
 
 @dataclass(frozen=True)
@@ -150,52 +158,91 @@ class LocalInterpolant:
         beta = coef[:, n:]
         m = self.phs
         dim = q.shape[1]
-        poly, poly_grad, poly_hess = monomial_table(xq, self.exponents, order)
+        poly = monomial_values(xq, self.exponents)
         r = np.sqrt(r2)
-        value = np.einsum("qn,qn->q", alpha, r2 * r ** (m - 2)) + np.einsum("qk,qk->q", beta, poly)
+        value = np.einsum("qn,qn->q", alpha, _power(r, r2, m)) + np.einsum("qk,qk->q", beta, poly)
         grad = hess = None
+
+        def poly_part(derivative: tuple[int, ...]) -> NDArray[np.floating]:
+            # the polynomial part's derivative is again a polynomial: shift its coefficients
+            source, factor = derivative_shift(self.exponents, derivative)
+            return np.einsum("qk,qk->q", poly, beta[:, source] * factor)
+
+        unit = np.eye(dim, dtype=np.int64)
         if order >= 1:
-            w2 = m * alpha * r ** (m - 2)  # coefficient of Δx in ∇r^m
-            grad = np.stack([np.einsum("qn,qn->q", w2, diff[:, :, i]) for i in range(dim)], axis=1)
-            grad += np.einsum("qk,qkd->qd", beta, poly_grad)
+            w2 = m * alpha * _power(r, r2, m - 2)  # coefficient of Δx in ∇r^m
+            grad = np.stack([np.einsum("qn,qn->q", w2, diff[:, :, i]) + poly_part(tuple(unit[i]))
+                             for i in range(dim)], axis=1)
             grad /= delta[:, None]
         if order >= 2:
             if m < 3:
                 raise ValueError("Hessians need phs >= 3")
-            w4 = m * (m - 2) * alpha * r ** (m - 4) if m >= 4 else m * (m - 2) * alpha * np.where(r > 0, r, np.inf) ** (m - 4.0)
+            if m >= 4:
+                w4 = m * (m - 2) * alpha * _power(r, r2, m - 4)
+            else:
+                w4 = m * (m - 2) * alpha * np.where(r > 0, r, np.inf) ** (m - 4.0)
             hess = np.empty((len(q), dim, dim))
             trace_part = w2.sum(axis=1)
             for i in range(dim):
                 wi = w4 * diff[:, :, i]
                 for j in range(i, dim):
-                    v = np.einsum("qn,qn->q", wi, diff[:, :, j])
+                    v = np.einsum("qn,qn->q", wi, diff[:, :, j]) + poly_part(tuple(unit[i] + unit[j]))
                     if i == j:
                         v = v + trace_part
                     hess[:, i, j] = hess[:, j, i] = v
-            hess += np.einsum("qk,qkde->qde", beta, poly_hess)
             hess /= (delta**2)[:, None, None]
         return value, grad, hess
 
 
+def _power(r: NDArray[np.floating], r2: NDArray[np.floating], p: int) -> NDArray[np.floating]:
+    """r**p for an integer p >= 0 from r and r², by products."""
+    out = r.copy() if p % 2 else np.ones_like(r)
+    for _ in range(p // 2):
+        out *= r2
+    return out
+
+
 def _interpolation_inverses(scaled: NDArray[np.floating], exps: NDArray[np.int64], phs: int) -> NDArray[np.floating]:
     """Columns of the inverse saddle-point matrices that map values to coefficients."""
-    u_count, n, dim = scaled.shape
+    u_count, n, _ = scaled.shape
     m = exps.shape[0]
     out = np.empty((u_count, n + m, n))
-    for start in range(0, u_count, SOLVE_CHUNK):
-        x = scaled[start:start + SOLVE_CHUNK]
+    # chunks small enough for the (c, n, n) temporaries to stay in cache-sized blocks
+    chunk = max(64, min(SOLVE_CHUNK, _CHUNK_ENTRIES // ((n + m) * (2 * n + m))))
+    eye = np.eye(n)
+    for start in range(0, u_count, chunk):
+        x = scaled[start:start + chunk]
         c = len(x)
-        diff = x[:, :, None, :] - x[:, None, :, :]
-        a = np.sqrt(np.einsum("sijd,sijd->sij", diff, diff)) ** phs
-        p = apply_to_monomials(x, exps, ((1.0, (0,) * dim),))
-        system = np.zeros((c, n + m, n + m))
-        system[:, :n, :n] = a
+        r2 = squared_distances(x)
+        system = np.empty((c, n + m, n + m))
+        block = system[:, :n, :n]
+        np.sqrt(r2, out=block)
+        for _ in range(phs // 2):
+            block *= r2
+        p = monomial_values(x, exps)
         system[:, :n, n:] = p
         system[:, n:, :n] = np.transpose(p, (0, 2, 1))
+        system[:, n:, n:] = 0.0
         rhs = np.zeros((c, n + m, n))
-        rhs[:, :n, :] = np.eye(n)[None]
+        rhs[:, :n, :] = eye
         try:
             out[start:start + c] = np.linalg.solve(system, rhs)
         except np.linalg.LinAlgError as exc:
             raise ValueError("points: a stencil is degenerate (collinear or duplicate nodes)") from exc
     return out
+
+
+def squared_distances(x: NDArray[np.floating]) -> NDArray[np.floating]:
+    """|x_i − x_j|² within each stencil of ``x`` (c, n, d): (c, n, n), one contiguous pass per axis."""
+    c, n, dim = x.shape
+    coords = np.ascontiguousarray(np.transpose(x, (2, 0, 1)))
+    r2 = np.empty((c, n, n))
+    delta = np.empty((c, n, n))
+    for axis in range(dim):
+        xa = coords[axis]
+        part = r2 if axis == 0 else delta
+        np.subtract(xa[:, :, None], xa[:, None, :], out=part)
+        np.multiply(part, part, out=part)
+        if axis:
+            r2 += delta
+    return r2

@@ -98,6 +98,43 @@ def apply_to_monomials(
     return out
 
 
+def monomial_values(points: NDArray[np.floating], exponents: NDArray[np.int64]) -> NDArray[np.floating]:
+    """Every monomial at every point, ``(..., M)``, for ``points`` (..., d).
+
+    Each monomial is a lower one (in the order of :func:`monomial_exponents`)
+    times one coordinate, so the table takes one product per monomial.
+    """
+    pts = np.asarray(points, dtype=float)
+    parent, axis = _monomial_chain(exponents)
+    flat = pts.reshape(-1, pts.shape[-1])
+    cols = np.empty((len(exponents), len(flat)))
+    coords = np.ascontiguousarray(flat.T)
+    for j in range(len(exponents)):
+        if parent[j] < 0:
+            cols[j] = 1.0
+        else:
+            np.multiply(cols[parent[j]], coords[axis[j]], out=cols[j])
+    return cols.T.reshape(pts.shape[:-1] + (len(exponents),))
+
+
+def _monomial_chain(exponents: NDArray[np.int64]) -> tuple[list[int], list[int]]:
+    """For each monomial, a monomial one degree lower and the axis that raises it (-1 for the constant)."""
+    rows = {tuple(int(v) for v in e): j for j, e in enumerate(exponents)}
+    parent, axis = [], []
+    for e in exponents:
+        if not np.any(e):
+            parent.append(-1)
+            axis.append(-1)
+            continue
+        a = int(np.flatnonzero(e)[-1])
+        lower = tuple(int(v) - (i == a) for i, v in enumerate(e))
+        if lower not in rows:
+            raise ValueError("exponents: every monomial's lower neighbour must be in the set (a full degree set)")
+        parent.append(rows[lower])
+        axis.append(a)
+    return parent, axis
+
+
 def monomial_table(
     points: NDArray[np.floating], exponents: NDArray[np.int64], order: int = 0
 ) -> tuple[NDArray[np.floating], NDArray[np.floating] | None, NDArray[np.floating] | None]:
@@ -107,46 +144,81 @@ def monomial_table(
     (Q, M, d, d) if ``order >= 2``.
     """
     q, dim = points.shape
+    m = len(exponents)
     top = int(exponents.max()) if exponents.size else 0
-    powers = np.empty((q, dim, top + 1))
-    powers[:, :, 0] = 1.0
+    # powers[s, a, q] = x_a^s, so one gather per derivative order takes every axis at once
+    powers = np.empty((top + 1, dim, q))
+    powers[0] = 1.0
+    coords = np.ascontiguousarray(points.T)
     for k in range(1, top + 1):
-        powers[:, :, k] = powers[:, :, k - 1] * points
+        np.multiply(powers[k - 1], coords, out=powers[k])
+    axes = np.arange(dim)[:, None]
 
-    def factor(axis: int, shift: int) -> NDArray[np.floating]:
-        e = exponents[:, axis] - shift
-        coef = np.ones(len(e))
+    def factor(shift: int) -> NDArray[np.floating]:
+        """d^shift/dx_a^shift of x_a^e_a per axis and monomial: (d, M, Q)."""
+        e = exponents.T - shift  # (d, M)
+        coef = np.ones(e.shape)
         for i in range(shift):
-            coef = coef * (exponents[:, axis] - i)
-        return np.where(e >= 0, coef, 0.0)[None, :] * powers[:, axis, np.clip(e, 0, None)]
+            coef = coef * (exponents.T - i)
+        coef = np.where(e >= 0, coef, 0.0)
+        return coef[:, :, None] * powers[np.clip(e, 0, None), axes]
 
-    base = [factor(a, 0) for a in range(dim)]
-    value = base[0]
-    for a in range(1, dim):
-        value = value * base[a]
+    def product(parts: list[NDArray[np.floating]]) -> NDArray[np.floating]:
+        out = parts[0]
+        for p in parts[1:]:
+            out = out * p
+        return out
+
+    base = factor(0)
+    value = product([base[a] for a in range(dim)]).T
     grad = hess = None
     if order >= 1:
-        first = [factor(a, 1) for a in range(dim)]
-        grad = np.empty((q, len(exponents), dim))
+        first = factor(1)
+        grad = np.empty((q, m, dim))
         for i in range(dim):
-            term = first[i]
-            for a in range(dim):
-                if a != i:
-                    term = term * base[a]
-            grad[:, :, i] = term
+            grad[:, :, i] = product([first[i]] + [base[a] for a in range(dim) if a != i]).T
     if order >= 2:
-        second = [factor(a, 2) for a in range(dim)]
-        hess = np.empty((q, len(exponents), dim, dim))
+        second = factor(2)
+        hess = np.empty((q, m, dim, dim))
         for i in range(dim):
             for j in range(i, dim):
                 if i == j:
-                    term = second[i]
-                    others = [a for a in range(dim) if a != i]
+                    parts = [second[i]] + [base[a] for a in range(dim) if a != i]
                 else:
-                    term = first[i] * first[j]
-                    others = [a for a in range(dim) if a not in (i, j)]
-                for a in others:
-                    term = term * base[a]
+                    parts = [first[i], first[j]] + [base[a] for a in range(dim) if a not in (i, j)]
+                term = product(parts).T
                 hess[:, :, i, j] = term
                 hess[:, :, j, i] = term
     return value, grad, hess
+
+
+def derivative_shift(exponents: NDArray[np.int64], alpha: tuple[int, ...]) -> tuple[NDArray[np.int64], NDArray[np.floating]]:
+    """D^alpha of a polynomial in the monomial basis, as a gather: ``(D^alpha p)_j = coef_j * p[source_j]``.
+
+    D^alpha x^(e + alpha) = (e + alpha)! / e! x^e, so the coefficient of
+    monomial j after differentiation is that of monomial e_j + alpha (if it
+    is in the set, else 0) times the falling factorial. ``source`` points at
+    that monomial (0 where there is none, with ``coef`` 0).
+    """
+    return _derivative_shift(exponents.tobytes(), exponents.shape, tuple(int(a) for a in alpha))
+
+
+@lru_cache(maxsize=256)
+def _derivative_shift(key: bytes, shape: tuple[int, int], alpha: tuple[int, ...]
+                      ) -> tuple[NDArray[np.int64], NDArray[np.floating]]:
+    exponents = np.frombuffer(key, dtype=np.int64).reshape(shape)
+    rows = {tuple(int(v) for v in e): j for j, e in enumerate(exponents)}
+    source = np.zeros(len(exponents), dtype=np.int64)
+    coef = np.zeros(len(exponents))
+    for j, e in enumerate(exponents):
+        raised = tuple(int(v) + a for v, a in zip(e, alpha))
+        if raised in rows:
+            source[j] = rows[raised]
+            c = 1.0
+            for v, a in zip(raised, alpha):
+                for i in range(a):
+                    c *= v - i
+            coef[j] = c
+    source.setflags(write=False)
+    coef.setflags(write=False)
+    return source, coef

@@ -60,7 +60,7 @@ def segment(
         ``MIN_COARSE_SEED`` blocks fits around each seed centre (a small structure converges there,
         without a coarse start). Lattice nodes only: with ``nodes="scattered"`` the default is 1 and
         any other value is refused.
-    nodes : ``"lattice"`` or ``"scattered"`` (2-D; edge-adaptive scattered nodes, see
+    nodes : ``"lattice"`` or ``"scattered"`` (edge-adaptive scattered nodes, see
         :meth:`engine.front.Front.from_function`; ``finest`` and ``coarsest`` spacings in mm go in
         ``params``).
     progress : called as ``progress(steps, time)`` after every step.

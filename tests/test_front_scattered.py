@@ -208,8 +208,12 @@ def test_every_speed_model_steps(model: str) -> None:
 
 def test_limits_are_refused_with_clear_errors() -> None:
     image = disk_image()
-    with pytest.raises(ValueError, match="2-D for now"):
-        Front.from_seeds(np.zeros((20, 20, 20)), [(10, 10, 10, 4)], nodes="scattered")
+    # 3-D works (tests/test_front_scattered_3d.py); detail stays a lattice option there too
+    ball = Front.from_seeds(np.zeros((12, 12, 12)), [(6, 6, 6, 3)], nodes="scattered", finest=1.0, coarsest=1.0)
+    assert ball.nodes == "scattered" and ball.node_set.dim == 3
+    assert 0.5 * (4 / 3 * np.pi * 3**3) < ball.mask().sum() < 1.5 * (4 / 3 * np.pi * 3**3)
+    with pytest.raises(ValueError, match="detail"):
+        Front.from_seeds(np.zeros((12, 12, 12)), [(6, 6, 6, 3)], nodes="scattered", detail=2)
     with pytest.raises(ValueError, match="detail"):
         Front.from_seeds(image, [(32, 32, 5)], nodes="scattered", detail=2)
     with pytest.raises(ValueError, match="nodes"):
@@ -223,6 +227,28 @@ def test_limits_are_refused_with_clear_errors() -> None:
     assert front.node_set is shared
     with pytest.raises(ValueError, match="layout"):
         Front.from_seeds(image, [(32, 32, 5)]).restore(front.snapshot())
+
+
+@pytest.mark.xfail(strict=True, reason="round-off grows about 1.3 % per step at the band's outer nodes with the "
+                   "front's hyperviscosity 0.01 (0.03 holds it), whatever the RKL2 stage count: a growing mode "
+                   "of the band's semi-discrete scheme, not a time-step limit")
+def test_still_line_stays_still_for_2000_steps() -> None:
+    # A straight line is a steady state of curve-shortening flow (zero
+    # curvature) and the RBF-FD operators reproduce linear φ exactly
+    # (Flyer, Fornberg, Bayona & Barnett, J. Comput. Phys. 321 (2016) 21-38):
+    # φ may change by round-off only over 2000 steps (the lattice front
+    # keeps it within 1e-10). The RKL2 stages themselves are checked in
+    # tests/test_node_set.py (test_spectral_figure_keeps_rkl2_stable_for_2000_steps).
+    normal = np.array([0.6, 0.8])
+    front = Front.from_function(lambda p: p @ normal - 17.3, (32, 32), model="curvature", smoothness=1.0,
+                                nodes="scattered", finest=1.0, coarsest=1.0)
+    before = front.pixel_phi()
+    for _ in range(20):  # in chunks: stop as soon as it has grown
+        front.step(100)
+        change = np.max(np.abs(front.pixel_phi() - before))
+        if not change < 1e-6:
+            break
+    assert change < 1e-6, change
 
 
 def test_cached_pixel_weights_reproduce_polynomials() -> None:

@@ -5,7 +5,8 @@ the edge-adaptive spacing, of generating the global nodes (finest 0.4 mm at
 the edge, coarsest 0.8 mm), and, for a band of about 10 000 nodes around the
 disk's edge, the first (solving) and second (cached) call of
 ``operator_weights``, ``complete``, ``pixel_interpolation``,
-``crossing_points`` and one application of all band operators
+``crossing_points``, the spectral figure (Arnoldi estimate and Gershgorin
+bound) and one application of all band operators
 (gather + per-node weights, as einsum and as batched matmul) next to the lattice band's shared-pattern
 product for the same number of nodes, measured in the same process.
 
@@ -79,9 +80,13 @@ def main() -> None:
     mat = timed("pixel_interpolation (band pixels)", lambda: ns.pixel_interpolation(ids, pix))
     timed("  its sparse product", lambda: mat @ phi, repeats=5)
     print(f"  pixels {len(pix)}")
-    bound = timed("spectral_bound", lambda: ns.spectral_bound(ids), repeats=1)
-    print(f"  spectral bound {bound:.1f} 1/mm^2 (lattice at h = {pixel / 2}: "
-          f"{band_stencil((pixel / 2, pixel / 2)).spectral_radius:.1f})")
+    bound = timed("spectral_bound (Arnoldi estimate)", lambda: ns.spectral_bound(ids), repeats=1)
+    gersh = timed("spectral_bound (Gershgorin)", lambda: ns.spectral_bound(ids, method="gershgorin"), repeats=1)
+    damped = ns.spectral_bound(ids, damping=0.01)
+    damped_g = ns.spectral_bound(ids, damping=0.01, method="gershgorin")
+    print(f"  spectral figure {bound:.1f} 1/mm^2, Gershgorin {gersh:.1f} (lattice at h = {pixel / 2}: "
+          f"{band_stencil((pixel / 2, pixel / 2)).spectral_radius:.1f}); with damping 0.01: {damped:.1f} "
+          f"against {damped_g:.1f}")
 
     act = np.flatnonzero(comp)
     gather = loc[act]
