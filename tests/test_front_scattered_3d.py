@@ -8,6 +8,7 @@ import pytest
 from engine.front import Front
 from engine.metrics import dice
 from engine.node_set import ScatteredNodeSet
+from tests.test_front_scattered import check_snapshot_and_determinism
 
 
 def sphere_sd(centre_mm, radius_mm):
@@ -104,21 +105,9 @@ def test_blob_segmentation_region_model() -> None:
 
 def test_snapshot_restore_is_bit_for_bit_and_stepping_is_deterministic() -> None:
     image, _ = blob_image(shape=(16, 16, 16), semi_axes=(5.0, 4.5, 4.0), noise=5.0, seed=8)
-    front = Front.from_seeds(image, [(8, 8, 8, 3)], model="region", nodes="scattered", finest=1.0, coarsest=1.0)
-    front.step(4)
-    snap = front.snapshot()
-    front.step(12)
-    phi_a, steps_a, mask_a = front.phi.copy(), front.steps, front.mask()
-    front.restore(snap)
-    front.step(12)
-    assert front.steps == steps_a
-    assert np.array_equal(front.phi, phi_a)
-    assert np.array_equal(front.mask(), mask_a)
-    # a second front with its own, freshly generated node set steps identically
-    again = Front.from_seeds(image, [(8, 8, 8, 3)], model="region", nodes="scattered", finest=1.0, coarsest=1.0)
-    assert np.array_equal(again.node_set.points, front.node_set.points)
-    again.step(16)
-    assert np.array_equal(again.phi, phi_a)
+    check_snapshot_and_determinism(
+        lambda: Front.from_seeds(image, [(8, 8, 8, 3)], model="region", nodes="scattered", finest=1.0, coarsest=1.0),
+        4, 12)
 
 
 def test_a_front_through_the_volume_border_is_refused() -> None:
