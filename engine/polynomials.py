@@ -117,8 +117,19 @@ def monomial_values(points: NDArray[np.floating], exponents: NDArray[np.int64]) 
     return cols.T.reshape(pts.shape[:-1] + (len(exponents),))
 
 
-def _monomial_chain(exponents: NDArray[np.int64]) -> tuple[list[int], list[int]]:
-    """For each monomial, a monomial one degree lower and the axis that raises it (-1 for the constant)."""
+def _monomial_chain(exponents: NDArray[np.int64]) -> tuple[tuple[int, ...], tuple[int, ...]]:
+    """For each monomial, a monomial one degree lower and the axis that raises it (-1 for the constant).
+
+    Cached per exponent set: evaluating an interpolant at a few points (as
+    Newton's fallback iterations do) otherwise spends most of its time here.
+    """
+    exps = np.ascontiguousarray(exponents, dtype=np.int64)
+    return _monomial_chain_of(exps.shape[1] if exps.ndim == 2 else 0, exps.tobytes())
+
+
+@lru_cache(maxsize=64)
+def _monomial_chain_of(dim: int, raw: bytes) -> tuple[tuple[int, ...], tuple[int, ...]]:
+    exponents = np.frombuffer(raw, dtype=np.int64).reshape(-1, dim) if dim else np.zeros((0, 0), dtype=np.int64)
     rows = {tuple(int(v) for v in e): j for j, e in enumerate(exponents)}
     parent, axis = [], []
     for e in exponents:
@@ -132,7 +143,7 @@ def _monomial_chain(exponents: NDArray[np.int64]) -> tuple[list[int], list[int]]
             raise ValueError("exponents: every monomial's lower neighbour must be in the set (a full degree set)")
         parent.append(rows[lower])
         axis.append(a)
-    return parent, axis
+    return tuple(parent), tuple(axis)
 
 
 def monomial_table(
