@@ -102,9 +102,9 @@ def segment(
     coarse_steps, coarse_time, coarse_s = 0, 0.0, 0.0
     layout = {} if nodes == "lattice" else {"nodes": nodes}
     front: Front | None = None
-    if coarse is None and nodes == "lattice" and coarse_factor(img.shape, None, model) > factor:
+    target = coarse_factor(img.shape, None, model) if coarse is None and nodes == "lattice" else factor
+    if target > factor:
         # seeds too small for the block size the image allows: grow them at full resolution first
-        target = coarse_factor(img.shape, None, model)
         front = Front.from_seeds(img, seeds_arr, spacing=sp, model=model, detail=detail, **params)
         if _grow_until(front, seeds_arr, MIN_COARSE_SEED * target * float(np.max(sp)), budget, progress):
             factor = target
