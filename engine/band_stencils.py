@@ -74,6 +74,17 @@ def centred_derivatives(dim: int) -> tuple[list[tuple[int, ...]], list[str]]:
     return unit + second, [f"d{a}" for a in range(dim)] + labels
 
 
+def step_labels(dim: int) -> tuple[str, ...]:
+    """Operators a stage of the front needs at every active node: ∂_i, ∂_i⁻, ∂_i⁺, then the hyperviscosity."""
+    return tuple([f"d{i}" for i in range(dim)] + [f"b{i}" for i in range(dim)] + [f"f{i}" for i in range(dim)]
+                 + ["hv"])
+
+
+def layer_labels(dim: int) -> tuple[str, ...]:
+    """Operators needed only at the layer next to the front (curvature): ∂_i, then ∂_i∂_j (i <= j)."""
+    return tuple(centred_derivatives(dim)[1])
+
+
 def one_sided_offsets(dim: int, axis: int, direction: int, size: int) -> NDArray[np.int64]:
     """Offsets of a half ball (o_axis * direction >= 0) with about ``size`` nodes.
 
@@ -103,6 +114,16 @@ class BandStencil:
     def rows(self) -> NDArray[np.floating]:
         """The weights transposed, (K, n_u) and contiguous: ``rows @ φ[gather]`` has one row per operator."""
         return np.ascontiguousarray(self.weights.T)
+
+    @cached_property
+    def step_rows(self) -> NDArray[np.floating]:
+        """Rows of the operators every active node needs at every stage, in :func:`step_labels` order."""
+        return self.rows[[self.column(lab) for lab in step_labels(self.offsets.shape[1])]]
+
+    @cached_property
+    def layer_rows(self) -> NDArray[np.floating]:
+        """Rows of the operators needed only next to the front, in :func:`layer_labels` order."""
+        return self.rows[[self.column(lab) for lab in layer_labels(self.offsets.shape[1])]]
 
 
 def _weights_on(offsets: NDArray[np.int64], step: NDArray[np.floating], ops: list, degree: int,

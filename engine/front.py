@@ -66,7 +66,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 from scipy.spatial import cKDTree
 
-from engine.band_stencils import BandStencil, band_stencil
+from engine.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
 from engine.closest_point import closest_points
 from engine.front_geometry import (
     ball_offsets,
@@ -79,7 +79,7 @@ from engine.front_geometry import (
 from engine.image_features import ImageFeatures, compute_features
 from engine.interpolant import LocalInterpolant
 from engine.lattice import LatticeLookup, symmetric_offsets
-from engine.node_set import ScatteredNodeSet
+from engine.node_set import ScatteredNodeSet, operator_labels
 from engine.rbffd import assemble
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
 from engine.time_stepping import rkl2, rkl2_stages
@@ -209,6 +209,8 @@ class _Band:
     reach: float = 0.0  # largest stencil radius over the active nodes (mm)
     spectral: float = 0.0  # spectral radius bound of curvature motion per unit curvature weight (1/mm²)
     edges: NDArray[np.int64] | None = None  # (E, 2) node pairs of the neighbour graph within the band
+    step_weights: NDArray[np.floating] | None = None  # scattered: (A, W, 3d + 1) weights in step_labels order
+    layer_operators: tuple[NDArray[np.int64], NDArray[np.floating] | None] | None = None  # see _layer_derivatives
 
 
 @dataclass
@@ -753,7 +755,8 @@ class Front:
                            edge_source, np.zeros(0, dtype=np.int64), tuple(pixel_index), frozen, barrier,
                            weights=weights, pixel_matrix=matrix, spacing=spacing,
                            h_min=float(np.min(spacing[active])), reach=reach,
-                           spectral=ns.spectral_bound(ids, damping=SCATTERED_DAMPING), edges=ns.edges(ids))
+                           spectral=ns.spectral_bound(ids, damping=SCATTERED_DAMPING), edges=ns.edges(ids),
+                           step_weights=np.ascontiguousarray(weights[:, :, _scattered_columns(self.ndim)[0]]))
         self._phi = phi
         self._phi_at_rebuild = np.abs(phi)
         self._coeffs = None
@@ -867,17 +870,24 @@ class Front:
         b.local_out = np.where(distinct, mean, c_out)
 
     # --------------------------------------------------------------- stepping
-    def _derivatives(self, phi: NDArray[np.floating]) -> NDArray[np.floating]:
-        """Every band operator at the active nodes, one row each (K, A); rows as in :func:`_derivative_rows`.
-
-        Row layout keeps each derivative contiguous for the element-wise work
-        that follows (a column per operator would be strided).
-        """
+    def _layer_derivatives(self, phi: NDArray[np.floating], *, hessian: bool = True
+                           ) -> tuple[NDArray[np.floating], NDArray[np.floating] | None]:
+        """Centred gradient (d, L) and, if asked, Hessian (d, d, L) at the layer nodes next to the front."""
         b = self._band
-        if self.node_set is None:
-            return self.stencil.rows @ np.take(phi, b.gather)
-        local = phi[b.gather]  # per-node weights, same operators
-        return np.ascontiguousarray(np.matmul(local[:, None, :], b.weights)[:, 0, :].T)
+        d = self.ndim
+        if b.layer_operators is None:
+            if self.node_set is None:
+                b.layer_operators = (np.ascontiguousarray(b.gather[:, b.layer]), None)
+            else:
+                weights = np.ascontiguousarray(b.weights[b.layer][:, :, _scattered_columns(d)[1]])
+                b.layer_operators = (b.gather[b.layer], weights)
+        gather, weights = b.layer_operators
+        count = None if hessian else d
+        if weights is None:
+            values = self.stencil.layer_rows[:count] @ np.take(phi, gather)
+        else:
+            values = np.matmul(phi[gather][:, None, :], weights[:, :, :count])[:, 0, :].T
+        return values[:d], (values[_hessian_rows(d)] if hessian else None)
 
     def _front_curvature(self, phi_act: NDArray[np.floating], grad: NDArray[np.floating],
                          hess: NDArray[np.floating]) -> NDArray[np.floating]:
@@ -888,7 +898,7 @@ class Front:
         k_i(y) = k_i(x) / (1 − s k_i(x)); summing them gives the extension of
         the front's curvature along the normals.
         """
-        g2 = np.maximum(np.sum(grad * grad, axis=0), 1e-12)
+        g2 = np.maximum(_sum_rows(grad * grad), 1e-12)
         gnorm = np.sqrt(g2)
         s = phi_act / gnorm
         kmax = 1.0 / self.h
@@ -975,36 +985,52 @@ class Front:
         return _StageSpeeds(normal, a if curving else None, a_all * self._damping, *b.held)
 
     def _rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
-              derivs: NDArray[np.floating] | None = None) -> NDArray[np.floating]:
-        """φ_t at the active nodes (extension velocities from the front's layer)."""
+              layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None) -> NDArray[np.floating]:
+        """φ_t at the active nodes (extension velocities from the front's layer).
+
+        The curvature of the front comes from the layer nodes (``layer``: their
+        derivatives, if already known); the other derivatives from
+        :meth:`_step_derivatives`.
+        """
         b = self._band
         d = self.ndim
-        rows = derivs if derivs is not None else self._derivatives(phi)
-        where = _derivative_rows(d)
-        grad, back, fwd = rows[:d], rows[where.back], rows[where.fwd]
+        rows = self._step_derivatives(phi)
+        grad, back, fwd, hv = rows[:d], rows[d:2 * d], rows[2 * d:3 * d], rows[3 * d]
+        outward, inward = _upwind_squares(back, fwd)
         if speeds.normal is not None:
             # Godunov Hamiltonian (Osher & Fedkiw 2003, eq. 6.3-6.4).
-            rate = -speeds.normal * _godunov_norm(speeds.normal, back, fwd)
+            rate = -speeds.normal * np.sqrt(np.where(speeds.normal > 0, outward, inward))
         else:
-            rate = np.zeros(rows.shape[1])
+            rate = np.zeros(len(b.active))
         if speeds.curvature is not None:
-            layer = rows[:, b.layer]
-            kappa = self._front_curvature(phi[b.active[b.layer]], layer[:d], layer[where.hess])
+            grad_l, hess_l = layer if layer is not None and layer[1] is not None else self._layer_derivatives(phi)
+            kappa = self._front_curvature(phi[b.active[b.layer]], grad_l, hess_l)
             motion = (speeds.curvature * kappa)[b.source]  # curvature part of the normal speed (inward for κ > 0)
             # Centred |∇φ| is accurate where φ is smooth, but on a kink of the
             # distance function (the midline of a part that is collapsing) it
             # tends to 0 and the part would linger there; the upwind |∇φ| of
             # the same motion is the viscosity solution's (Osher & Fedkiw 2003,
             # §6.4). Where the two differ by more than KINK_GRADIENT, take it.
-            gnorm = np.sqrt(np.sum(grad * grad, axis=0))
-            upwind = _godunov_norm(-motion, back, fwd)
+            gnorm = np.sqrt(_sum_rows(grad * grad))
+            upwind = np.sqrt(np.where(motion < 0, outward, inward))  # the Godunov |∇φ| of speed −motion
             gnorm = np.where(np.abs(gnorm - upwind) > KINK_GRADIENT, upwind, gnorm)
-            rate += motion * gnorm - speeds.damping * rows[where.hv]
+            rate += motion * gnorm - speeds.damping * hv
         if len(speeds.frozen):
             rate[speeds.frozen] = 0.0
         if len(speeds.barrier):
             rate[speeds.barrier] = np.maximum(rate[speeds.barrier], 0.0)
         return rate
+
+    def _step_derivatives(self, phi: NDArray[np.floating]) -> NDArray[np.floating]:
+        """(3d + 1, A) at the active nodes, one row per operator (:func:`step_labels`): ∂_i, ∂_i⁻, ∂_i⁺, hyperviscosity.
+
+        Rows keep each derivative contiguous for the element-wise work that
+        follows (a column per operator would be strided).
+        """
+        b = self._band
+        if self.node_set is None:
+            return self.stencil.step_rows @ np.take(phi, b.gather)
+        return np.ascontiguousarray(np.matmul(phi[b.gather][:, None, :], b.step_weights)[:, 0, :].T)
 
     _curvature_gain: float = 1.0
     _last_kappa_max: float = 0.0
@@ -1031,10 +1057,11 @@ class Front:
         return dt, stages
 
     def _full_rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
-                   derivs: NDArray[np.floating] | None = None) -> NDArray[np.floating]:
+                   layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None
+                   ) -> NDArray[np.floating]:
         """φ_t at every band node; edge nodes take the rate of the layer node nearest their closest front point."""
         b = self._band
-        rate = self._rate(phi, speeds, derivs)
+        rate = self._rate(phi, speeds, layer)
         full = np.empty_like(phi)
         full[b.active] = rate
         full[b.edge_nodes] = rate[b.layer[b.edge_source]]
@@ -1055,10 +1082,10 @@ class Front:
             t0 = _time.perf_counter()
             b = self._band
             phi0 = self._phi
-            derivs = self._derivatives(phi0)
-            speeds = self._speeds(phi0, derivs[:self.ndim, b.layer])
+            layer = self._layer_derivatives(phi0)
+            speeds = self._speeds(phi0, layer[0])
             self._last_kappa_max = 0.0
-            r0 = self._full_rate(phi0, self._stage_speeds(speeds), derivs)  # also measures the curvature gain
+            r0 = self._full_rate(phi0, self._stage_speeds(speeds), layer)  # also measures the curvature gain
             kappa_max = self._last_kappa_max
             dt, stages = self._time_step(speeds, kappa_max)
             if dt_max is not None and dt_max < dt:
@@ -1116,6 +1143,7 @@ class Front:
             self._vanish()
             return
         b.layer_phi = self._phi[b.active[b.layer]]
+        b.layer_operators = None
         if self.params.model == "region":
             self._update_local_statistics()
 
@@ -1175,7 +1203,7 @@ class Front:
         """
         b = self._band
         if reinitialise is None:
-            grad = self._derivatives(self._phi)[:self.ndim, b.layer]
+            grad = self._layer_derivatives(self._phi, hessian=False)[0]
             dev = np.abs(np.sqrt(np.sum(grad * grad, axis=0)) - 1.0)
             drift = float(np.percentile(dev, 90)) if len(dev) else 1.0
             reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
@@ -1600,6 +1628,7 @@ class Front:
         if snap.layer:
             (self._band.layer, self._band.source, self._band.edge_source,
              self._band.layer_phi) = (a.copy() for a in snap.layer)
+            self._band.layer_operators = None
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
         self._since_reinit = snap.since_reinit
@@ -1614,40 +1643,48 @@ def _clip(x: NDArray[np.floating], bound: float) -> NDArray[np.floating]:
     return np.minimum(np.maximum(x, -bound, out=x), bound, out=x)
 
 
-def _godunov_norm(speed: NDArray[np.floating], back: NDArray[np.floating],
-                  fwd: NDArray[np.floating]) -> NDArray[np.floating]:
-    """Upwind |∇φ| for motion with normal ``speed`` (Godunov; Osher & Fedkiw 2003, eq. 6.3-6.4).
+def _sum_rows(values: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Sum over the first axis of a (d, n) array (np.sum's per-call overhead shows at every stage)."""
+    total = values[0].copy()
+    for row in values[1:]:
+        total += row
+    return total
 
-    With s = sign(speed): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0); ``back``, ``fwd`` are (d, A).
+
+def _upwind_squares(back: NDArray[np.floating], fwd: NDArray[np.floating]
+                    ) -> tuple[NDArray[np.floating], NDArray[np.floating]]:
+    """Squared Godunov |∇φ| for outward and for inward motion (Osher & Fedkiw 2003, eq. 6.3-6.4).
+
+    With s = sign(speed): |∂_i φ| = max(s·D⁻φ, −s·D⁺φ, 0); ``back``, ``fwd`` are
+    (d, A). Outward (s = +1): max(D⁻, −D⁺, 0); inward: max(−D⁻, D⁺, 0) =
+    −min(D⁻, −D⁺, 0). A node's upwind |∇φ| for any speed is the root of one of the two.
     """
-    outward = speed > 0
-    total = np.zeros(len(speed))
-    for b_i, f_i in zip(back, fwd):
-        up = np.where(outward, np.maximum(b_i, -f_i), np.maximum(-b_i, f_i))
-        np.maximum(up, 0.0, out=up)
-        total += up * up
-    return np.sqrt(total)
-
-
-@dataclass(frozen=True)
-class _DerivativeRows:
-    hess: NDArray[np.int64]  # (d, d) row of each second derivative
-    hv: int  # row of the hyperviscosity operator
-    back: slice  # rows of the backward one-sided first derivatives
-    fwd: slice  # rows of the forward ones
+    ahead = -fwd
+    out = np.maximum(back, ahead)
+    into = np.minimum(back, ahead, out=ahead)
+    np.maximum(out, 0.0, out=out)
+    np.minimum(into, 0.0, out=into)
+    out *= out
+    into *= into
+    return _sum_rows(out), _sum_rows(into)
 
 
 @lru_cache(maxsize=4)
-def _derivative_rows(dim: int) -> _DerivativeRows:
-    """Where each operator sits in :meth:`Front._derivatives` (the columns of ``band_stencils.centred_derivatives``
-    followed by ``hv`` and the one-sided pairs b0, f0, b1, f1, …)."""
-    hess = np.empty((dim, dim), dtype=np.int64)
-    k = dim
+def _hessian_rows(dim: int) -> NDArray[np.int64]:
+    """(d, d): the row of ∂_i∂_j in :meth:`Front._layer_derivatives`'s values (:func:`layer_labels` order)."""
+    labels = layer_labels(dim)
+    rows = np.empty((dim, dim), dtype=np.int64)
     for i in range(dim):
-        for j in range(i, dim):
-            hess[i, j] = hess[j, i] = k
-            k += 1
-    return _DerivativeRows(hess, k, slice(k + 1, k + 1 + 2 * dim, 2), slice(k + 2, k + 2 + 2 * dim, 2))
+        for j in range(dim):
+            rows[i, j] = labels.index(f"d{min(i, j)}{max(i, j)}")
+    return rows
+
+
+@lru_cache(maxsize=4)
+def _scattered_columns(dim: int) -> tuple[list[int], list[int]]:
+    """Columns of a scattered node set's operator weights in :func:`step_labels` and :func:`layer_labels` order."""
+    labels = operator_labels(dim)
+    return [labels.index(lab) for lab in step_labels(dim)], [labels.index(lab) for lab in layer_labels(dim)]
 
 
 @dataclass(frozen=True)

@@ -220,7 +220,7 @@ def test_phi_stays_a_signed_distance_after_reinitialisation() -> None:
                                 (100, 100), model="constant", drive=0.5)
     for _ in range(3):
         front.rebuild(reinitialise=True)
-        grad = front._derivatives(front.phi)[:2].T
+        grad = (front.stencil.step_rows[:2] @ np.take(front.phi, front._band.gather)).T  # centred ∂0, ∂1
         near = np.abs(front.phi[front._band.active]) < 6.0
         dev = np.abs(np.linalg.norm(grad[near], axis=1) - 1.0)
         assert dev.max() <= 0.02, dev.max()

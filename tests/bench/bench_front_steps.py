@@ -28,7 +28,7 @@ shrinking front keeps its size), and the best run is kept (median and worst
 are printed in the last table). Reported per size: band nodes, active nodes,
 steps/s, ms per step (``front.timings["step"]``, which leaves rebuilds out),
 RKL2 evaluations per step (``front.timings["evaluations"]``), ms per
-evaluation, ms of the derivative product ``W.T @ take(phi, gather)`` alone, and the
+evaluation, ms of the derivative product ``step_rows @ take(phi, gather)`` alone (one thread), and the
 exponent of a least-squares line through log(time per step) against
 log(band nodes). Targets (issue 3): ≥ 200 steps/s at 10 000 nodes; exponent
 ≤ 1.1.
@@ -113,7 +113,7 @@ def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
     if model == "curvature":
         time_per_step = max(front.time / front.steps, 1e-9)
         n = int(np.clip(0.1 * radius**2 / 2.0 / time_per_step, 5, n))
-    band, rows, phi = front._band, front.stencil.rows, front.phi
+    band, rows, phi = front._band, front.stencil.step_rows, front.phi
     product = []
     for _ in range(5):
         t0 = time.perf_counter()
