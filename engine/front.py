@@ -82,7 +82,7 @@ from engine.lattice import LatticeLookup, symmetric_offsets
 from engine.node_set import ScatteredNodeSet, operator_labels
 from engine.rbffd import assemble
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
-from engine.time_stepping import rkl2, rkl2_stages
+from engine.time_stepping import rkl2, rkl2_stages, rkl2_step
 
 try:  # the band's small dense products run far slower with threaded BLAS
     from threadpoolctl import ThreadpoolController
@@ -451,7 +451,9 @@ class Front:
     def h(self) -> float:
         """Smallest node spacing (mm): the lattice step, or the finest local spacing of the active scattered nodes."""
         if self.node_set is None:
-            return float(np.min(self.step_mm))
+            if self._lattice_h is None:
+                self._lattice_h = float(np.min(self.step_mm))
+            return self._lattice_h
         if self._band is not None and self._band.h_min > 0:
             return self._band.h_min
         return float(np.min(self.node_set.local_spacing))
@@ -890,23 +892,25 @@ class Front:
         return values[:d], (values[_hessian_rows(d)] if hessian else None)
 
     def _front_curvature(self, phi_act: NDArray[np.floating], grad: NDArray[np.floating],
-                         hess: NDArray[np.floating]) -> NDArray[np.floating]:
+                         hess: NDArray[np.floating], *, measure: bool = True) -> NDArray[np.floating]:
         """Curvature of the front at each layer node's closest point (1/mm); ``grad`` (d, L), ``hess`` (d, d, L).
 
         For a signed distance, the level set through x at distance s from the
         front has principal curvatures k_i(x) = k_i(y) / (1 + s k_i(y)), so
         k_i(y) = k_i(x) / (1 − s k_i(x)); summing them gives the extension of
-        the front's curvature along the normals.
+        the front's curvature along the normals. With ``measure`` the largest
+        |κ| and the extension's gain (for the time step) are recorded.
         """
-        g2 = np.maximum(_sum_rows(grad * grad), 1e-12)
+        g2 = _sum_rows(grad * grad)
+        np.maximum(g2, 1e-12, out=g2)
         gnorm = np.sqrt(g2)
         s = phi_act / gnorm
         kmax = 1.0 / self.h
         if self.ndim == 2:
+            # κ = (φ_y² φ_xx − 2 φ_x φ_y φ_xy + φ_x² φ_yy) / |∇φ|³
             gx, gy = grad
-            trace = hess[0, 0] + hess[1, 1]
-            ghg = gx * gx * hess[0, 0] + 2.0 * gx * gy * hess[0, 1] + gy * gy * hess[1, 1]
-            k_x = [_clip((g2 * trace - ghg) / (g2 * gnorm), kmax)]
+            k_x = [_clip((gy * gy * hess[0, 0] - 2.0 * gx * gy * hess[0, 1] + gx * gx * hess[1, 1])
+                         / (g2 * gnorm), kmax)]
         else:
             n = (grad / gnorm).T
             proj = np.eye(3)[None] - n[:, :, None] * n[:, None, :]
@@ -917,16 +921,21 @@ class Front:
             keep[np.arange(len(ev)), drop] = False
             ev = ev[keep].reshape(len(ev), 2)
             k_x = [_clip(ev[:, 0], kmax), _clip(ev[:, 1], kmax)]
-        total = np.zeros(len(phi_act))
-        denom_min = np.full(len(phi_act), np.inf)
+        total = None
+        denom_min = None
         for k in k_x:
-            denom = np.maximum(1.0 - s * k, 0.25)
-            total += _clip(k / denom, kmax)
-            np.minimum(denom_min, denom, out=denom_min)
-        # d k(y) / d k(x) = 1 / (1 − s k)²: the extension amplifies the
-        # diffusion-like curvature term; the time step must follow.
-        self._curvature_gain = max(1.0, 1.0 / float(np.min(denom_min)) ** 2) if len(total) else 1.0
-        self._last_kappa_max = float(np.max(np.abs(total))) if len(total) else 0.0
+            denom = 1.0 - s * k
+            np.maximum(denom, 0.25, out=denom)
+            part = _clip(k / denom, kmax)
+            total = part if total is None else total + part
+            denom_min = denom if denom_min is None else np.minimum(denom_min, denom)
+        if measure and len(total):
+            # d k(y) / d k(x) = 1 / (1 − s k)²: the extension amplifies the
+            # diffusion-like curvature term; the time step must follow.
+            self._curvature_gain = max(1.0, 1.0 / float(np.min(denom_min)) ** 2)
+            self._last_kappa_max = float(np.max(np.abs(total)))
+        elif measure:
+            self._curvature_gain, self._last_kappa_max = 1.0, 0.0
         return total
 
     def _speeds(self, phi: NDArray[np.floating], grad: NDArray[np.floating]) -> NodeSpeeds:
@@ -985,12 +994,14 @@ class Front:
         return _StageSpeeds(normal, a if curving else None, a_all * self._damping, *b.held)
 
     def _rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
-              layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None) -> NDArray[np.floating]:
+              layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None,
+              measure: bool = False) -> NDArray[np.floating]:
         """φ_t at the active nodes (extension velocities from the front's layer).
 
         The curvature of the front comes from the layer nodes (``layer``: their
         derivatives, if already known); the other derivatives from
-        :meth:`_step_derivatives`.
+        :meth:`_step_derivatives`. ``measure``: record the largest curvature
+        and its extension's gain for the time step (:meth:`_front_curvature`).
         """
         b = self._band
         d = self.ndim
@@ -1004,7 +1015,7 @@ class Front:
             rate = np.zeros(len(b.active))
         if speeds.curvature is not None:
             grad_l, hess_l = layer if layer is not None and layer[1] is not None else self._layer_derivatives(phi)
-            kappa = self._front_curvature(phi[b.active[b.layer]], grad_l, hess_l)
+            kappa = self._front_curvature(phi[b.active[b.layer]], grad_l, hess_l, measure=measure)
             motion = (speeds.curvature * kappa)[b.source]  # curvature part of the normal speed (inward for κ > 0)
             # Centred |∇φ| is accurate where φ is smooth, but on a kink of the
             # distance function (the midline of a part that is collapsing) it
@@ -1032,6 +1043,9 @@ class Front:
             return self.stencil.step_rows @ np.take(phi, b.gather)
         return np.ascontiguousarray(np.matmul(phi[b.gather][:, None, :], b.step_weights)[:, 0, :].T)
 
+    _lattice_h: float | None = None
+    #: (|φ| at the last rebuild, the safe distance, the nodes that were beyond it) for :meth:`_needs_rebuild`
+    _far_nodes: tuple[NDArray[np.floating], float, NDArray[np.int64]] | None = None
     _curvature_gain: float = 1.0
     _last_kappa_max: float = 0.0
     _since_reinit: int = 0
@@ -1043,7 +1057,9 @@ class Front:
 
         The step lets the front move at most ``cfl`` node spacings (normal
         speed |V| + a|κ|); the stages make the RKL2 stability interval cover
-        the curvature term's spectral radius (super time stepping).
+        the curvature term's spectral radius (super time stepping), and the
+        step is shortened to one stage fewer's stability limit where that
+        advances more time per evaluation (:func:`engine.time_stepping.rkl2_step`).
         """
         h = self.h
         vmax = float(np.max(np.abs(speeds.normal))) if len(speeds.normal) else 0.0
@@ -1053,15 +1069,15 @@ class Front:
         stages = 2
         if amax > 0:
             radius = amax * self._spectral_radius * self._curvature_gain
-            stages = rkl2_stages(dt, 2.0 / radius)
+            dt, stages = rkl2_step(dt, 2.0 / radius)
         return dt, stages
 
     def _full_rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
-                   layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None
-                   ) -> NDArray[np.floating]:
+                   layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None,
+                   measure: bool = False) -> NDArray[np.floating]:
         """φ_t at every band node; edge nodes take the rate of the layer node nearest their closest front point."""
         b = self._band
-        rate = self._rate(phi, speeds, layer)
+        rate = self._rate(phi, speeds, layer, measure)
         full = np.empty_like(phi)
         full[b.active] = rate
         full[b.edge_nodes] = rate[b.layer[b.edge_source]]
@@ -1085,7 +1101,7 @@ class Front:
             layer = self._layer_derivatives(phi0)
             speeds = self._speeds(phi0, layer[0])
             self._last_kappa_max = 0.0
-            r0 = self._full_rate(phi0, self._stage_speeds(speeds), layer)  # also measures the curvature gain
+            r0 = self._full_rate(phi0, self._stage_speeds(speeds), layer, measure=True)
             kappa_max = self._last_kappa_max
             dt, stages = self._time_step(speeds, kappa_max)
             if dt_max is not None and dt_max < dt:
@@ -1176,10 +1192,13 @@ class Front:
     def _needs_rebuild(self) -> bool:
         """True once the front reaches nodes that were more than the safe distance from it."""
         safe = self._rebuild_distance()
-        far = self._phi_at_rebuild > safe
-        if not np.any(far):
+        cached = self._far_nodes
+        if cached is None or cached[0] is not self._phi_at_rebuild or cached[1] != safe:
+            cached = self._far_nodes = (self._phi_at_rebuild, safe, np.flatnonzero(self._phi_at_rebuild > safe))
+        far = cached[2]
+        if not len(far):
             return False
-        return bool(np.any(np.abs(self._phi[far]) < 0.75 * self.h))
+        return bool(np.min(np.abs(self._phi[far])) < 0.75 * self.h)
 
     def _rebuild_distance(self) -> float:
         """How far (mm) the front may move before the band must follow it.
