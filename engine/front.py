@@ -145,6 +145,9 @@ DEFAULT_LOCAL_RADIUS = 6.0
 #: 0.01 leaves a margin while the spectral radius (hence the RKL2 stage count)
 #: stays within about 3× of the undamped one.
 SCATTERED_DAMPING = 0.01
+#: Threads of the nearest-neighbour queries (scipy runs them outside the
+#: interpreter lock; the answers do not depend on the count).
+TREE_WORKERS = 2
 #: Node layouts of the front.
 NODE_LAYOUTS = ("lattice", "scattered")
 
@@ -593,7 +596,7 @@ class Front:
             nodes = self._candidate_nodes(starts_mm, width)
         approx = values_at(nodes)
         # The zero set of the approximate values, as points on lattice edges (scattered: graph edges).
-        lookup = LatticeLookup(nodes) if self.node_set is None else None
+        lookup = LatticeLookup(nodes, pad=self._lookup_pad()) if self.node_set is None else None
         starts = self._crossings(nodes, approx, lookup)
         if len(starts) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
@@ -602,7 +605,7 @@ class Front:
         if len(todo):
             if self.node_set is None:
                 pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
-                table = lookup.find(nodes[:, None, :] + pattern[None])
+                table = lookup.around(pattern)
                 owners = np.flatnonzero(np.all(table >= 0, axis=1))
                 positions = nodes * self.step_mm
                 interp = LocalInterpolant.build(positions, table[owners], owners=owners,
@@ -612,9 +615,10 @@ class Front:
             else:
                 positions = self.node_set.points[nodes]
                 # Newton stays next to the zero set: interpolants there suffice
-                near_front = cKDTree(starts).query(positions)[0] <= 2.5 * float(np.max(self.step_mm))
+                near_front = (cKDTree(starts).query(positions, workers=TREE_WORKERS)[0]
+                              <= 2.5 * float(np.max(self.step_mm)))
                 interp, coeffs = self._scattered_interpolant(nodes, approx, near_front)
-            near_dist, nearest = cKDTree(starts).query(positions[todo])
+            near_dist, nearest = cKDTree(starts).query(positions[todo], workers=TREE_WORKERS)
             # nodes farther than the band from every zero crossing are dropped below
             reach = near_dist <= width + 2.0 * float(np.max(self.step_mm))
             phi[todo[~reach]] = np.where(approx[todo[~reach]] < 0, -1.0, 1.0) * 2.0 * width
@@ -646,19 +650,25 @@ class Front:
         crossings = self._crossings(indices, phi, lookup)
         if len(crossings) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
-        layer_tree = cKDTree(self._node_mm(indices[active[layer]]))
+        # each crossing's nearest layer node, then each node's nearest crossing
+        _, crossing_source = cKDTree(self._node_mm(indices[active[layer]])).query(crossings, workers=TREE_WORKERS)
+        crossing_source = np.asarray(crossing_source, dtype=np.int64)
         crossing_tree = cKDTree(crossings)
 
         def source_of(nodes: NDArray[np.int64]) -> NDArray[np.int64]:
             if len(nodes) == 0:
                 return np.zeros(0, dtype=np.int64)
-            _, near = crossing_tree.query(self._node_mm(indices[nodes]))
-            _, src = layer_tree.query(crossings[near])
-            return np.asarray(src, dtype=np.int64)
+            _, near = crossing_tree.query(self._node_mm(indices[nodes]), workers=TREE_WORKERS)
+            return crossing_source[near]
 
         source = source_of(active)
         source[layer] = np.arange(len(layer))
         return layer, source, source_of(edge_nodes)
+
+    def _lookup_pad(self) -> int:
+        """Padding of band lookups: the reach of the band stencil and of the interpolant's pattern (nodes)."""
+        pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
+        return int(max(np.max(np.abs(self.stencil.offsets)), np.max(np.abs(pattern))))
 
     def _install_band(self, indices: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
         if self.node_set is not None:
@@ -666,8 +676,8 @@ class Front:
             return
         order = np.lexsort(indices.T[::-1])
         indices, phi = indices[order], phi[order]
-        lookup = LatticeLookup(indices)
-        table = lookup.find(indices[:, None, :] + self.stencil.offsets[None])
+        lookup = LatticeLookup(indices, pad=self._lookup_pad())
+        table = lookup.around(self.stencil.offsets)
         complete = np.all(table >= 0, axis=1)
         active = np.flatnonzero(complete)
         if len(active) == 0:

@@ -18,6 +18,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -49,8 +50,12 @@ class LocalInterpolant:
     inverses: NDArray[np.floating]  # (U, n + M, n): stencil values -> [alpha; beta]
     exponents: NDArray[np.int64]  # (M, d)
     phs: int
-    tree: cKDTree
     lattice: tuple | None = None  # (step, LatticeLookup of owner indices) for O(1) owner search
+
+    @cached_property
+    def tree(self) -> cKDTree:
+        """k-d tree of the owners (built on first use: lattice owners are found by rounding)."""
+        return cKDTree(self.points[self.owner_nodes])
 
     @classmethod
     def build(
@@ -84,12 +89,15 @@ class LocalInterpolant:
             raise ValueError(f"stencil_size={st.shape[1]} is smaller than the {m} monomials of degree {degree}")
         if degree < (phs - 1) // 2:
             raise ValueError(f"degree={degree} is too low for r^{phs}")
-        rel = pts[st] - pts[own][:, None, :]
+        # translates share one shape: work it out once (a read-only broadcast serves every owner)
+        rel = pts[st[:1]] - pts[own[:1]][:, None, :] if translates else pts[st] - pts[own][:, None, :]
         radius = np.sqrt(np.max(np.einsum("snd,snd->sn", rel, rel), axis=1))
         if np.any(radius <= 0):
             raise ValueError("points: a stencil has zero radius")
         scaled = rel / radius[:, None, None]
         if translates:
+            radius = np.broadcast_to(radius, (len(st),))
+            scaled = np.broadcast_to(scaled, (len(st),) + scaled.shape[1:])
             first = np.zeros(1, dtype=np.int64)
             inverse_index = np.zeros(len(st), dtype=np.int64)
         else:
@@ -103,8 +111,7 @@ class LocalInterpolant:
 
             idx = np.asarray(lattice_indices, dtype=np.int64)
             lattice = (np.asarray(lattice_step, dtype=float), LatticeLookup(idx[own]))
-        return cls(pts, own, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs,
-                   cKDTree(pts[own]), lattice)
+        return cls(pts, own, st, radius, scaled, inverse_index.reshape(-1), inverses, exps, phs, lattice)
 
     def coefficients(self, values: ArrayLike) -> NDArray[np.floating]:
         """Interpolation coefficients [alpha; beta] of every owner's stencil, (U, n + M)."""

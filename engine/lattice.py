@@ -68,17 +68,22 @@ class LatticeLookup:
     A dense table over the nodes' bounding box answers each query with one
     array read when the box holds at most ``DENSE_LOOKUP_LIMIT`` nodes (every
     2-D band, and 3-D bands of moderate extent); otherwise sorted keys and a
-    binary search.
+    binary search. With ``pad`` the box grows by that many nodes on every
+    side, so :meth:`around` reads the neighbours of every node at offsets up
+    to ``pad`` without a bounds check.
     """
 
-    def __init__(self, indices: NDArray[np.integer]):
+    def __init__(self, indices: NDArray[np.integer], *, pad: int = 0):
         idx = np.asarray(indices, dtype=np.int64)
         if idx.ndim != 2 or len(idx) == 0:
             raise ValueError(f"indices must be a non-empty (N, d) integer array, got shape {idx.shape}")
-        self.low = idx.min(axis=0)
-        self.dims = idx.max(axis=0) - self.low + 1
+        self.pad = int(pad)
+        self.low = idx.min(axis=0) - self.pad
+        self.dims = idx.max(axis=0) + self.pad - self.low + 1
         self._strides = np.cumprod(np.concatenate([self.dims[1:], [1]])[::-1])[::-1].astype(np.int64)
         keys = self._keys(idx - self.low)
+        self._node_keys = keys
+        self._indices = idx
         size = int(np.prod(self.dims))
         self.table: NDArray[np.int32] | None = None
         if size <= DENSE_LOOKUP_LIMIT and len(idx) < np.iinfo(np.int32).max:
@@ -118,6 +123,18 @@ class LatticeLookup:
             hit = inside & (self.sorted_keys[pos] == keys)
             out = np.where(hit, self.order[pos], -1)
         return out.reshape(q.shape[:-1])
+
+    def around(self, offsets: NDArray[np.integer]) -> NDArray[np.int64]:
+        """Positions of every node's neighbours at ``offsets`` (n, d): (N, n), −1 where absent.
+
+        The same as ``find(indices[:, None, :] + offsets[None])`` for the
+        lookup's own indices, in one read of the table when it is dense and
+        padded for these offsets.
+        """
+        off = np.asarray(offsets, dtype=np.int64)
+        if self.table is None or np.max(np.abs(off), initial=0) > self.pad:
+            return self.find(self._indices[:, None, :] + off[None])
+        return self.table[self._node_keys[:, None] + (off @ self._strides)[None, :]].astype(np.int64)
 
 
 #: One-sided stencils take this many times the symmetric pattern's node count,
