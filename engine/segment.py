@@ -34,7 +34,7 @@ def segment(
     image: ArrayLike,
     seeds: Sequence[Sequence[float]],
     *,
-    spacing: ArrayLike = (1.0, 1.0),
+    spacing: ArrayLike | None = None,
     model: str = "region",
     max_steps: int | None = None,
     detail: int = 1,
@@ -49,7 +49,7 @@ def segment(
     ----------
     image : 2-D (or 3-D) array of intensities, any scale.
     seeds : ``(row, col, radius_px)`` disks (3-D: ``(slice, row, col, radius_px)``).
-    spacing : pixel spacing in mm, per axis.
+    spacing : pixel spacing in mm, per axis (default 1 mm on every axis).
     model : ``"region"``, ``"edge"``, ``"window"``, ``"curvature"`` or ``"constant"``.
     max_steps : stop after this many steps even if not converged (default 20 000; coarse and fine together).
     detail : lattice nodes per pixel along each axis (1, 2 or 4).
@@ -96,7 +96,7 @@ def segment(
         factor = int(coarse)
     else:
         raise ValueError(f"coarse must be 1, 2, 4 or 8, got {coarse!r}")
-    sp = np.asarray(spacing, dtype=float).reshape(-1)
+    sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
     if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
         raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
     coarse_steps, coarse_time, coarse_s = 0, 0.0, 0.0
@@ -148,7 +148,7 @@ def segment(
     timings = {"setup_s": t1 - t0, "evolve_s": t2 - t1, "output_s": t3 - t2, "total_s": t3 - t0,
                "rebuilds": front.timings["rebuilds"], "nodes": front.node_count, "coarse_steps": coarse_steps,
                "coarse_s": coarse_s}
-    used = dict(front.params.as_dict(), coarse=factor)
+    used = dict(front.params.as_dict(), coarse=factor, smoothness_scale=round(front.smoothness_scale, 4))
     if nodes == "scattered":
         used["nodes"] = nodes
     return Segmentation(mask, contours, front.steps, front.converged, used, timings, front.time, area)
