@@ -110,20 +110,19 @@ class BandStencil:
     def column(self, label: str) -> int:
         return self.labels.index(label)
 
-    @cached_property
-    def rows(self) -> NDArray[np.floating]:
-        """The weights transposed, (K, n_u) and contiguous: ``rows @ φ[gather]`` has one row per operator."""
-        return np.ascontiguousarray(self.weights.T)
+    def _rows(self, labels: tuple[str, ...]) -> NDArray[np.floating]:
+        """Weights of ``labels`` as contiguous rows (n_labels, n_u): ``rows @ φ[gather]`` gives one row per operator."""
+        return np.ascontiguousarray(self.weights[:, [self.column(lab) for lab in labels]].T)
 
     @cached_property
     def step_rows(self) -> NDArray[np.floating]:
         """Rows of the operators every active node needs at every stage, in :func:`step_labels` order."""
-        return self.rows[[self.column(lab) for lab in step_labels(self.offsets.shape[1])]]
+        return self._rows(step_labels(self.offsets.shape[1]))
 
     @cached_property
     def layer_rows(self) -> NDArray[np.floating]:
         """Rows of the operators needed only next to the front, in :func:`layer_labels` order."""
-        return self.rows[[self.column(lab) for lab in layer_labels(self.offsets.shape[1])]]
+        return self._rows(layer_labels(self.offsets.shape[1]))
 
 
 def _weights_on(offsets: NDArray[np.int64], step: NDArray[np.floating], ops: list, degree: int,

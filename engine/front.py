@@ -672,9 +672,9 @@ class Front:
         return layer, source, source_of(edge_nodes)
 
     def _lookup_pad(self) -> int:
-        """Padding of band lookups: the reach of the band stencil and of the interpolant's pattern (nodes)."""
-        pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
-        return int(max(np.max(np.abs(self.stencil.offsets)), np.max(np.abs(pattern))))
+        """Padding of band lookups (nodes): the band stencil's reach, which holds the interpolant's pattern
+        (the same symmetric offsets; a lookup falls back to a bounds-checked search beyond its padding)."""
+        return int(np.max(np.abs(self.stencil.offsets)))
 
     def _install_band(self, indices: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
         if self.node_set is not None:

@@ -9,7 +9,7 @@ Each front comes from ``Front.from_function`` on a circle whose radius gives
 a band of about 2 000 ... 80 000 nodes (band nodes ≈ 2πr · 2 · band_width ·
 detail with r in pixels, band_width = 10 node spacings), at detail 1 (image
 side chosen to hold the band) and, for the three largest sizes, at detail 2.
-Two models:
+Four cases:
 
 - ``constant`` with drive 0: a still front, so no band rebuilds; every step
   is two RKL2 evaluations.
