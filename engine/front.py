@@ -23,7 +23,10 @@ reaches the edge, so there is no feedback loop, the whole band moves as one
 and no kink forms at its edge.
 The time step lets the front move at most ``cfl`` node spacings and the
 number of RKL2 stages grows with √(dt / dt_Euler) to keep the stiff
-curvature term stable, so fine detail does not force tiny steps. When the front nears the edge of the part of the band
+curvature term stable, so fine detail does not force tiny steps
+(``integrator="ssp_rk3"`` takes Shu & Osher's three-stage steps instead,
+each within forward Euler's limit for the curvature term: the reference
+the super time steps are checked against). When the front nears the edge of the part of the band
 where c = 1, the band is rebuilt around it and φ is reinitialised to a signed
 distance by Newton closest points on the zero set of the local RBF
 interpolant (Saye 2014).
@@ -82,7 +85,7 @@ from engine.lattice import LatticeLookup, symmetric_offsets
 from engine.node_set import ScatteredNodeSet, operator_labels
 from engine.rbffd import assemble
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
-from engine.time_stepping import rkl2, rkl2_stages, rkl2_step
+from engine.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
 
 try:  # the band's small dense products run far slower with threaded BLAS
     from threadpoolctl import ThreadpoolController
@@ -1090,19 +1093,25 @@ class Front:
     _noise: float = 0.0  # robust std of the smoothed intensities inside the initial front
 
     def _time_step(self, speeds: NodeSpeeds, kappa_max: float) -> tuple[float, int]:
-        """Time step and number of RKL2 stages.
+        """Time step and number of rate evaluations (RKL2 stages, or 3 for SSP-RK3).
 
         The step lets the front move at most ``cfl`` node spacings (normal
         speed |V| + a|κ|); the stages make the RKL2 stability interval cover
         the curvature term's spectral radius (super time stepping), and the
         step is shortened to one stage fewer's stability limit where that
         advances more time per evaluation (:func:`engine.time_stepping.rkl2_step`).
+        SSP-RK3 instead shortens the step to forward Euler's limit for that
+        spectral radius, 2/ρ (its own real-axis limit is about 2.51/ρ).
         """
         h = self.h
         vmax = float(np.max(np.abs(speeds.normal))) if len(speeds.normal) else 0.0
         amax = float(np.max(speeds.curvature)) if np.ndim(speeds.curvature) else float(speeds.curvature)
         speed = max(vmax + amax * kappa_max, MIN_SPEED)
         dt = self.params.cfl * h / speed
+        if self.params.integrator == "ssp_rk3":
+            if amax > 0:
+                dt = min(dt, 2.0 / (amax * self._spectral_radius * self._curvature_gain))
+            return dt, 3
         stages = 2
         if amax > 0:
             radius = amax * self._spectral_radius * self._curvature_gain
@@ -1121,13 +1130,14 @@ class Front:
         return full
 
     def step(self, n: int = 1, *, dt_max: float | None = None) -> None:
-        """Advance ``n`` time steps (RKL2 super time stepping; the band is rebuilt when needed)."""
+        """Advance ``n`` time steps (``params.integrator``: RKL2 super time steps or SSP-RK3; the band is rebuilt when needed)."""
         if n < 0:
             raise ValueError(f"n must be >= 0, got {n}")
         with single_thread_blas():
             self._step(int(n), dt_max)
 
     def _step(self, n: int, dt_max: float | None) -> None:
+        rk3 = self.params.integrator == "ssp_rk3"
         for _ in range(n):
             if self.vanished:
                 self.steps += 1
@@ -1143,7 +1153,7 @@ class Front:
             dt, stages = self._time_step(speeds, kappa_max)
             if dt_max is not None and dt_max < dt:
                 dt = dt_max
-                if np.any(np.asarray(speeds.curvature) != 0):
+                if not rk3 and np.any(np.asarray(speeds.curvature) != 0):
                     radius = float(np.max(speeds.curvature)) * self._spectral_radius * self._curvature_gain
                     stages = rkl2_stages(dt, 2.0 / radius)
             factor = speeds.relax_factor(dt)
@@ -1153,7 +1163,10 @@ class Front:
                 r0[b.active] *= factor[b.source]
                 r0[b.edge_nodes] *= factor[b.edge_source]
             stage_speeds = self._stage_speeds(speeds.relaxed(dt))
-            new = rkl2(phi0, lambda p: self._full_rate(p, stage_speeds), dt, stages, first_rate=r0)
+            if rk3:
+                new = ssp_rk3(phi0, lambda p: self._full_rate(p, stage_speeds), dt, first_rate=r0)
+            else:
+                new = rkl2(phi0, lambda p: self._full_rate(p, stage_speeds), dt, stages, first_rate=r0)
             # RKL2 combines stages with some negative weights, so hold pins and
             # barriers on the result, not only on the rates.
             if np.any(b.frozen):

@@ -42,6 +42,8 @@ import numpy as np
 from numpy.typing import NDArray
 
 MODELS = ("region", "edge", "window", "curvature", "constant")
+#: Time integrators of a front step (:mod:`engine.time_stepping`).
+INTEGRATORS = ("rkl2", "ssp_rk3")
 
 
 @dataclass(frozen=True)
@@ -62,6 +64,7 @@ class FrontParams:
     degree: int = 4
     phs: int = 5
     cfl: float = 0.25
+    integrator: str = "rkl2"  # "rkl2": super time steps; "ssp_rk3": three-stage steps within every stability limit
     convergence_tol: float = 0.001  # mean front displacement per step, in node spacings
     convergence_window: int = 20  # steps
     extra: dict = field(default_factory=dict, compare=False)
@@ -91,6 +94,8 @@ class FrontParams:
             raise ValueError(f"band_width must be >= 8 node spacings, got {self.band_width}")
         if not 0 < self.cfl <= 0.9:
             raise ValueError(f"cfl must be in (0, 0.9], got {self.cfl}")
+        if self.integrator not in INTEGRATORS:
+            raise ValueError(f"integrator must be one of {', '.join(INTEGRATORS)}; got {self.integrator!r}")
         if self.stencil_size is not None and not 10 <= self.stencil_size <= 200:
             raise ValueError(f"stencil_size must be between 10 and 200, got {self.stencil_size}")
         if self.degree not in (2, 3, 4, 5, 6):

@@ -16,9 +16,11 @@ evaluations than with a classical method.
 from __future__ import annotations
 
 from collections.abc import Callable
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
+from scipy.linalg.blas import daxpy as _axpy
 
 Rate = Callable[[NDArray[np.floating]], NDArray[np.floating]]
 
@@ -61,8 +63,9 @@ def rkl2_step(dt_max: float, dt_euler: float) -> tuple[float, int]:
     return dt_max, stages
 
 
+@lru_cache(maxsize=64)
 def rkl2_coefficients(s: int) -> tuple[NDArray[np.floating], ...]:
-    """μ_j, ν_j, μ̃_j, γ̃_j (j = 1..s; index 0 unused) of the RKL2 recursion."""
+    """μ_j, ν_j, μ̃_j, γ̃_j (j = 1..s; index 0 unused) of the RKL2 recursion (read-only, cached)."""
     if s < 2:
         raise ValueError(f"RKL2 needs at least 2 stages, got {s}")
     j = np.arange(s + 1, dtype=float)
@@ -81,6 +84,8 @@ def rkl2_coefficients(s: int) -> tuple[NDArray[np.floating], ...]:
         nu[k] = -(k - 1.0) / k * b[k] / b[k - 2]
         mu_t[k] = mu[k] * w1
         gamma_t[k] = -a[k - 1] * mu_t[k]
+    for array in (mu, nu, mu_t, gamma_t):
+        array.flags.writeable = False
     return mu, nu, mu_t, gamma_t
 
 
@@ -91,8 +96,16 @@ def rkl2(phi: NDArray[np.floating], rate: Rate, dt: float, stages: int,
     r0 = rate(phi) if first_rate is None else first_rate
     y_prev2 = phi
     y_prev = phi + mu_t[1] * dt * r0
+    flat = phi.dtype == np.float64 and phi.ndim == 1
     for k in range(2, stages + 1):
-        y = (mu[k] * y_prev + nu[k] * y_prev2 + (1.0 - mu[k] - nu[k]) * phi
-             + mu_t[k] * dt * rate(y_prev) + gamma_t[k] * dt * r0)
+        # y = μ y₋₁ + ν y₋₂ + (1 − μ − ν) φ + μ̃ dt F(y₋₁) + γ̃ dt F(φ)
+        y = np.multiply(rate(y_prev), mu_t[k] * dt)
+        terms = ((y_prev, mu[k]), (y_prev2, nu[k]), (phi, 1.0 - mu[k] - nu[k]), (r0, gamma_t[k] * dt))
+        if flat:  # in place, no temporaries (this runs at every stage)
+            for x, c in terms:
+                y = _axpy(x, y, a=c)
+        else:
+            for x, c in terms:
+                y += c * x
         y_prev2, y_prev = y_prev, y
     return y_prev

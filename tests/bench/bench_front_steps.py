@@ -27,6 +27,14 @@ Four cases:
   timed runs (a quarter node spacing a step): what a technician watches
   while the front spreads. Shorter steps, fewer RKL2 stages.
 
+The four cases run with the default integrator (RKL2 super time steps,
+whose length follows the front's motion and the curvature term's
+stiffness). At about 10 000 nodes the three moving cases also run with
+``integrator="ssp_rk3"``, three evaluations a step within forward Euler's
+limit for the curvature term: the step of the design notes (§3.3). The
+last table sets them side by side: steps per second, the front time one
+step advances, and front time per wall second (what a user sees move).
+
 After a few warm-up steps a snapshot is taken; ``front.step(n)`` is then
 timed at least three times, each run restored from the snapshot (so the
 shrinking front keeps its size), and the best run is kept (median and worst
@@ -76,7 +84,7 @@ def circle_radius(nodes: int, detail: int) -> float:
     return nodes / (2.0 * np.pi * 2.0 * BAND_WIDTH * detail)
 
 
-def build_front(model: str, nodes: int, detail: int):
+def build_front(model: str, nodes: int, detail: int, integrator: str = "rkl2"):
     from engine.front import Front
 
     radius = circle_radius(nodes, detail)
@@ -100,19 +108,19 @@ def build_front(model: str, nodes: int, detail: int):
         image /= 16.0
     t0 = time.perf_counter()
     front = Front.from_function(phi, (side, side), spacing=(1.0, 1.0), model="region" if model == "growing" else model,
-                                detail=detail, image=image,
+                                detail=detail, image=image, integrator=integrator,
                                 **params)
     return front, side, radius, time.perf_counter() - t0
 
 
-def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
+def measure_one(model: str, nodes: int, detail: int, seconds: float, integrator: str = "rkl2") -> dict:
     """Best time per step of ``front.step(n)``; the front is restored from a snapshot before each run.
 
     Restoring keeps the band size fixed for the shrinking (curvature) front;
     ``n`` is capped so that a run moves the circle by less than about 5 % of
     its radius (curvature flow: r² = r0² − 2t).
     """
-    front, side, radius, build_s = build_front(model, nodes, detail)
+    front, side, radius, build_s = build_front(model, nodes, detail, integrator)
     nodes0, active0 = front.node_count, int(len(front._band.active))
     t0 = time.perf_counter()
     front.step(WARMUP_STEPS)
@@ -138,6 +146,7 @@ def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
         front.restore(snap)
         step0, ev0 = front.timings["step"], front.timings.get("evaluations", 0)
         reb0, rebt0 = front.timings["rebuilds"], front.timings["rebuild"]
+        time0 = front.time
         t0 = time.perf_counter()
         front.step(n)
         wall = time.perf_counter() - t0
@@ -145,6 +154,7 @@ def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
             "step_s": (front.timings["step"] - step0) / n,
             "wall_s": wall / n,
             "evals": (front.timings.get("evaluations", 0) - ev0) / n,
+            "dt": (front.time - time0) / n,
             "rebuilds": front.timings["rebuilds"] - reb0,
             "rebuild_s": front.timings["rebuild"] - rebt0,
         }
@@ -152,7 +162,7 @@ def measure_one(model: str, nodes: int, detail: int, seconds: float) -> dict:
         if best is None or run["step_s"] < best["step_s"]:
             best = run
     return {
-        "model": model, "target": nodes, "detail": detail, "side": side, "radius_px": radius,
+        "model": model, "integrator": integrator, "target": nodes, "detail": detail, "side": side, "radius_px": radius,
         "nodes": nodes0, "active": active0, "nodes_end": front.node_count, "steps_timed": n,
         "repeats": repeats, "build_s": build_s, "median_step_s": float(np.median(per_run)),
         "worst_step_s": float(np.max(per_run)), "product_s": float(np.median(product)), **best,
@@ -179,7 +189,8 @@ def child(quick: bool) -> None:
             if quick and nodes != DETAIL2_TARGETS[-1]:
                 continue
             rows.append(measure_one(model, nodes, 2, seconds))
-    print(json.dumps({"blas": blas_threads(), "rows": rows}))
+    compare = [measure_one(model, 10_000, 1, seconds, "ssp_rk3") for model in MODELS if model != "constant"]
+    print(json.dumps({"blas": blas_threads(), "rows": rows, "compare": compare}))
 
 
 def run_child(single_thread: bool, quick: bool) -> dict:
@@ -232,7 +243,26 @@ def print_table(title: str, result: dict) -> dict:
         if at10k:
             r = at10k[0]
             print(f"  {model:<10} steps/s at {r['nodes']} nodes: {1.0 / r['step_s']:.0f} (target ≥ 200)")
+    print_integrators(result)
     return exponents
+
+
+def print_integrators(result: dict) -> None:
+    """RKL2 super time steps against SSP-RK3 steps at 10 000 nodes: steps per second and front time per second."""
+    print("\nintegrators at about 10 000 nodes (detail 1): 'time/step' is the front time one step advances "
+          "(time units: mm² per unit smoothness, or mm per unit speed), 'time/s' the front time per wall second")
+    head = f"{'model':<10}{'integrator':>11}{'steps/s':>9}{'evals/st':>9}{'time/step':>11}{'time/s':>9}{'rkl2/ssp':>9}"
+    print(head)
+    print("-" * len(head))
+    for r3 in result.get("compare", []):
+        r2 = next((r for r in result["rows"] if r["model"] == r3["model"] and r["detail"] == 1
+                   and r["target"] == 10_000), None)
+        for r in (r2, r3):
+            if r is None:
+                continue
+            ratio = (r2["dt"] / r2["step_s"]) / (r3["dt"] / r3["step_s"]) if r is r3 and r2 else float("nan")
+            print(f"{r['model']:<10}{r['integrator']:>11}{1.0 / r['step_s']:>9.0f}{r['evals']:>9.1f}{r['dt']:>11.4f}"
+                  f"{r['dt'] / r['step_s']:>9.1f}{'' if r is r2 else f'{ratio:9.2f}'}")
 
 
 def main() -> None:
