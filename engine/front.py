@@ -67,6 +67,8 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from engine.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
@@ -223,6 +225,7 @@ class _Band:
     edges: NDArray[np.int64] | None = None  # (E, 2) node pairs of the neighbour graph within the band
     step_weights: NDArray[np.floating] | None = None  # scattered: (A, W, 3d + 1) weights in step_labels order
     layer_operators: tuple[NDArray[np.int64], NDArray[np.floating] | None] | None = None  # see _layer_derivatives
+    layer_parts: tuple[NDArray[np.int64], int] | None = None  # see _layer_parts
 
 
 @dataclass
@@ -238,7 +241,7 @@ class Front:
     params: FrontParams
     detail: int
     step_mm: NDArray[np.floating]
-    stencil: BandStencil
+    stencil: BandStencil | None  # the lattice band stencil (None on scattered nodes: each node has its own weights)
     time: float = 0.0
     steps: int = 0
     converged: bool = False
@@ -316,8 +319,7 @@ class Front:
             node_set = ScatteredNodeSet.from_features(feats, finest=float(finest), coarsest=float(coarsest),
                                                       stencil_size=size, degree=degree, phs=phs)
         step_mm = np.full(img.ndim, node_set.reference_spacing)
-        stencil = band_stencil(sp, stencil_size=fp.stencil_size_for(img.ndim), degree=fp.degree, phs=fp.phs)
-        front = cls(feats, fp, 1, step_mm, stencil, node_set=node_set)
+        front = cls(feats, fp, 1, step_mm, None, node_set=node_set)
         front._node_sets[_node_options(fp, img.ndim)] = node_set
         return front
 
@@ -482,7 +484,7 @@ class Front:
     @property
     def _reach_mm(self) -> float:
         """Stencil radius in mm (largest offset times the largest step; scattered: largest over the active nodes)."""
-        if self.node_set is not None and self._band is not None:
+        if self.node_set is not None:
             return self._band.reach
         return self.stencil.reach * float(np.max(self.step_mm))
 
@@ -999,28 +1001,96 @@ class Front:
                            sigma_mm=self.features.sigma_mm, count=3 * count)
         v = all3.normal.reshape(3, count)
         a = all3.curvature[:count] if np.ndim(all3.curvature) else all3.curvature
-        return NodeSpeeds(v[0], a * self.smoothness_scale, slope=(v[2] - v[1]) / (2.0 * half))
+        return NodeSpeeds(v[0], a * self._part_scales(closest_mm, normal), slope=(v[2] - v[1]) / (2.0 * half))
 
     @property
     def smoothness_scale(self) -> float:
-        """min(1, ρ / ((d − 1)·SMALL_STRUCTURE)): the intensity models' smoothness, scaled down for small structures.
+        """The smallest smoothness scale applied to any part of the front (1: full smoothness).
 
-        ρ = d·V/S is the structure's mean radius (V from the pixels inside, S
-        from the layer's node count: a slab 2·LAYER_WIDTH node spacings
-        thick). Curvature motion holds a resting front where the image speed
-        equals a·κ, an inward shift of about a·κ / (the speed's slope): for
-        a disk of radius 3 px at smoothness 1 that left 56 % of its area.
-        κ sums d − 1 principal curvatures, hence the (d − 1): a ball and a
-        disk of the same radius shift alike. 1 for the other models.
+        The region and window models scale their smoothness by min(1, ρ /
+        ((d − 1)·SMALL_STRUCTURE)), ρ a part's mean radius (mm): curvature
+        motion holds a resting front where the image speed equals a·κ, an
+        inward shift of about a·κ / (the speed's slope); for a disk of radius
+        3 px at smoothness 1 that left 56 % of its area. κ sums d − 1
+        principal curvatures, hence the (d − 1): a ball and a disk of the same
+        radius shift alike. Each part of the front (:meth:`_part_scales`) has
+        its own scale; this is the smallest at the last step (before the first
+        step: the whole front's). 1 for the other models.
         """
         if self.params.model not in ("region", "window"):
             return 1.0
+        if self._applied_scale is not None:
+            return self._applied_scale
+        return self._whole_scale()
+
+    _applied_scale: float | None = None
+
+    def _whole_scale(self) -> float:
+        """The scale for the whole front as one structure: ρ = d·V/S.
+
+        V from the pixels inside, S from the layer's node count (a slab
+        2·LAYER_WIDTH node spacings thick).
+        """
         b = self._band
         volume = self._sums[1] * float(np.prod(self.features.spacing))
         surface = len(b.layer) * self.h ** (self.ndim - 1) / (2.0 * LAYER_WIDTH)
         if surface <= 0:
             return 1.0
-        return min(1.0, self.ndim * volume / surface / (SMALL_STRUCTURE * (self.ndim - 1)))
+        return float(self._scale_for_radius(self.ndim * volume / surface))
+
+    def _scale_for_radius(self, radius: NDArray[np.floating] | float) -> NDArray[np.floating] | float:
+        """min(1, |ρ| / ((d − 1)·SMALL_STRUCTURE)) for mean radius ρ (mm)."""
+        return np.minimum(1.0, np.abs(radius) / (SMALL_STRUCTURE * (self.ndim - 1)))
+
+    def _layer_parts(self) -> tuple[NDArray[np.int64], int]:
+        """Connected parts of the layer (one per closed outline: each structure, each hole), per layer node."""
+        b = self._band
+        if b.layer_parts is None:
+            nodes = b.active[b.layer]
+            if self.node_set is None:
+                spacing = float(np.max(self.step_mm))
+            else:
+                spacing = float(np.max(b.spacing[nodes]))
+            # lattice neighbours along axes and face diagonals are within 1.5 spacings
+            pairs = cKDTree(b.positions[nodes]).query_pairs(1.5 * spacing, output_type="ndarray")
+            graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(len(nodes), len(nodes)))
+            count, labels = connected_components(graph, directed=False)
+            b.layer_parts = (labels.astype(np.int64), int(count))
+        return b.layer_parts
+
+    def _part_scales(self, closest_mm: NDArray[np.floating], normal: NDArray[np.floating]
+                     ) -> NDArray[np.floating] | float:
+        """Smoothness scale per layer node: :attr:`smoothness_scale` for each part of the front on its own.
+
+        One structure: the whole front's scale (:meth:`_whole_scale`). Several (seeds
+        grown apart, a structure with a hole): each part's mean radius by the
+        divergence theorem, ρ = d·V/S = mean over its outline of (y − ȳ)·n
+        (y the closest points, ȳ their mean, n the outward normals; negative
+        for a hole), so a small part keeps its size beside a large one. A
+        part that reaches the image border is not closed: it takes the
+        whole front's scale.
+        """
+        if self.params.model not in ("region", "window"):
+            return 1.0
+        labels, count = self._layer_parts()
+        whole = self._whole_scale()
+        if count == 1:
+            self._applied_scale = whole
+            return whole
+        weights = np.bincount(labels, minlength=count).astype(float)
+        centre = np.stack([np.bincount(labels, closest_mm[:, i], count) for i in range(self.ndim)], axis=1)
+        centre /= weights[:, None]
+        radius = np.bincount(labels, np.sum((closest_mm - centre[labels]) * normal, axis=1), count) / weights
+        scale = np.asarray(self._scale_for_radius(radius), dtype=float)
+        border = np.any((closest_mm < self.h) | (closest_mm > self._extent_mm - self.h), axis=1)
+        scale[np.unique(labels[border])] = whole
+        self._applied_scale = float(np.min(scale))
+        return scale[labels]
+
+    @property
+    def _extent_mm(self) -> NDArray[np.floating]:
+        """Position (mm) of the last pixel centre along each axis."""
+        return (np.array(self.shape) - 1.0) * self.features.spacing
 
     def _stage_speeds(self, speeds: NodeSpeeds) -> _StageSpeeds:
         """The layer's speeds extended to every active node (the extension velocities of one step)."""
@@ -1209,7 +1279,7 @@ class Front:
             self._vanish()
             return
         b.layer_phi = self._phi[b.active[b.layer]]
-        b.layer_operators = None
+        b.layer_operators = b.layer_parts = None
         if self.params.model == "region":
             self._update_local_statistics()
 
@@ -1662,8 +1732,6 @@ class Front:
                                                     stencil_size=key[0], degree=key[1], phs=key[2],
                                                     points=old.points)
         self.node_set = self._node_sets[key]
-        self.stencil = band_stencil(self.features.spacing, stencil_size=params.stencil_size_for(self.ndim),
-                                    degree=params.degree, phs=params.phs)
 
     # -------------------------------------------------------------- snapshots
     def snapshot(self) -> FrontSnapshot:
@@ -1697,7 +1765,7 @@ class Front:
         if snap.layer:
             (self._band.layer, self._band.source, self._band.edge_source,
              self._band.layer_phi) = (a.copy() for a in snap.layer)
-            self._band.layer_operators = None
+            self._band.layer_operators = self._band.layer_parts = None
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
         self._since_reinit = snap.since_reinit
