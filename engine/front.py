@@ -933,15 +933,18 @@ class Front:
             k_x = [_clip((gy * gy * hess[0, 0] - 2.0 * gx * gy * hess[0, 1] + gx * gx * hess[1, 1])
                          / (g2 * gnorm), kmax)]
         else:
-            n = (grad / gnorm).T
-            proj = np.eye(3)[None] - n[:, :, None] * n[:, None, :]
-            shape_op = proj @ np.moveaxis(hess, 2, 0) @ proj / gnorm[:, None, None]
-            ev = np.linalg.eigvalsh(shape_op)
-            drop = np.argmin(np.abs(ev), axis=1)
-            keep = np.ones_like(ev, dtype=bool)
-            keep[np.arange(len(ev)), drop] = False
-            ev = ev[keep].reshape(len(ev), 2)
-            k_x = [_clip(ev[:, 0], kmax), _clip(ev[:, 1], kmax)]
+            # principal curvatures: the two eigenvalues of the shape operator S = P H P / |∇φ|
+            # (P = I − n nᵀ) other than its exact zero along n, from its invariants:
+            # k1 + k2 = tr S, k1 k2 = (tr(S)² − tr(S²)) / 2 (Goldman, Comput. Aided Geom. Des.
+            # 22 (2005) 632-658, for curvatures of implicit surfaces)
+            n = grad / gnorm
+            ph = hess - n[:, None, :] * np.einsum("jl,ijl->il", n, hess)[None, :, :]  # P H, (3, 3, L)
+            hn = np.einsum("ijl,jl->il", ph, n)  # (P H) n
+            shape_op = (ph - hn[:, None, :] * n[None, :, :]) / gnorm  # P H P / |∇φ|
+            trace = shape_op[0, 0] + shape_op[1, 1] + shape_op[2, 2]
+            square = np.einsum("ijl,jil->l", shape_op, shape_op)
+            gap = np.sqrt(np.maximum(2.0 * square - trace * trace, 0.0))  # (k1 − k2)² = 2 tr(S²) − tr(S)²
+            k_x = [_clip(0.5 * (trace + gap), kmax), _clip(0.5 * (trace - gap), kmax)]
         total = None
         denom_min = None
         for k in k_x:
