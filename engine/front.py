@@ -631,7 +631,7 @@ class Front:
                 interp, coeffs = self._scattered_interpolant(nodes, approx, near_front)
             near_dist, nearest = cKDTree(starts).query(positions[todo], workers=TREE_WORKERS)
             # nodes farther than the band from every zero crossing are dropped below
-            reach = near_dist <= width + 2.0 * float(np.max(self.step_mm))
+            reach = near_dist <= width + 0.5 * float(np.max(self.step_mm))
             phi[todo[~reach]] = np.where(approx[todo[~reach]] < 0, -1.0, 1.0) * 2.0 * width
             todo, nearest = todo[reach], nearest[reach]
             if len(todo):
