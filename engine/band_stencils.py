@@ -137,9 +137,32 @@ def _weights_on(offsets: NDArray[np.int64], step: NDArray[np.floating], ops: lis
 
 def band_stencil(step: ArrayLike, *, stencil_size: int | None = None, degree: int = 4, phs: int = 5,
                  upwind_degree: int = 2) -> BandStencil:
-    """Weights of the band's operators for lattice step ``step`` (mm); cached per settings."""
-    h = tuple(float(v) for v in np.asarray(step, dtype=float).reshape(-1))
-    return _band_stencil_cached(h, stencil_size, degree, phs, upwind_degree)
+    """Weights of the band's operators for lattice step ``step`` (mm); cached per settings and shape of the step.
+
+    Polyharmonic splines with polynomials are scale-covariant: on the step
+    m·h the weights of a derivative of order k are those on h times m^(−k)
+    (the sixth-order hyperviscosity's m^(−6)), the damping γ scales as m⁴
+    and the spectral radius as m^(−2). So the weights are solved once for
+    the step divided by its smallest entry and rescaled (a coarse start at
+    2 mm reuses the 1 mm stencil instead of scanning its symbols again).
+    """
+    h = np.asarray(step, dtype=float).reshape(-1)
+    m = float(np.min(h))
+    base = _band_stencil_cached(tuple(float(v) for v in h / m), stencil_size, degree, phs, upwind_degree)
+    if m == 1.0:
+        return base
+    orders = np.array([_operator_order(lab) for lab in base.labels], dtype=float)
+    return BandStencil(base.offsets, base.weights * m ** -orders[None, :], base.labels, base.reach,
+                       base.damping * m**4, base.spectral_radius / m**2)
+
+
+def _operator_order(label: str) -> int:
+    """Derivative order of a band stencil column: d0 → 1, d01 → 2, b0/f0 → 1, hv → 2·HYPERVISCOSITY_POWER."""
+    if label == "hv":
+        return 2 * HYPERVISCOSITY_POWER
+    if label.startswith("d"):
+        return len(label) - 1
+    return 1
 
 
 @lru_cache(maxsize=32)

@@ -27,8 +27,9 @@ from scipy import ndimage
 #: resolution, as do the geometric flows (curvature, constant), whose time
 #: scale is the result.
 COARSE_MODELS = ("region", "window")
-#: Smallest side (pixels) of the block-averaged image.
-MIN_COARSE_SIDE = 96
+#: Smallest side (pixels) of the block-averaged image, by dimension: a 48³
+#: block mean holds as many voxels as a 330² image holds pixels.
+MIN_COARSE_SIDE = {2: 96, 3: 48}
 #: Smallest seed radius on the coarse image (coarse pixels): the band
 #: stencils must fit inside the seed.
 MIN_COARSE_SEED = 4.0
@@ -49,13 +50,13 @@ def coarse_factor(shape: tuple[int, ...], seeds: NDArray[np.floating] | None, mo
     The largest power of two keeping the coarse image at least
     ``MIN_COARSE_SIDE`` pixels on its shortest side and the smallest seed at
     least ``MIN_COARSE_SEED`` coarse pixels in radius (``seeds`` None: the
-    image alone decides). 2-D images only.
+    image alone decides). 2-D images and 3-D volumes.
     """
-    if len(shape) != 2 or model not in COARSE_MODELS:
+    if len(shape) not in MIN_COARSE_SIDE or model not in COARSE_MODELS:
         return 1
     smallest_seed = np.inf if seeds is None else float(np.min(np.asarray(seeds, dtype=float)[:, -1]))
     factor = 1
-    while (factor * 2 <= MAX_FACTOR and min(shape) / (factor * 2) >= MIN_COARSE_SIDE
+    while (factor * 2 <= MAX_FACTOR and min(shape) / (factor * 2) >= MIN_COARSE_SIDE[len(shape)]
            and smallest_seed / (factor * 2) >= MIN_COARSE_SEED):
         factor *= 2
     return factor

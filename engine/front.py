@@ -74,9 +74,9 @@ from scipy.spatial import cKDTree
 from engine.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
 from engine.closest_point import closest_points
 from engine.front_geometry import (
-    ball_offsets,
     crossing_points,
     dilate_nodes,
+    nodes_near,
     seed_disks,
     seed_function,
     stroke_distance,
@@ -580,15 +580,8 @@ class Front:
         if self.node_set is not None:
             return self.node_set.nodes_near(starts_mm, radius_mm + float(np.max(self.step_mm)))
         upper = (np.array(self.shape) - 1) * self.detail
-        dims = upper + 1
         centre = np.clip(np.rint(starts_mm / self.step_mm).astype(np.int64), 0, upper)
-        centre_keys = np.unique(np.ravel_multi_index(tuple(centre.T), tuple(dims)))
-        centre = np.stack(np.unravel_index(centre_keys, tuple(dims)), axis=1)
-        offsets = ball_offsets(self.step_mm, radius_mm + float(np.max(self.step_mm)))
-        nodes = (centre[:, None, :] + offsets[None, :, :]).reshape(-1, self.ndim)
-        nodes = nodes[np.all((nodes >= 0) & (nodes <= upper), axis=1)]
-        keys = np.unique(np.ravel_multi_index(tuple(nodes.T), tuple(dims)))
-        return np.stack(np.unravel_index(keys, tuple(dims)), axis=1).astype(np.int64)
+        return nodes_near(centre, self.step_mm, radius_mm + float(np.max(self.step_mm)), upper)
 
     def _build_band(self, starts_mm: NDArray[np.floating],
                     values_at: Callable[[NDArray[np.int64]], NDArray[np.floating]], *,

@@ -109,8 +109,6 @@ def segment(
         if _grow_until(front, seeds_arr, MIN_COARSE_SEED * target * float(np.max(sp)), budget, progress):
             factor = target
     if factor > 1:
-        if img.ndim != 2:
-            raise ValueError("coarse start is for 2-D images; use coarse=1")
         small = block_mean(img, factor)
         small_seeds = coarse_seeds(seeds_arr, factor)
         tol = params.get("convergence_tol", FrontParams().convergence_tol)

@@ -231,3 +231,18 @@ def test_symmetric_offsets_are_symmetric() -> None:
 def test_bad_input_raises_clear_value_error(kwargs: dict, message: str) -> None:
     with pytest.raises(ValueError, match=message):
         operator_matrix(**kwargs)
+
+
+@pytest.mark.parametrize("step", [(2.0, 2.0), (0.7, 1.3), (2.0, 2.0, 2.0), (0.5, 0.9, 2.5)])
+def test_band_stencil_rescaled_from_the_unit_step_equals_a_direct_solve(step: tuple[float, ...]) -> None:
+    # Polyharmonic-spline + polynomial RBF-FD weights are scale-covariant
+    # (Flyer, Fornberg, Bayona & Barnett, J. Comput. Phys. 321 (2016) 21-38):
+    # the rescaled stencil must equal the one solved on the step itself.
+    from engine.band_stencils import _make_band_stencil, band_stencil
+
+    direct = _make_band_stencil(step)
+    scaled = band_stencil(step)
+    assert np.array_equal(scaled.offsets, direct.offsets) and scaled.labels == direct.labels
+    np.testing.assert_allclose(scaled.weights, direct.weights, rtol=1e-9, atol=1e-12 * np.abs(direct.weights).max())
+    assert scaled.damping == pytest.approx(direct.damping, rel=1e-9)
+    assert scaled.spectral_radius == pytest.approx(direct.spectral_radius, rel=1e-9)

@@ -1,0 +1,35 @@
+"""Band candidates: lattice nodes within a distance of a set of centre nodes."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.spatial import cKDTree
+
+import engine.front_geometry as front_geometry
+from engine.front_geometry import nodes_near
+
+
+def reference(centres: np.ndarray, step: np.ndarray, radius: float, upper: np.ndarray) -> np.ndarray:
+    """Every lattice node in [0, upper] whose nearest centre is within ``radius`` mm (scipy's k-d tree)."""
+    grid = np.indices(tuple(upper + 1)).reshape(len(upper), -1).T
+    dist, _ = cKDTree(centres * step).query(grid * step)
+    return grid[dist <= radius]
+
+
+@pytest.mark.parametrize("step", [(0.7, 1.3), (0.5, 0.5), (1.0, 0.8, 2.5), (1.0, 1.0, 1.0)])
+@pytest.mark.parametrize("radius", [0.0, 1.05, 3.31, 7.23])
+@pytest.mark.parametrize("dense", [True, False])
+def test_nodes_near_matches_a_kd_tree(step: tuple[float, ...], radius: float, dense: bool,
+                                      monkeypatch: pytest.MonkeyPatch) -> None:
+    # Distances from scipy.spatial.cKDTree (a general-purpose reference);
+    # radii chosen off the lattice's exact distances, so no node sits on a tie.
+    if not dense:  # the ball-offset fallback for boxes beyond the dense limit, in small chunks
+        monkeypatch.setattr(front_geometry, "DENSE_DISTANCE_LIMIT", 10)
+        monkeypatch.setattr(front_geometry, "BALL_CHUNK", 7)
+    step_arr = np.array(step)
+    upper = np.array([40, 47, 23][:len(step)])
+    centres = np.random.default_rng(len(step)).integers(0, upper + 1, size=(30, len(step)))
+    got = nodes_near(centres, step_arr, radius, upper)
+    want = reference(centres, step_arr, radius, upper)
+    assert np.array_equal(got, want)  # same nodes, same row-major order
