@@ -21,12 +21,9 @@ def ball_offsets(step: NDArray[np.floating], radius: float) -> NDArray[np.int64]
     return grid[keep].astype(np.int64)
 
 
-#: Largest bounding box (nodes) in which :func:`nodes_near` measures distances
-#: on a dense grid (a Euclidean distance transform); larger boxes take ball
-#: offsets around chunks of the centres.
+#: Largest grid (nodes) on which :func:`nodes_near` runs one distance
+#: transform; larger bounding boxes are cut into slabs along the first axis.
 DENSE_DISTANCE_LIMIT = 1 << 24
-#: Centres per chunk of the ball-offset fallback of :func:`nodes_near`.
-BALL_CHUNK = 4096
 
 
 def nodes_near(centres: NDArray[np.int64], step: NDArray[np.floating], radius: float,
@@ -34,35 +31,40 @@ def nodes_near(centres: NDArray[np.int64], step: NDArray[np.floating], radius: f
     """Lattice nodes within ``radius`` (mm) of any of the lattice nodes ``centres``, clipped to [0, upper].
 
     The union of the balls :func:`ball_offsets` around every centre, in
-    row-major order without duplicates. Within a bounding box of up to
-    DENSE_DISTANCE_LIMIT nodes it comes from one exact Euclidean distance
-    transform (Maurer, Qi & Raghavan, IEEE Trans. PAMI 25(2) (2003) 265-270,
-    as scipy implements it), not from a ball of offsets per centre (in 3-D
-    thousands of offsets times tens of thousands of centres).
+    row-major order without duplicates, from exact Euclidean distance
+    transforms (Maurer, Qi & Raghavan, IEEE Trans. PAMI 25(2) (2003) 265-270,
+    as scipy implements it) rather than a ball of offsets per centre (in 3-D
+    thousands of offsets times tens of thousands of centres). A bounding box
+    beyond DENSE_DISTANCE_LIMIT nodes is done in slabs along the first axis,
+    each with the centres within ``radius`` of it.
     """
     idx = np.asarray(centres, dtype=np.int64)
     step = np.asarray(step, dtype=float)
     upper = np.asarray(upper, dtype=np.int64)
-    dim = idx.shape[1]
     if len(idx) == 0:
-        return np.zeros((0, dim), dtype=np.int64)
+        return np.zeros((0, idx.shape[1]), dtype=np.int64)
     pad = np.floor(radius / step).astype(np.int64)
     low = np.maximum(idx.min(axis=0) - pad, 0)
     high = np.minimum(idx.max(axis=0) + pad, upper)
-    shape = tuple(int(v) for v in high - low + 1)
-    if int(np.prod(shape)) <= DENSE_DISTANCE_LIMIT:
-        free = np.ones(shape, dtype=bool)
-        free[tuple((idx - low).T)] = False
+    across = int(np.prod(high[1:] - low[1:] + 1))
+    thickness = max(1, DENSE_DISTANCE_LIMIT // across - 2 * int(pad[0]))
+    order = np.argsort(idx[:, 0], kind="stable")
+    first = idx[order, 0]
+    found = []
+    for a in range(int(low[0]), int(high[0]) + 1, thickness):
+        b = min(a + thickness, int(high[0]) + 1)  # this slab's nodes: a <= i0 < b
+        lo, hi = np.searchsorted(first, [a - pad[0], b + pad[0]])
+        near = idx[order[lo:hi]]
+        if len(near) == 0:
+            continue
+        box_low = np.concatenate([[max(a - int(pad[0]), 0)], low[1:]])
+        box_high = np.concatenate([[min(b - 1 + int(pad[0]), int(upper[0]))], high[1:]])
+        free = np.ones(tuple(int(v) for v in box_high - box_low + 1), dtype=bool)
+        free[tuple((near - box_low).T)] = False
         dist = ndimage.distance_transform_edt(free, sampling=step)
-        return np.argwhere(dist <= radius) + low
-    dims = tuple(int(u) + 1 for u in upper)
-    offsets = ball_offsets(step, radius)
-    keys = np.zeros(0, dtype=np.int64)
-    for start in range(0, len(idx), BALL_CHUNK):
-        nodes = (idx[start:start + BALL_CHUNK, None, :] + offsets[None, :, :]).reshape(-1, dim)
-        nodes = nodes[np.all((nodes >= 0) & (nodes <= upper), axis=1)]
-        keys = np.union1d(keys, np.ravel_multi_index(tuple(nodes.T), dims))
-    return np.stack(np.unravel_index(keys, dims), axis=1).astype(np.int64)
+        nodes = np.argwhere(dist <= radius) + box_low
+        found.append(nodes[(nodes[:, 0] >= a) & (nodes[:, 0] < b)])
+    return np.concatenate(found) if found else np.zeros((0, idx.shape[1]), dtype=np.int64)
 
 
 #: Largest bounding box (nodes) that :func:`dilate_nodes` grows as a dense

@@ -24,9 +24,8 @@ def test_nodes_near_matches_a_kd_tree(step: tuple[float, ...], radius: float, de
                                       monkeypatch: pytest.MonkeyPatch) -> None:
     # Distances from scipy.spatial.cKDTree (a general-purpose reference);
     # radii chosen off the lattice's exact distances, so no node sits on a tie.
-    if not dense:  # the ball-offset fallback for boxes beyond the dense limit, in small chunks
-        monkeypatch.setattr(front_geometry, "DENSE_DISTANCE_LIMIT", 10)
-        monkeypatch.setattr(front_geometry, "BALL_CHUNK", 7)
+    if not dense:  # boxes beyond the dense limit go in slabs (here a few nodes thick)
+        monkeypatch.setattr(front_geometry, "DENSE_DISTANCE_LIMIT", 5000)
     step_arr = np.array(step)
     upper = np.array([40, 47, 23][:len(step)])
     centres = np.random.default_rng(len(step)).integers(0, upper + 1, size=(30, len(step)))
