@@ -54,6 +54,10 @@ is within a few pixels of the truth.
 
 Ratios (targets from issue 3): time ours / faster of 2 and 3 (≤ 1.0 must,
 ≤ 0.1 aim), Dice ours vs each (≥), boundary error ours / each (≤ 1/3).
+A last table averages each outline's signed error along the outline over
+L px: with noise the error is noise correlated over a few pixels, so the
+table shows how long a stretch an outline would have to be smoothed over
+to reach a given figure.
 """
 
 from __future__ import annotations
@@ -73,7 +77,7 @@ except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from bench_front_scaling import NOISE_SIGMA, blas_threads, blob_boundary, make_phantom  # noqa: E402
+from bench_front_scaling import NOISE_SIGMA, blas_threads, blob_boundary, blob_level, make_phantom  # noqa: E402
 
 from engine.metrics import dice, surface_distances  # noqa: E402
 from engine.segment import segment  # noqa: E402
@@ -95,6 +99,25 @@ def outline_rms(lines: list[np.ndarray], boundary_tree: cKDTree) -> float:
         return float("inf")
     d, _ = boundary_tree.query(np.concatenate(lines))
     return float(np.sqrt(np.mean(d**2)))
+
+
+def averaged_error(lines: list[np.ndarray], boundary_tree: cKDTree, length_px: float) -> float:
+    """RMS of the signed outline error after a moving average over ``length_px`` of outline (longest line).
+
+    Shows how far along the outline its error is correlated: noise that is
+    independent from pixel to pixel falls as 1/√length, a slowly varying
+    error (a bias, or noise smoothed over a long stretch) stays.
+    """
+    from scipy.ndimage import uniform_filter1d
+
+    if not lines:
+        return float("inf")
+    line = max(lines, key=len)
+    d, _ = boundary_tree.query(line)
+    signed = d * np.sign(blob_level(line[:, 0], line[:, 1], SIDE))
+    spacing = float(np.mean(np.linalg.norm(np.diff(line, axis=0), axis=1)))
+    window = max(1, int(round(length_px / spacing)) | 1)
+    return float(np.sqrt(np.mean(uniform_filter1d(signed, window, mode="wrap") ** 2)))
 
 
 def mask_contours(field: np.ndarray, level: float) -> list[np.ndarray]:
@@ -241,6 +264,12 @@ def main() -> None:
         print(f"  vs #{i} {r['name']:<26} time {ours['wall'] / r['wall']:6.2f}   Dice {ours['dice']:.5f} vs "
               f"{r['dice']:.5f} ({'≥' if ours['dice'] >= r['dice'] else '<'})   boundary error "
               f"{ours['orms'] / r['orms']:5.2f} (target ≤ 0.33)   mask surface RMS {brms:5.2f}")
+    lengths = (1.0, 4.0, 8.0, 16.0, 24.0)
+    print("\nboundary error (px) after averaging the signed error along the outline over L px "
+          "(how far it is correlated; what smoothing along the outline could reach)")
+    print(f"{'#':>2} {'method':<26}" + "".join(f"{'L = ' + format(v, 'g'):>10}" for v in lengths))
+    for i, r in enumerate(runs, start=1):
+        print(f"{i:>2} {r['name']:<26}" + "".join(f"{averaged_error(r['lines'], tree, v):>10.3f}" for v in lengths))
 
 
 if __name__ == "__main__":
