@@ -76,6 +76,7 @@ from engine.closest_point import closest_points
 from engine.front_geometry import (
     crossing_points,
     dilate_nodes,
+    grid_crossing_points,
     nodes_near,
     seed_disks,
     seed_function,
@@ -523,8 +524,7 @@ class Front:
                     estimate_window: bool = False) -> None:
         """Band around the zero set of ``oracle`` (values at points in mm); optionally estimate the window."""
         sp = self.features.spacing
-        grid = np.indices(self.shape).reshape(self.ndim, -1).T
-        pixel_values = oracle(grid * sp).reshape(self.shape)
+        pixel_values = _pixel_values(oracle, self.shape, sp)
         self._inside = pixel_values < 0
         if not self._inside.any():
             raise ValueError("the initial front is empty: no pixel centre lies inside it")
@@ -535,8 +535,7 @@ class Front:
             self.params = self.params.updated(window=estimate_window_from_mask(self.features.smoothed, region))
         self._noise = robust_std(self.features.smoothed[self._inside])
         self._reset_sums()
-        pixel_lookup_values = pixel_values.reshape(-1)
-        starts = crossing_points(grid, pixel_lookup_values, sp)
+        starts = grid_crossing_points(pixel_values, sp)
         if len(starts) == 0:
             raise ValueError("the initial front has no boundary inside the image")
 
@@ -1774,6 +1773,23 @@ class Front:
 def _clip(x: NDArray[np.floating], bound: float) -> NDArray[np.floating]:
     """x limited to [−bound, bound] (np.clip without its per-call overhead, which shows at every RKL2 stage)."""
     return np.minimum(np.maximum(x, -bound, out=x), bound, out=x)
+
+
+#: Pixels per call of an initial front's function in :func:`_pixel_values`.
+PIXEL_CHUNK = 1 << 21
+
+
+def _pixel_values(oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], shape: tuple[int, ...],
+                  spacing: NDArray[np.floating]) -> NDArray[np.floating]:
+    """``oracle`` at every pixel centre, slab by slab along the first axis (bounded memory on large volumes)."""
+    out = np.empty(shape)
+    rows = max(1, PIXEL_CHUNK // int(np.prod(shape[1:])))
+    for start in range(0, shape[0], rows):
+        stop = min(start + rows, shape[0])
+        grid = np.indices((stop - start,) + tuple(shape[1:])).reshape(len(shape), -1).T
+        grid[:, 0] += start
+        out[start:stop] = np.asarray(oracle(grid * spacing), dtype=float).reshape((stop - start,) + tuple(shape[1:]))
+    return out
 
 
 def _sum_rows(values: NDArray[np.floating]) -> NDArray[np.floating]:

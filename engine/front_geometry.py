@@ -137,6 +137,26 @@ def crossing_points(indices: NDArray[np.int64], values: NDArray[np.floating], st
     return np.concatenate(out) if out else np.empty((0, dim))
 
 
+def grid_crossing_points(values: NDArray[np.floating], step: NDArray[np.floating]) -> NDArray[np.floating]:
+    """:func:`crossing_points` of values on a whole pixel grid (shape = the image's), without a lookup.
+
+    The same points in the same order (row-major per axis), from slices of
+    the grid: a lookup of every pixel's neighbours cost 15 s on a
+    120 × 512 × 512 volume.
+    """
+    v = np.asarray(values, dtype=float)
+    out = []
+    for axis in range(v.ndim):
+        head = v[(slice(None),) * axis + (slice(0, -1),)]
+        tail = v[(slice(None),) * axis + (slice(1, None),)]
+        change = (head < 0) != (tail < 0)
+        va, vb = head[change], tail[change]
+        pts = np.argwhere(change).astype(float)
+        pts[:, axis] += va / (va - vb)
+        out.append(pts * step)
+    return np.concatenate(out) if out else np.empty((0, v.ndim))
+
+
 def seed_function(seeds: NDArray[np.floating], spacing: NDArray[np.floating]) -> Callable[[NDArray[np.floating]], NDArray[np.floating]]:
     """φ of a union of seed disks/balls, min_k(|x − c_k| − r_k), in mm.
 
@@ -182,9 +202,16 @@ def stroke_distance(points_mm: NDArray[np.floating], stroke_mm: NDArray[np.float
 
 def seed_disks(shape: tuple[int, ...], seeds: NDArray[np.floating]) -> NDArray[np.bool_]:
     """Pixels whose centre lies inside any seed disk ``(..., radius_px)`` (radius at least one pixel)."""
-    grid = np.indices(shape, dtype=float)
     inside = np.zeros(shape, dtype=bool)
     for seed in np.asarray(seeds, dtype=float):
-        d2 = sum((grid[i] - seed[i]) ** 2 for i in range(len(shape)))
-        inside |= d2 <= max(seed[-1], 1.0) ** 2
+        radius = max(seed[-1], 1.0)
+        # only the seed's bounding box (a whole-volume coordinate grid is gigabytes)
+        low = np.maximum(np.floor(seed[:-1] - radius).astype(np.int64), 0)
+        high = np.minimum(np.ceil(seed[:-1] + radius).astype(np.int64), np.array(shape) - 1)
+        if np.any(high < low):
+            continue
+        axes = np.ogrid[tuple(slice(lo, hi + 1) for lo, hi in zip(low, high))]
+        d2 = sum((axes[i] - seed[i]) ** 2 for i in range(len(shape)))
+        box = tuple(slice(lo, hi + 1) for lo, hi in zip(low, high))
+        inside[box] |= d2 <= radius**2
     return inside
