@@ -210,8 +210,7 @@ def seed_disks(shape: tuple[int, ...], seeds: NDArray[np.floating]) -> NDArray[n
         high = np.minimum(np.ceil(seed[:-1] + radius).astype(np.int64), np.array(shape) - 1)
         if np.any(high < low):
             continue
-        axes = np.ogrid[tuple(slice(lo, hi + 1) for lo, hi in zip(low, high))]
-        d2 = sum((axes[i] - seed[i]) ** 2 for i in range(len(shape)))
         box = tuple(slice(lo, hi + 1) for lo, hi in zip(low, high))
+        d2 = sum((axis - centre) ** 2 for axis, centre in zip(np.ogrid[box], seed[:-1]))
         inside[box] |= d2 <= radius**2
     return inside

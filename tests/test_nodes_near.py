@@ -1,4 +1,4 @@
-"""Band candidates: lattice nodes within a distance of a set of centre nodes."""
+"""Band candidates (lattice nodes within a distance of centre nodes) and zero crossings on a whole grid."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import pytest
 from scipy.spatial import cKDTree
 
 import engine.front_geometry as front_geometry
-from engine.front_geometry import nodes_near
+from engine.front_geometry import crossing_points, grid_crossing_points, nodes_near
 
 
 def reference(centres: np.ndarray, step: np.ndarray, radius: float, upper: np.ndarray) -> np.ndarray:
@@ -32,3 +32,14 @@ def test_nodes_near_matches_a_kd_tree(step: tuple[float, ...], radius: float, de
     got = nodes_near(centres, step_arr, radius, upper)
     want = reference(centres, step_arr, radius, upper)
     assert np.array_equal(got, want)  # same nodes, same row-major order
+
+
+@pytest.mark.parametrize("shape, step", [((23, 31), (0.7, 1.3)), ((9, 14, 11), (2.0, 0.8, 0.8))])
+def test_grid_crossings_equal_the_lookup_based_crossings(shape: tuple[int, ...], step: tuple[float, ...]) -> None:
+    # The grid version promises the same points in the same order as
+    # crossing_points on every pixel (its lookup-based definition).
+    values = np.random.default_rng(len(shape)).normal(size=shape)
+    grid = np.indices(shape).reshape(len(shape), -1).T
+    want = crossing_points(grid, values.reshape(-1), np.array(step))
+    got = grid_crossing_points(values, np.array(step))
+    assert len(want) > 50 and np.array_equal(got, want)
