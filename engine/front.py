@@ -20,7 +20,9 @@ all level sets in the band move together and φ stays a signed distance. The
 nodes at the band's edge, whose stencil is incomplete, take the rate of the
 node nearest to their closest point on the front; that node's stencil never
 reaches the edge, so there is no feedback loop, the whole band moves as one
-and no kink forms at its edge.
+and no kink forms at its edge. The image speed at the layer is averaged
+along the outline (``outline_averaging``, :mod:`engine.outline_averaging`):
+noise is pooled along the boundary, not blurred across it.
 The time step lets the front move at most ``cfl`` node spacings and the
 number of RKL2 stages grows with √(dt / dt_Euler) to keep the stiff
 curvature term stable, so fine detail does not force tiny steps
@@ -86,6 +88,7 @@ from engine.image_features import ImageFeatures, compute_features
 from engine.interpolant import LocalInterpolant
 from engine.lattice import LatticeLookup, symmetric_offsets
 from engine.node_set import ScatteredNodeSet, operator_labels
+from engine.outline_averaging import average_along_outline
 from engine.rbffd import assemble
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
 from engine.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
@@ -227,6 +230,7 @@ class _Band:
     step_weights: NDArray[np.floating] | None = None  # scattered: (A, W, 3d + 1) weights in step_labels order
     layer_operators: tuple[NDArray[np.int64], NDArray[np.floating] | None] | None = None  # see _layer_derivatives
     layer_parts: tuple[NDArray[np.int64], int] | None = None  # see _layer_parts
+    layer_pairs: NDArray[np.int64] | None = None  # see _layer_pairs
 
 
 @dataclass
@@ -806,6 +810,10 @@ class Front:
         """Update the pixel inside image (and the region sums) at pixel-centre band nodes."""
         b = self._band
         now = self._pixel_band_values() < 0
+        if self._barrier is not None and self.node_set is not None:
+            # scattered nodes: a pixel's φ is interpolated from nodes on both sides
+            # of a barrier's rim, so the barrier is also held on the pixels
+            now &= ~self._barrier[b.pixel_index]
         before = self._inside[b.pixel_index]
         changed = np.flatnonzero(now != before)
         if len(changed) == 0:
@@ -987,6 +995,11 @@ class Front:
             if name == "edge_gradient":
                 sampled[name] = np.stack([self.features.sample(f"edge_gradient{i}", px)
                                           for i in range(self.ndim)], axis=1)
+            elif name == "smoothed" and self.params.model == "region":
+                # the region model reads the image itself at the outline: its noise is
+                # pooled along the outline (outline_averaging), not blurred across the
+                # edge; the window model keeps the smoothed image its window is estimated on
+                sampled[name] = self.features.sample("image", px)
             else:
                 sampled[name] = self.features.sample(name, px)
         normals = np.concatenate([normal, normal, normal])
@@ -996,7 +1009,16 @@ class Front:
                            sigma_mm=self.features.sigma_mm, count=3 * count)
         v = all3.normal.reshape(3, count)
         a = all3.curvature[:count] if np.ndim(all3.curvature) else all3.curvature
-        return NodeSpeeds(v[0], a * self._part_scales(closest_mm, normal), slope=(v[2] - v[1]) / (2.0 * half))
+        speed, slope = v[0], (v[2] - v[1]) / (2.0 * half)
+        if self.params.outline_averaging > 0:
+            # nodes where φ has flattened (|∇φ| < ½, e.g. inside a small structure
+            # long after its last reinitialisation) have no reliable closest point:
+            # a zero normal leaves them out of the average
+            trusted = np.where(((g2 >= 0.25) & ~b.barrier[act] & ~b.frozen[act])[:, None], normal, 0.0)
+            averaged = average_along_outline(np.column_stack([speed, slope]), b.positions[act],
+                                             self._layer_pairs(), trusted, self.params.outline_averaging)
+            speed, slope = averaged[:, 0], averaged[:, 1]
+        return NodeSpeeds(speed, a * self._part_scales(closest_mm, normal), slope=slope)
 
     @property
     def smoothness_scale(self) -> float:
@@ -1037,18 +1059,26 @@ class Front:
         """min(1, |ρ| / ((d − 1)·SMALL_STRUCTURE)) for mean radius ρ (mm)."""
         return np.minimum(1.0, np.abs(radius) / (SMALL_STRUCTURE * (self.ndim - 1)))
 
-    def _layer_parts(self) -> tuple[NDArray[np.int64], int]:
-        """Connected parts of the layer (one per closed outline: each structure, each hole), per layer node."""
+    def _layer_pairs(self) -> NDArray[np.int64]:
+        """Neighbouring layer nodes (E, 2), indices into the layer: lattice neighbours along axes and face diagonals."""
         b = self._band
-        if b.layer_parts is None:
+        if b.layer_pairs is None:
             nodes = b.active[b.layer]
             if self.node_set is None:
                 spacing = float(np.max(self.step_mm))
             else:
                 spacing = float(np.max(b.spacing[nodes]))
             # lattice neighbours along axes and face diagonals are within 1.5 spacings
-            pairs = cKDTree(b.positions[nodes]).query_pairs(1.5 * spacing, output_type="ndarray")
-            graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(len(nodes), len(nodes)))
+            b.layer_pairs = cKDTree(b.positions[nodes]).query_pairs(1.5 * spacing, output_type="ndarray")
+        return b.layer_pairs
+
+    def _layer_parts(self) -> tuple[NDArray[np.int64], int]:
+        """Connected parts of the layer (one per closed outline: each structure, each hole), per layer node."""
+        b = self._band
+        if b.layer_parts is None:
+            size = len(b.layer)
+            pairs = self._layer_pairs()
+            graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(size, size))
             count, labels = connected_components(graph, directed=False)
             b.layer_parts = (labels.astype(np.int64), int(count))
         return b.layer_parts
@@ -1274,7 +1304,7 @@ class Front:
             self._vanish()
             return
         b.layer_phi = self._phi[b.active[b.layer]]
-        b.layer_operators = b.layer_parts = None
+        b.layer_operators = b.layer_parts = b.layer_pairs = None
         if self.params.model == "region":
             self._update_local_statistics()
 
@@ -1760,7 +1790,7 @@ class Front:
         if snap.layer:
             (self._band.layer, self._band.source, self._band.edge_source,
              self._band.layer_phi) = (a.copy() for a in snap.layer)
-            self._band.layer_operators = self._band.layer_parts = None
+            self._band.layer_operators = self._band.layer_parts = self._band.layer_pairs = None
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
         self._since_reinit = snap.since_reinit

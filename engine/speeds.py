@@ -59,6 +59,7 @@ class FrontParams:
     edge_weight: float = 0.0  # region model: 0 = pure region term, 1 = fully gated by g
     window: tuple[float, float] | None = None  # (low, high) for the window model
     local_radius: float | None = None  # mm; region model with local statistics
+    outline_averaging: float = 1.0  # mm; σ of the image speed's average along the outline (0 = none)
     band_width: float = 10.0  # band half-width in node spacings
     stencil_size: int | None = None  # default: 2M in 2-D (30), 1.6M in 3-D (56) for degree 4
     degree: int = 4
@@ -88,6 +89,8 @@ class FrontParams:
             low, high = self.window
             if not (np.isfinite(low) and np.isfinite(high)) or low >= high:
                 raise ValueError(f"window must be (low, high) with low < high, got {self.window!r}")
+        if not (np.isfinite(self.outline_averaging) and self.outline_averaging >= 0):
+            raise ValueError(f"outline_averaging must be >= 0 mm, got {self.outline_averaging!r}")
         if self.local_radius is not None and not self.local_radius > 0:
             raise ValueError(f"local_radius must be > 0 mm, got {self.local_radius}")
         if self.band_width < 8:

@@ -99,7 +99,7 @@ def test_png_in_result_out_with_provenance(tmp_path, png, capsys, monkeypatch):
     monkeypatch.setenv("USER", "tester")
     prefix = tmp_path / "results" / "disk"
     rc = main(["segment", str(png), "--seed", "48,44,5", "--seed", "50,40,3", "--smoothness", "0.3",
-               "--label", "bright disk", "--out", str(prefix)])
+               "--outline-averaging", "2.5", "--label", "bright disk", "--out", str(prefix)])
     captured = capsys.readouterr()
     assert rc == 0, captured.err
     paths = eio.result_paths(prefix)
@@ -119,12 +119,13 @@ def test_png_in_result_out_with_provenance(tmp_path, png, capsys, monkeypatch):
     (record,) = label["Slices"]
     assert record["Slice"] == 0 and record["Model"] == "region"
     assert record["Parameters"]["smoothness"] == 0.3 and record["Parameters"]["model"] == "region"
+    assert record["Parameters"]["outline_averaging"] == 2.5
     assert record["Seeds"] == [[48.0, 44.0, 5.0], [50.0, 40.0, 3.0]]
     assert record["Steps"] == int(printed(captured.out, "steps"))
     assert {"evolve_s", "wall_s", "load_s"} <= set(record["TimingsS"])
     (entry,) = block["History"]
     assert entry["Action"] == "segment" and entry["Label"] == 1 and entry["Slice"] == 0
-    assert entry["Details"]["settings"] == {"smoothness": 0.3}
+    assert entry["Details"]["settings"] == {"smoothness": 0.3, "outline_averaging": 2.5}
     assert entry["Details"]["coarse"] == "auto"
     assert entry["Details"]["nodes"] == "lattice"
     assert record["Parameters"]["coarse"] == 1  # a 96² image starts at full resolution
@@ -225,6 +226,8 @@ BAD = {
     "no out": (lambda t, p: [str(p), "--seed", "10,10,3"], "--out"),
     "bad smoothness": (lambda t, p: [str(p), "--seed", "10,10,3", "--smoothness", "-1", "--out", str(t / "o")],
                        "--smoothness"),
+    "bad outline averaging": (lambda t, p: [str(p), "--seed", "10,10,3", "--outline-averaging", "-2",
+                                            "--out", str(t / "o")], "--outline-averaging"),
     "bad detail": (lambda t, p: [str(p), "--seed", "10,10,3", "--detail", "3", "--out", str(t / "o")], "--detail"),
     "bad nodes": (lambda t, p: [str(p), "--seed", "10,10,3", "--nodes", "grid", "--out", str(t / "o")], "--nodes"),
     "coarse with scattered nodes": (lambda t, p: [str(p), "--seed", "10,10,3", "--nodes", "scattered", "--coarse", "2",

@@ -59,6 +59,7 @@ FRONT_FLAGS: dict[str, str] = {
     "drive": "drive",
     "edge_sigma": "edge_sigma",
     "edge_contrast": "edge_contrast",
+    "outline_averaging": "outline_averaging",
 }
 
 _RESULT_SUFFIXES = ("_dseg.nii.gz", "_dseg.json", "_dseg.tsv", ".seg.dcm")
@@ -98,6 +99,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--drive", metavar="X", help="image-driven speed weight")
     parser.add_argument("--edge-sigma", metavar="MM", help="edge scale sigma in mm (>= 0)")
     parser.add_argument("--edge-contrast", metavar="K", help="edge contrast K (> 0; default automatic)")
+    parser.add_argument("--outline-averaging", metavar="MM",
+                        help="sigma in mm of the image speed's average along the outline (>= 0; default 1; "
+                             "larger = steadier on noise, less detail)")
     parser.add_argument("--detail", default="1", metavar="1|2|4", help="nodes per pixel along each axis")
     parser.add_argument("--nodes", default="lattice", metavar="lattice|scattered",
                         help="where the front lives: a lattice (default) or scattered nodes, finer near edges")
@@ -238,6 +242,8 @@ def parse_settings(args: argparse.Namespace) -> Settings:
         params["edge_sigma"] = _number(args.edge_sigma, "--edge-sigma", minimum=0.0)
     if args.edge_contrast is not None:
         params["edge_contrast"] = _number(args.edge_contrast, "--edge-contrast", minimum=0.0, strict=True)
+    if args.outline_averaging is not None:
+        params["outline_averaging"] = _number(args.outline_averaging, "--outline-averaging", minimum=0.0)
     detail = _integer(args.detail, "--detail", minimum=1)
     if detail not in (1, 2, 4):
         raise UsageError(f"--detail {args.detail!r}: must be 1, 2 or 4")
