@@ -995,10 +995,11 @@ class Front:
             if name == "edge_gradient":
                 sampled[name] = np.stack([self.features.sample(f"edge_gradient{i}", px)
                                           for i in range(self.ndim)], axis=1)
-            elif name == "smoothed" and self.params.model == "region":
+            elif name == "smoothed" and self.params.model == "region" and self.params.outline_averaging > 0:
                 # the region model reads the image itself at the outline: its noise is
-                # pooled along the outline (outline_averaging), not blurred across the
-                # edge; the window model keeps the smoothed image its window is estimated on
+                # pooled along the outline, not blurred across the edge (without
+                # averaging it reads the smoothed image; the window model always
+                # does: its window is estimated on it)
                 sampled[name] = self.features.sample("image", px)
             else:
                 sampled[name] = self.features.sample(name, px)

@@ -57,18 +57,22 @@ def average_along_outline(
         return values.copy()
     count = len(positions)
     i, j = pairs[:, 0], pairs[:, 1]
-    aligned = np.einsum("ij,ij->i", normals[i], normals[j]) > MIN_NORMAL_COSINE
+    # per-axis columns: gathering 1-D arrays is cheaper than rows of (L, d) ones
+    n_cols = [np.ascontiguousarray(normals[:, k]) for k in range(normals.shape[1])]
+    aligned = sum(n[i] * n[j] for n in n_cols) > MIN_NORMAL_COSINE
     i, j = i[aligned], j[aligned]
-    diff = positions[j] - positions[i]
+    diff = [np.take(x, j) - np.take(x, i) for x in (np.ascontiguousarray(positions[:, k])
+                                                     for k in range(positions.shape[1]))]
     # tangential part of each link, seen from either end (their mean: symmetric)
-    along_i = np.einsum("ij,ij->i", diff, normals[i])
-    along_j = np.einsum("ij,ij->i", diff, normals[j])
-    tangential = np.maximum(np.einsum("ij,ij->i", diff, diff) - 0.5 * (along_i**2 + along_j**2), 0.0)
+    along_i = sum(dk * n[i] for dk, n in zip(diff, n_cols))
+    along_j = sum(dk * n[j] for dk, n in zip(diff, n_cols))
+    tangential = np.maximum(sum(dk * dk for dk in diff) - 0.5 * (along_i**2 + along_j**2), 0.0)
     degree = 1.0 + np.bincount(i, minlength=count) + np.bincount(j, minlength=count)
     # variance along the outline (summed over its directions) of one step of
-    # the (non-lazy) walk, averaged over the nodes
-    per_node = (np.bincount(i, tangential, minlength=count) + np.bincount(j, tangential, minlength=count)) / degree
-    step_variance = float(np.average(per_node, weights=degree))  # the walk visits nodes in proportion to their degree
+    # the (non-lazy) walk, averaged over the nodes as the walk visits them
+    # (in proportion to their degree)
+    per_node = np.bincount(i, tangential, minlength=count) + np.bincount(j, tangential, minlength=count)
+    step_variance = float(np.sum(per_node) / np.sum(degree))
     if step_variance <= 0:
         return values.copy()
     # σ² along each of the outline's d − 1 directions
@@ -78,9 +82,16 @@ def average_along_outline(
     rows = np.concatenate([i, j])
     cols = np.concatenate([j, i])
     weights = laziness / degree[rows]
-    walk = csr_matrix((weights, (rows, cols)), shape=(count, count))
     stay = 1.0 - laziness * (degree - 1.0) / degree
-    out = values
+    flat = values.reshape(count, -1)
+    if steps * flat.shape[1] <= 8:  # a few products: weighted sums, no matrix to build
+        columns = flat.T.copy()
+        for _ in range(steps):
+            for k, column in enumerate(columns):
+                columns[k] = stay * column + np.bincount(rows, weights * column[cols], minlength=count)
+        return columns.T.reshape(values.shape).copy()
+    walk = csr_matrix((weights, (rows, cols)), shape=(count, count))
+    out = flat
     for _ in range(steps):
-        out = walk @ out + (stay[:, None] * out if out.ndim == 2 else stay * out)
-    return out
+        out = walk @ out + stay[:, None] * out
+    return out.reshape(values.shape)
