@@ -12,9 +12,11 @@ shifts the mid-level crossing of a curved edge by about σ²κ/2).
 The average is the heat kernel of the layer's neighbour graph: k steps of a
 lazy random walk whose tangential variance per step is measured on the
 graph, so that the walk's variance is σ² along the outline (along each of
-its two directions on a surface). A random walk's
-distribution tends to a Gaussian in arc length (central limit theorem); on a
-circle of radius R the mode cos(mθ) is damped by about exp(−m²σ²/(2R²)).
+its two directions on a surface). A random walk's distribution tends to a
+Gaussian in arc length (central limit theorem); on a circle of radius R the
+mode cos(mθ) is damped by about exp(−m²σ²/(2R²)). On a lattice the spread
+depends a little on the outline's direction (the neighbourhoods differ):
+0.9–1.0 σ.
 Neighbours whose normals differ by more than 60° are not connected, so the
 two sides of a thin neck, or of a gap between two structures, are not mixed.
 
