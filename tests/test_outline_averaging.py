@@ -7,6 +7,7 @@ import pytest
 from scipy.spatial import cKDTree
 
 from engine.outline_averaging import average_along_outline
+from partial_volume import partial_volume
 
 
 def ring_layer(radius: float, width: float = 1.2, centre: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
@@ -119,15 +120,6 @@ def test_a_sphere_in_three_dimensions():
 # ---------------------------------------------------------------- on a front
 
 
-def _partial_volume_image(shape: tuple[int, int], level, sub: int = 8) -> np.ndarray:
-    """Area fraction inside ``level < 0`` per pixel (sub × sub samples), pixel centres at integers."""
-    offsets = (np.arange(sub) + 0.5) / sub - 0.5
-    rows = (np.arange(shape[0])[:, None] + offsets).ravel()
-    cols = (np.arange(shape[1])[:, None] + offsets).ravel()
-    inside = level(rows[:, None], cols[None, :]) < 0
-    return inside.reshape(shape[0], sub, shape[1], sub).mean(axis=(1, 3))
-
-
 DISK_CENTRE = np.array([40.3, 41.6])
 DISK_RADIUS = 25.0
 
@@ -135,8 +127,7 @@ DISK_RADIUS = 25.0
 def _disk_radial_errors(noise: float, averaging: float) -> np.ndarray:
     from engine.segment import segment
 
-    image = _partial_volume_image((84, 84), lambda r, c: np.hypot(r - DISK_CENTRE[0], c - DISK_CENTRE[1])
-                                  - DISK_RADIUS)
+    image, _ = partial_volume((84, 84), lambda r, c: np.hypot(r - DISK_CENTRE[0], c - DISK_CENTRE[1]) < DISK_RADIUS)
     image = image + noise * np.random.default_rng(11).standard_normal(image.shape)
     res = segment(image, [(40, 41, 8)], model="region", outline_averaging=averaging)
     assert res.converged
@@ -181,7 +172,7 @@ def test_the_price_is_detail_shorter_than_the_averaging():
     def level(r, col):
         return np.hypot(r - c, col - c) - (40.0 + 3.0 * np.cos(12 * np.arctan2(r - c, col - c)))
 
-    image = 0.6 - 0.4 * _partial_volume_image((160, 160), level)
+    image = 0.6 - 0.4 * partial_volume((160, 160), lambda r, col: level(r, col) < 0)[0]
     theta = np.linspace(0, 2 * np.pi, 20000, endpoint=False)
     rho = 40.0 + 3.0 * np.cos(12 * theta)
     tree = cKDTree(np.column_stack([c + rho * np.sin(theta), c + rho * np.cos(theta)]))

@@ -14,18 +14,8 @@ import pytest
 
 from engine.metrics import dice
 from engine.segment import segment
+from partial_volume import partial_volume
 
-SUB = 8  # sub-samples per axis for the partial-volume phantoms
-
-
-def _partial_volume(shape: tuple[int, ...], inside) -> tuple[np.ndarray, np.ndarray]:
-    """Area (volume) fraction of ``inside`` per pixel from SUB^d sub-samples, and the pixel-centre truth."""
-    grids = np.indices(shape, dtype=float)
-    offsets = (np.arange(SUB) + 0.5) / SUB - 0.5
-    image = np.zeros(shape)
-    for shift in np.array(np.meshgrid(*([offsets] * len(shape)), indexing="ij")).reshape(len(shape), -1).T:
-        image += inside(*(g + s for g, s in zip(grids, shift)))
-    return image / SUB ** len(shape), inside(*grids)
 
 
 @pytest.mark.parametrize("radius", [3.0, 4.0, 6.0])
@@ -35,7 +25,7 @@ def test_small_disk_keeps_its_area(radius: float, noise: float) -> None:
     # (SNR 10). Before the scaling: Dice 0.68 / 0.98 / 0.98 and area ratios
     # 0.56 / 0.92 / 0.96 for R = 3 / 4 / 6.
     centre = np.array([31.3, 32.6])
-    image, truth = _partial_volume((64, 64), lambda r, c: np.hypot(r - centre[0], c - centre[1]) < radius)
+    image, truth = partial_volume((64, 64), lambda r, c: np.hypot(r - centre[0], c - centre[1]) < radius)
     image = image + noise * np.random.default_rng(int(10 * radius)).standard_normal(image.shape)
     res = segment(image, [(centre[0], centre[1], 1.5)], model="region")
     assert res.converged
@@ -52,7 +42,7 @@ def test_small_ellipsoid_keeps_its_volume() -> None:
     def inside(*coords: np.ndarray) -> np.ndarray:
         return sum(((c - m) / a) ** 2 for c, m, a in zip(coords, centre, axes)) < 1.0
 
-    image, truth = _partial_volume((32, 34, 36), inside)
+    image, truth = partial_volume((32, 34, 36), inside)
     image = image + 0.1 * np.random.default_rng(5).standard_normal(image.shape)
     res = segment(image, [(*centre, 2.0)], model="region")
     assert res.converged
@@ -63,7 +53,7 @@ def test_small_ellipsoid_keeps_its_volume() -> None:
 def test_large_structures_keep_the_full_smoothness() -> None:
     # A disk of radius 20 px (mean radius 20 mm at 1 mm pixels) is not small.
     centre = np.array([40.2, 39.7])
-    image, truth = _partial_volume((80, 80), lambda r, c: np.hypot(r - centre[0], c - centre[1]) < 20.0)
+    image, truth = partial_volume((80, 80), lambda r, c: np.hypot(r - centre[0], c - centre[1]) < 20.0)
     res = segment(image, [(centre[0], centre[1], 5.0)], model="region", coarse=1)
     assert res.params["smoothness_scale"] == 1.0
     assert dice(res.mask, truth) >= 0.99
@@ -85,7 +75,7 @@ def test_a_small_part_beside_a_large_one_keeps_its_size(noise: float) -> None:
     def inside(r: np.ndarray, c: np.ndarray) -> np.ndarray:
         return (np.hypot(r - big[0][0], c - big[0][1]) < big[1]) | (np.hypot(r - small[0][0], c - small[0][1]) < small[1])
 
-    image, truth = _partial_volume((80, 110), inside)
+    image, truth = partial_volume((80, 110), inside)
     image = image + noise * np.random.default_rng(3).standard_normal(image.shape)
     res = segment(image, [(*big[0], 6.0), (*small[0], 1.5)], model="region")
     assert res.converged

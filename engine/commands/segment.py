@@ -53,15 +53,6 @@ HELP = "grow a front from seed disks on one slice and save the outline"
 
 PROG = "isotide segment"
 
-#: Settings passed to the front: command-line flag -> FrontParams name.
-FRONT_FLAGS: dict[str, str] = {
-    "smoothness": "smoothness",
-    "drive": "drive",
-    "edge_sigma": "edge_sigma",
-    "edge_contrast": "edge_contrast",
-    "outline_averaging": "outline_averaging",
-}
-
 _RESULT_SUFFIXES = ("_dseg.nii.gz", "_dseg.json", "_dseg.tsv", ".seg.dcm")
 
 
