@@ -114,6 +114,12 @@ MIN_SPEED = 0.25
 #: without one.
 REINIT_DRIFT = 0.05
 REINIT_EVERY = 10
+#: Rebuild and reinitialise between band rebuilds once that percentile has
+#: grown by more than this since the last rebuild (checked every
+#: STATISTICS_EVERY steps): a small structure grown from a smaller seed never
+#: needs a rebuild, and inside it φ flattens (|∇φ| 0.03–0.12 next to the
+#: front of a 3 px disk grown from 1.5 px) where growth lags at the centre.
+FLAT_DRIFT = 0.25
 #: Half-width of an estimated intensity window, in robust standard deviations
 #: of the smoothed intensities inside the seeds: wide enough that the front
 #: does not stop at the first shoulder of a partial-volume edge, narrow
@@ -189,6 +195,7 @@ class FrontSnapshot:
     barrier: NDArray[np.bool_] | None
     local_out: NDArray[np.floating] | None = None
     since_reinit: int = 0
+    rebuild_drift: float = 1.0
     layer: tuple[NDArray, ...] = ()  # layer, source, edge_source and layer_phi of the last refresh
 
     @property
@@ -635,6 +642,7 @@ class Front:
                 phi[todo] = np.where(approx[todo] < 0, -1.0, 1.0) * cp.distance
         keep = np.abs(phi) <= width
         self._install_band(nodes[keep], phi[keep])
+        self._rebuild_drift = self._layer_drift(self._phi)
         self.timings["rebuild"] += _time.perf_counter() - t0
         self.timings["rebuilds"] += 1
 
@@ -1182,6 +1190,7 @@ class Front:
     _lattice_h: float | None = None
     #: (|φ| at the last rebuild, the safe distance, the nodes that were beyond it) for :meth:`_needs_rebuild`
     _far_nodes: tuple[NDArray[np.floating], float, NDArray[np.int64]] | None = None
+    _rebuild_drift: float = 1.0  # the layer's ||∇φ| − 1| percentile right after the last rebuild
     _curvature_gain: float = 1.0
     _last_kappa_max: float = 0.0
     _since_reinit: int = 0
@@ -1281,11 +1290,31 @@ class Front:
             elif self.steps % STATISTICS_EVERY == 0 and self._layer_is_stale():
                 self._refresh_layer()
             self.timings["step"] += _time.perf_counter() - t0
-            if not self._vanished and self._needs_rebuild():
+            if self._vanished:
+                continue
+            needs = self._needs_rebuild()
+            flattened = not needs and self.steps % STATISTICS_EVERY == 0 and self._has_flattened()
+            if needs or flattened:
                 try:
-                    self.rebuild()
+                    self.rebuild(reinitialise=True if flattened else None)
                 except FrontVanished:
                     self._vanish()
+
+    def _layer_drift(self, phi: NDArray[np.floating]) -> float:
+        """90th percentile of ||∇φ| − 1| at the layer nodes (1 when the layer is empty)."""
+        grad = self._layer_derivatives(phi, hessian=False)[0]
+        dev = np.abs(np.sqrt(np.sum(grad * grad, axis=0)) - 1.0)
+        return float(np.percentile(dev, 90)) if len(dev) else 1.0
+
+    def _has_flattened(self) -> bool:
+        """True once φ next to the front is FLAT_DRIFT further from a distance than after the last rebuild.
+
+        The comparison is with the layer's figure right after the last
+        rebuild, and only where that was close to a distance (percentile below
+        FLAT_DRIFT): a front whose geometry keeps |∇φ| away from 1 (a strip
+        thinner than the layer) would otherwise rebuild again and again.
+        """
+        return self._rebuild_drift < FLAT_DRIFT and self._layer_drift(self._phi) > self._rebuild_drift + FLAT_DRIFT
 
     def _layer_is_stale(self) -> bool:
         """True once the front moved LAYER_DRIFT node spacings at some layer node, or every LAYER_IDLE_STEPS steps."""
@@ -1368,10 +1397,7 @@ class Front:
         """
         b = self._band
         if reinitialise is None:
-            grad = self._layer_derivatives(self._phi, hessian=False)[0]
-            dev = np.abs(np.sqrt(np.sum(grad * grad, axis=0)) - 1.0)
-            drift = float(np.percentile(dev, 90)) if len(dev) else 1.0
-            reinitialise = drift > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
+            reinitialise = self._layer_drift(self._phi) > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
         starts = self._crossings(b.indices, self._phi, b.lookup)
         if self.node_set is None:
             # the front moved at most about the rebuild distance: grow the old band by that much
@@ -1767,7 +1793,7 @@ class Front:
                              np.packbits(self._inside.reshape(-1)), tuple(self._sums), self.time, self.steps,
                              self.converged, tuple(self._motion), self.params, self._pins, self._barrier,
                              None if b.local_out is None else b.local_out.copy(), self._since_reinit,
-                             (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()))
+                             self._rebuild_drift, (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()))
 
     def restore(self, snap: FrontSnapshot) -> None:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
@@ -1795,6 +1821,7 @@ class Front:
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
         self._since_reinit = snap.since_reinit
+        self._rebuild_drift = snap.rebuild_drift
         self._vanished = False
         self.time, self.steps, self.converged = snap.time, snap.steps, snap.converged
         self._motion = deque(snap.motion)
