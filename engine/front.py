@@ -1793,7 +1793,8 @@ class Front:
                              np.packbits(self._inside.reshape(-1)), tuple(self._sums), self.time, self.steps,
                              self.converged, tuple(self._motion), self.params, self._pins, self._barrier,
                              None if b.local_out is None else b.local_out.copy(), self._since_reinit,
-                             self._rebuild_drift, (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()))
+                             self._rebuild_drift,
+                             (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()))
 
     def restore(self, snap: FrontSnapshot) -> None:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
