@@ -1,0 +1,31 @@
+"""The Session: one case being outlined, driven alike by the window, the command line, a batch and scripts.
+
+A :class:`Session` holds a study (:class:`engine.io.Volume`), its labels,
+each label's committed :class:`Outline` per slice, the live front, and an
+undo stack on which every change is one command. :meth:`Session.frame` gives
+an immutable picture of the live front for a viewer; :meth:`Session.save`
+writes the result with its provenance record; :func:`open_result` reads one
+back to go on working. No Qt here.
+"""
+
+from engine.session.outline import Outline
+from engine.session.record import label_volume, open_result, provenance_record, save_session
+from engine.session.session import Session, SessionBusy
+from engine.session.settings import FrontSettings
+from engine.session.state import Command, Frame, Label, LiveState, SessionState
+
+__all__ = [
+    "Session",
+    "SessionBusy",
+    "Label",
+    "Outline",
+    "Frame",
+    "Command",
+    "FrontSettings",
+    "LiveState",
+    "SessionState",
+    "open_result",
+    "save_session",
+    "provenance_record",
+    "label_volume",
+]

@@ -1,0 +1,82 @@
+"""The settings a label's fronts are grown with: model, its parameters, detail and step limit."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, fields
+from typing import Any
+
+from engine.speeds import FrontParams
+
+__all__ = ["FrontSettings", "DEFAULT_MAX_STEPS"]
+
+#: Step limit of one front unless set (the same as :func:`engine.segment.segment`'s).
+DEFAULT_MAX_STEPS = 20000
+#: Settings that are not front parameters.
+_RUN_KEYS = ("model", "detail", "max_steps")
+#: Front parameters a user sets (the rest are fixed by the engine or derived).
+_PARAM_KEYS = tuple(f.name for f in fields(FrontParams) if f.name not in ("model", "extra"))
+
+
+def _plain(value: Any) -> Any:
+    return tuple(float(v) for v in value) if isinstance(value, (list, tuple)) else value
+
+
+@dataclass(frozen=True)
+class FrontSettings:
+    """Model, front parameters (only those set), lattice detail and step limit.
+
+    Immutable and hashable; :meth:`updated` validates every change through
+    :class:`engine.speeds.FrontParams`, so a bad value is refused before any
+    front sees it.
+    """
+
+    model: str = "region"
+    params: tuple[tuple[str, Any], ...] = ()
+    detail: int = 1
+    max_steps: int = DEFAULT_MAX_STEPS
+
+    def __post_init__(self) -> None:
+        FrontParams(model=self.model, **dict(self.params))  # validates model and parameters
+        if self.detail not in (1, 2, 4):
+            raise ValueError(f"detail must be 1, 2 or 4, got {self.detail!r}")
+        if isinstance(self.max_steps, bool) or not isinstance(self.max_steps, int) or self.max_steps < 1:
+            raise ValueError(f"max_steps must be a whole number >= 1, got {self.max_steps!r}")
+
+    def updated(self, **changes: Any) -> "FrontSettings":
+        """A copy with ``changes``; ``None`` for a parameter returns it to its default."""
+        unknown = set(changes) - set(_RUN_KEYS) - set(_PARAM_KEYS)
+        if unknown:
+            raise ValueError(f"unknown front setting(s): {', '.join(sorted(unknown))}")
+        params = dict(self.params)
+        for key, value in changes.items():
+            if key in _PARAM_KEYS:
+                if value is None:
+                    params.pop(key, None)
+                else:
+                    params[key] = _plain(value)
+        if changes.get("model", self.model) != "window":
+            params.pop("window", None)
+        return FrontSettings(model=str(changes.get("model", self.model)), params=tuple(sorted(params.items())),
+                             detail=int(changes.get("detail", self.detail)),
+                             max_steps=int(changes.get("max_steps", self.max_steps)))
+
+    @property
+    def front_params(self) -> dict[str, Any]:
+        """Keyword arguments of the front's parameters (without model and detail)."""
+        return dict(self.params)
+
+    def resolved(self) -> FrontParams:
+        """Every parameter's value, defaults included."""
+        return FrontParams(model=self.model, **dict(self.params))
+
+    def as_record(self) -> dict[str, Any]:
+        """Plain values for provenance records and working-session files."""
+        return {"model": self.model, "params": {k: (list(v) if isinstance(v, tuple) else v) for k, v in self.params},
+                "detail": self.detail, "max_steps": self.max_steps}
+
+    @classmethod
+    def from_record(cls, record: Mapping[str, Any]) -> "FrontSettings":
+        params = {k: _plain(v) for k, v in dict(record.get("params", {})).items()}
+        return cls(model=str(record.get("model", "region")), params=tuple(sorted(params.items())),
+                   detail=int(record.get("detail", 1)), max_steps=int(record.get("max_steps", DEFAULT_MAX_STEPS)))
