@@ -1344,11 +1344,14 @@ class Front:
         return self._vanished
 
     def _vanish(self) -> None:
-        """The zero set is gone: everything is inside or nothing is; stepping becomes a no-op."""
+        """The zero set is gone: everything is inside or nothing is; stepping becomes a no-op.
+
+        Not converged: there is no outline left to have come to rest (see :attr:`vanished`).
+        """
         self._inside[:] = bool(np.all(self._phi < 0))
         self._reset_sums()
         self._vanished = True
-        self.converged = True
+        self.converged = False
 
     def _record_motion(self, before: NDArray[np.floating], after: NDArray[np.floating]) -> None:
         """Mean displacement of the front this step, from the change of a smoothed Heaviside."""
@@ -1540,6 +1543,20 @@ class Front:
         interp, coeffs = self._interpolant()
         return refine_polylines(lines, interp, coeffs, self.features.spacing)
 
+    def _contour_set(self) -> tuple[list[NDArray[np.floating]], NDArray[np.bool_]]:
+        """Refined contours and which are closed (open ones end on the image's border, or where the band is cut)."""
+        from engine.contours import band_contour_set
+
+        b = self._band
+        if self.node_set is None:
+            found = band_contour_set(b.indices, self._phi, detail=self.detail)
+        else:
+            found = band_contour_set(np.stack(b.pixel_index, axis=1), self._pixel_band_values(), detail=1)
+        if not found.polylines:
+            return [], found.closed
+        interp, coeffs = self._interpolant()
+        return refine_polylines(found.polylines, interp, coeffs, self.features.spacing), found.closed
+
     def surface(self) -> tuple[NDArray[np.floating], NDArray[np.int64]]:
         """Triangulated zero set of a 3-D front: vertices (k, 3) in voxel coordinates and faces (m, 3).
 
@@ -1588,12 +1605,18 @@ class Front:
         return self._inside.copy()
 
     def area_mm2(self) -> float:
-        """Area (2-D, from the refined contours) or volume (3-D, voxel count) inside the front."""
-        if self.ndim == 2 and not self.vanished:
-            from engine.contours import signed_area
+        """Area (2-D, from the refined contours) or volume (3-D, voxel count) inside the front, within the image.
 
-            sp = self.features.spacing
-            return float(sum(signed_area(c * sp) for c in self.contours()))
+        Where the outline runs off the image, the border closes it
+        (:func:`engine.clipped_area.area_in_image`).
+        """
+        if self.ndim == 2 and not self.vanished:
+            from engine.clipped_area import area_in_image
+
+            lines, closed = self._contour_set()
+            inside = self.mask()
+            border = np.concatenate([inside[0], inside[-1], inside[:, 0], inside[:, -1]])
+            return area_in_image(lines, closed, self.shape, self.features.spacing, border_inside=bool(border.all()))
         return float(self._inside.sum() * np.prod(self.features.spacing))
 
     def perimeter_mm(self) -> float:

@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import difflib
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -13,6 +14,7 @@ from engine.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, MIN_COARSE
                                  coarse_seeds, upsample_phi)
 from engine.front import Front, validate_seeds
 from engine.front_geometry import seed_disks
+from engine.setting_limits import check_limits
 from engine.speeds import FrontParams
 
 
@@ -28,6 +30,13 @@ class Segmentation:
     timings: dict = field(default_factory=dict)
     time: float = 0.0  # evolution time reached
     area_mm2: float = 0.0  # 2-D area (3-D: volume in mm³)
+    #: the front shrank to nothing or filled the whole image: there is no outline (``converged`` is False)
+    vanished: bool = False
+
+    @property
+    def empty(self) -> bool:
+        """True when no pixel lies inside the outline: nothing was outlined, whatever ``converged`` says."""
+        return not bool(np.any(self.mask))
 
 
 def segment(
@@ -64,12 +73,16 @@ def segment(
         :meth:`engine.front.Front.from_function`; ``finest`` and ``coarsest`` spacings in mm go in
         ``params``).
     progress : called as ``progress(steps, time)`` after every step.
-    **params : front settings (see :class:`engine.speeds.FrontParams`).
+    **params : front settings (see :class:`engine.speeds.FrontParams`); a name that is none of them is a
+        ``ValueError`` naming it. ``outline_averaging``, ``edge_sigma`` and ``local_radius`` may be at most
+        half the image's smaller side, and pixels at most 3 times longer one way than another
+        (:mod:`engine.setting_limits`).
 
     Returns
     -------
     Segmentation
-        Mask, sub-pixel contours, steps taken, convergence flag, the settings
+        Mask, sub-pixel contours, steps taken, convergence flag (False when the
+        front vanished: see ``vanished`` and ``empty``, both failures), the settings
         actually used (including an estimated intensity window and the
         coarse block size) and timings. Parts of the outline that hold no
         seed are dropped (:meth:`engine.front.Front.keep_parts`).
@@ -81,7 +94,13 @@ def segment(
     IEEE Trans. Commun. 31(4) (1983) 532-540 (coarse to fine).
     """
     t0 = time.perf_counter()
+    _check_names(params)
+    if max_steps is not None and (isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer))
+                                  or max_steps < 1):
+        raise ValueError(f"max_steps must be a whole number >= 1 (or None for 20 000), got {max_steps!r}")
     img = np.asarray(image, dtype=float)
+    if img.ndim not in (2, 3) or img.size == 0:
+        raise ValueError(f"image must be a non-empty 2-D or 3-D array, got shape {img.shape}")
     seeds_arr = validate_seeds(seeds, img.shape)
     budget = 20000 if max_steps is None else int(max_steps)
     if nodes not in ("lattice", "scattered"):
@@ -99,6 +118,7 @@ def segment(
     sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
     if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
         raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+    check_limits(img.shape, sp, params)
     coarse_steps, coarse_time, coarse_s = 0, 0.0, 0.0
     layout = {} if nodes == "lattice" else {"nodes": nodes}
     front: Front | None = None
@@ -149,7 +169,22 @@ def segment(
     used = dict(front.params.as_dict(), coarse=factor, smoothness_scale=round(front.smoothness_scale, 4))
     if nodes == "scattered":
         used["nodes"] = nodes
-    return Segmentation(mask, contours, front.steps, front.converged, used, timings, front.time, area)
+    return Segmentation(mask, contours, front.steps, front.converged, used, timings, front.time, area,
+                        vanished=front.vanished)
+
+
+#: Keyword arguments of :func:`segment` besides :class:`engine.speeds.FrontParams`' fields.
+LAYOUT_OPTIONS = ("finest", "coarsest", "node_set")
+
+
+def _check_names(params: dict) -> None:
+    """ValueError naming a keyword that is no setting (with the nearest setting's name)."""
+    known = {f.name for f in fields(FrontParams)} - {"model", "extra"} | set(LAYOUT_OPTIONS)
+    for name in params:
+        if name not in known:
+            close = difflib.get_close_matches(name, sorted(known), n=1)
+            hint = f"; did you mean {close[0]}?" if close else ""
+            raise ValueError(f"{name}: not a setting of segment(){hint}")
 
 
 #: Steps between checks of how far grown seeds have come (before a coarse start).

@@ -43,7 +43,9 @@ from typing import TextIO
 import numpy as np
 from numpy.typing import NDArray
 
-from engine.commands.segment import TextProgress, fail, one_line_errors, operator_name, seconds, wants_progress
+from engine.commands.progress import TextProgress, wants_progress
+from engine.commands.segment import fail, seconds
+from engine.commands.segment_options import one_line_errors
 
 HELP = "outline two structures of an invented abdomen phantom and write the results"
 
@@ -125,6 +127,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help=f"folder for the demo's files (default: ./{DEFAULT_OUT})")
     parser.add_argument("--no-window", action="store_true",
                         help="run headless (the window does not exist yet, so the demo always does)")
+    parser.add_argument("--operator", metavar="NAME",
+                        help="who ran the demo, recorded in the sidecar (default: nobody is recorded)")
     parser.add_argument("--progress", action="store_true", help="show a progress bar on stderr even when redirected")
 
 
@@ -257,7 +261,7 @@ def grey16_png_bytes(image: NDArray[np.floating]) -> bytes:
 # the demo
 # --------------------------------------------------------------------------
 def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region",
-             progress_stream: TextIO | None = None) -> DemoResult:
+             progress_stream: TextIO | None = None, operator: str = "") -> DemoResult:
     """Render the demo slice, outline :data:`STRUCTURES`, write the files; return the figures.
 
     Parameters
@@ -268,12 +272,15 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
         Speed model of both fronts (default: the engine's default).
     progress_stream : text stream, optional
         Where to draw a progress bar per structure (none when None).
+    operator : str
+        Who ran it, for the sidecar (default: nobody is recorded).
 
     Returns
     -------
     DemoResult
         Steps, times, areas and Dice per structure, and the files written.
     """
+    from engine.commands import interrupts
     from engine.io import SaveError, load, save_result
     from engine.io.atomic import commit_files
     from engine.metrics import dice
@@ -300,9 +307,15 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
     outlines: list[tuple[list[NDArray[np.floating]], str, str]] = []
     for index, structure in enumerate(STRUCTURES, start=1):
         bar = TextProgress(20000, stream=progress_stream, label=structure.name) if progress_stream else None
+
+        def on_step(steps: int, t: float, bar: TextProgress | None = bar) -> None:
+            interrupts.check()  # a safe point (see engine.commands.interrupts)
+            if bar is not None:
+                bar(steps, t)
+
         t0 = time.perf_counter()
         try:
-            seg = segment(image, [structure.seed], spacing=spacing, model=model, progress=bar)
+            seg = segment(image, [structure.seed], spacing=spacing, model=model, progress=on_step)
         finally:
             if bar is not None:
                 bar.close()
@@ -329,13 +342,15 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
         outlines.append((seg.contours, structure.color, f"{structure.name}  Dice {score:.3f}"))
     table = [{"index": i, "name": s.name, "color": s.color} for i, s in enumerate(STRUCTURES, start=1)]
     provenance = {
-        "operator": operator_name(),
+        "operator": operator,
         "description": f"{PROG}: two outlines on an invented abdomen phantom slice (no patient).",
         "manual": False,
         "labels": records,
         "history": history,
     }
-    paths = save_result(folder / "abdomen", labels, volume, label_table=table, provenance=provenance)
+    interrupts.check()
+    paths = save_result(folder / "abdomen", labels, volume, label_table=table, provenance=provenance,
+                        checkpoint=interrupts.check)
     overlay_path = folder / "overlay.png"
     summary_path = folder / "summary.json"
     wall = time.perf_counter() - wall0
@@ -356,14 +371,15 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
 
 def run(args: argparse.Namespace) -> int:
     """Run ``isotide demo``; return 0, 2 (cannot write) or 130 (interrupted)."""
+    from engine.commands import interrupts
     from engine.io import SaveError
 
     stream = sys.stderr if wants_progress(bool(getattr(args, "progress", False)), sys.stderr) else None
     try:
-        result = run_demo(args.out, progress_stream=stream)
+        operator = "" if getattr(args, "operator", None) is None else " ".join(str(args.operator).split())
+        result = run_demo(args.out, progress_stream=stream, operator=operator)
     except KeyboardInterrupt:
-        print(f"\n{PROG}: interrupted", file=sys.stderr)
-        return 130
+        return interrupts.report(PROG)
     except (ValueError, SaveError, OSError) as exc:
         return fail(str(exc), prog=PROG)
     print(f"Isotide demo: invented abdomen phantom (no patient), one axial slice of "

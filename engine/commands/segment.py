@@ -12,10 +12,15 @@ Output
     The full result through :func:`engine.io.save_result`:
     ``NAME_dseg.nii.gz`` (label 1 on the chosen slice, 0 elsewhere),
     ``NAME_dseg.tsv``, ``NAME_dseg.json`` (provenance: model, the settings
-    actually used, seeds, steps, timings, operator from ``$USER`` or else
-    the system's login name, and a ``segment`` history entry with the command-line settings) and, with
-    ``--dicom-seg`` for DICOM input, ``NAME.seg.dcm``. ``DIR/NAME_dseg.nii.gz``
-    and ``DIR/NAME_dseg.json`` are accepted as ``DIR/NAME``.
+    actually used, seeds, steps, timings, the operator given with
+    ``--operator`` (none otherwise), and a ``segment`` history entry with
+    the command-line settings, the image recorded relative to the result's
+    folder) and, with ``--dicom-seg`` for DICOM input, ``NAME.seg.dcm``.
+    ``DIR/NAME_dseg.nii.gz`` and ``DIR/NAME_dseg.json`` are accepted as
+    ``DIR/NAME``. A result under review (Submitted, Approved, Returned) is
+    only replaced with ``--new-version``, which keeps its review history in
+    the new sidecar. The files are replaced all together or not at all
+    (:mod:`engine.io.atomic`).
 ``--out FILE.png``
     An 8-bit grey PNG of the slice's shape: 0 outside, 255 inside. No
     sidecar is written.
@@ -23,11 +28,14 @@ Output
 The command prints the steps taken, the evolution time reached, the wall
 time, the area in mm² and whether the front converged. With ``--progress``,
 or whenever stderr is a terminal, a one-line text bar on stderr shows the
-steps taken out of the step limit (fronts usually converge long before it).
+files loaded, then the steps taken out of the step limit (fronts usually
+converge long before it).
 
-Exit codes: 0 done (converged or stopped at the step limit), 2 bad input
-(one line on stderr: ``isotide segment: error: <what is wrong>``), 130
-interrupted.
+A front that vanished (shrank to nothing), filled the whole image or holds
+no pixel is a failure: one line on stderr and nothing written, unless
+``--save-anyway``.
+
+Exit codes (also in ``--help``): see :data:`EPILOG`.
 """
 
 from __future__ import annotations
@@ -38,310 +46,34 @@ import math
 import os
 import sys
 import time
+import warnings
 from collections.abc import Callable
-from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING, TextIO
+from typing import TYPE_CHECKING
 
 import numpy as np
+
+from engine.commands.progress import LoadingBar, TextProgress, wants_progress
+from engine.commands.segment_options import PROG, Settings, UsageError, parse_settings
+from engine.commands.segment_options import add_arguments, one_line_errors  # noqa: F401 - the verb's interface
 
 if TYPE_CHECKING:
     from engine.io import Volume
     from engine.segment import Segmentation
+    from engine.setting_limits import SettingLimitError
 
 HELP = "grow a front from seed disks on one slice and save the outline"
 
-PROG = "isotide segment"
+EPILOG = """exit codes:
+  0    done: the outline converged, or stopped at the step limit
+  2    bad input: one line on stderr naming the flag or file
+  3    no outline: the front vanished, filled the whole image or holds no pixel;
+       nothing is written unless --save-anyway
+  130  interrupted (Ctrl-C); a result being saved is the whole previous one or
+       the whole new one, never a mix"""
 
-_RESULT_SUFFIXES = ("_dseg.nii.gz", "_dseg.json", "_dseg.tsv", ".seg.dcm")
-
-
-class UsageError(ValueError):
-    """A command-line value is wrong; the message names the flag."""
-
-
-# --------------------------------------------------------------------------
-# arguments
-# --------------------------------------------------------------------------
-def add_arguments(parser: argparse.ArgumentParser) -> None:
-    """Arguments of ``isotide segment``.
-
-    Values are kept as text here and checked in :func:`run`, so that every
-    bad value gives exit code 2 and one line naming it. Errors argparse itself
-    finds (a missing IMAGE, a flag without its value) are printed on one line
-    too.
-    """
-    one_line_errors(parser, PROG)
-    parser.add_argument("image", metavar="IMAGE", help="DICOM file/folder/DICOMDIR, NIfTI, PNG, TIFF or NPY")
-    parser.add_argument(
-        "--seed", action="append", default=[], metavar="ROW,COL,RADIUS",
-        help="seed disk in pixels on the chosen slice (repeat for several disks)",
-    )
-    parser.add_argument(
-        "--model", default="region", metavar="MODEL",
-        help="speed model: region (Chan-Vese, default), edge (geodesic), window, curvature, constant",
-    )
-    parser.add_argument(
-        "--window", metavar="LOW,HIGH",
-        help="intensity window of the window model (default: estimated from the seeds); "
-             "write --window=-100,200 for a negative LOW",
-    )
-    parser.add_argument("--smoothness", metavar="X", help="curvature weight (>= 0; larger = rounder)")
-    parser.add_argument("--drive", metavar="X", help="image-driven speed weight")
-    parser.add_argument("--edge-sigma", metavar="MM", help="edge scale sigma in mm (>= 0)")
-    parser.add_argument("--edge-contrast", metavar="K", help="edge contrast K (> 0; default automatic)")
-    parser.add_argument("--outline-averaging", metavar="MM",
-                        help="sigma in mm of the image speed's average along the outline (>= 0; default 1; "
-                             "larger = steadier on noise, less detail)")
-    parser.add_argument("--detail", default="1", metavar="1|2|4", help="nodes per pixel along each axis")
-    parser.add_argument("--nodes", default="lattice", metavar="lattice|scattered",
-                        help="where the front lives: a lattice (default) or scattered nodes, finer near edges")
-    parser.add_argument("--coarse", default="auto", metavar="auto|1|2|4|8",
-                        help="block size of the coarse start (1 = start at full resolution; default auto)")
-    parser.add_argument("--max-steps", metavar="N", help="step limit (default 20000)")
-    parser.add_argument("--slice", metavar="K", help="slice of a volume (default: the middle slice)")
-    parser.add_argument("--label", default="structure", metavar="NAME", help="label name (default: structure)")
-    parser.add_argument("--out", metavar="OUT",
-                        help="DIR/NAME for the full result, or FILE.png for a mask picture (0 outside, 255 inside)")
-    parser.add_argument("--dicom-seg", action="store_true", help="also write NAME.seg.dcm (DICOM input only)")
-    parser.add_argument("--progress", action="store_true", help="show a progress bar on stderr even when redirected")
-
-
-def one_line_errors(parser: argparse.ArgumentParser, prog: str) -> None:
-    """Make ``parser`` report a usage error as one line ``<prog>: error: ...`` (exit code 2)."""
-
-    def error(message: str) -> None:
-        parser.exit(2, f"{prog}: error: {' '.join(str(message).split())}\n")
-
-    parser.error = error  # type: ignore[method-assign]
-
-
-@dataclass(frozen=True)
-class Settings:
-    """Checked command-line settings of ``isotide segment``."""
-
-    image: str
-    seeds: tuple[tuple[float, float, float], ...]
-    model: str
-    params: dict = field(default_factory=dict)
-    detail: int = 1
-    coarse: int | None = None  # None: chosen automatically
-    nodes: str = "lattice"
-    max_steps: int | None = None
-    slice: int | None = None
-    label: str = "structure"
-    out: str = ""
-    png: bool = False
-    dicom_seg: bool = False
-    progress: bool = False
-
-
-def parse_seed(text: str) -> tuple[float, float, float]:
-    """``"ROW,COL,RADIUS"`` -> ``(row, col, radius_px)``.
-
-    Raises
-    ------
-    UsageError
-        Not three finite numbers, a radius <= 0, or a 3-D seed.
-    """
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        values = [float(p) for p in parts]
-    except ValueError:
-        raise UsageError(f"--seed {text!r}: expected ROW,COL,RADIUS as numbers") from None
-    if len(values) == 4:
-        raise UsageError(
-            f"--seed {text!r}: 3-D seeds (SLICE,ROW,COL,RADIUS) are not supported; "
-            "choose the slice with --slice K and give ROW,COL,RADIUS"
-        )
-    if len(values) != 3:
-        raise UsageError(f"--seed {text!r}: expected ROW,COL,RADIUS (three numbers)")
-    if not all(math.isfinite(v) for v in values):
-        raise UsageError(f"--seed {text!r}: values must be finite numbers")
-    if values[2] <= 0:
-        raise UsageError(f"--seed {text!r}: radius must be > 0 pixels")
-    return values[0], values[1], values[2]
-
-
-def parse_window(text: str) -> tuple[float, float]:
-    """``"LOW,HIGH"`` -> ``(low, high)`` with ``low < high``."""
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        values = [float(p) for p in parts]
-    except ValueError:
-        raise UsageError(f"--window {text!r}: expected LOW,HIGH as numbers") from None
-    if len(values) != 2 or not all(math.isfinite(v) for v in values):
-        raise UsageError(f"--window {text!r}: expected LOW,HIGH (two finite numbers)")
-    if values[0] >= values[1]:
-        raise UsageError(f"--window {text!r}: LOW must be less than HIGH")
-    return values[0], values[1]
-
-
-def _number(text: str, flag: str, *, minimum: float | None = None, strict: bool = False) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise UsageError(f"{flag} {text!r}: expected a number") from None
-    if not math.isfinite(value):
-        raise UsageError(f"{flag} {text!r}: expected a finite number")
-    if minimum is not None and (value <= minimum if strict else value < minimum):
-        raise UsageError(f"{flag} {text!r}: must be {'>' if strict else '>='} {minimum:g}")
-    return value
-
-
-def _integer(text: str, flag: str, *, minimum: int) -> int:
-    try:
-        value = int(str(text).strip())
-    except ValueError:
-        raise UsageError(f"{flag} {text!r}: expected a whole number") from None
-    if value < minimum:
-        raise UsageError(f"{flag} {text!r}: must be >= {minimum}")
-    return value
-
-
-def result_prefix(out: str) -> str:
-    """``DIR/NAME`` from ``--out`` (``DIR/NAME_dseg.nii.gz`` and friends accepted)."""
-    name = Path(out).name
-    for suffix in _RESULT_SUFFIXES:
-        if name.endswith(suffix) and len(name) > len(suffix):
-            return str(Path(out).with_name(name[: -len(suffix)]))
-    if not name or name in (".", "..") or out.endswith(("/", os.sep)):
-        raise UsageError(f"--out {out!r}: expected DIR/NAME (result files) or FILE.png")
-    return out
-
-
-def parse_settings(args: argparse.Namespace) -> Settings:
-    """Check every command-line value; raise :class:`UsageError` naming the first bad one."""
-    from engine.speeds import MODELS
-
-    if not args.seed:
-        raise UsageError("--seed: at least one ROW,COL,RADIUS seed is required")
-    seeds = tuple(parse_seed(s) for s in args.seed)
-    model = str(args.model).strip().lower()
-    if model not in MODELS:
-        raise UsageError(f"--model {args.model!r}: unknown model; choose one of {', '.join(MODELS)}")
-    params: dict = {}
-    if args.window is not None:
-        if model != "window":
-            raise UsageError(f"--window: only used with --model window (got --model {model})")
-        params["window"] = parse_window(args.window)
-    if args.smoothness is not None:
-        params["smoothness"] = _number(args.smoothness, "--smoothness", minimum=0.0)
-    if args.drive is not None:
-        params["drive"] = _number(args.drive, "--drive")
-    if args.edge_sigma is not None:
-        params["edge_sigma"] = _number(args.edge_sigma, "--edge-sigma", minimum=0.0)
-    if args.edge_contrast is not None:
-        params["edge_contrast"] = _number(args.edge_contrast, "--edge-contrast", minimum=0.0, strict=True)
-    if args.outline_averaging is not None:
-        params["outline_averaging"] = _number(args.outline_averaging, "--outline-averaging", minimum=0.0)
-    detail = _integer(args.detail, "--detail", minimum=1)
-    if detail not in (1, 2, 4):
-        raise UsageError(f"--detail {args.detail!r}: must be 1, 2 or 4")
-    nodes = str(args.nodes).strip().lower()
-    if nodes not in ("lattice", "scattered"):
-        raise UsageError(f"--nodes {args.nodes!r}: must be lattice or scattered")
-    coarse = None
-    if nodes == "scattered" and str(args.coarse).strip().lower() not in ("auto", "1"):
-        raise UsageError(f"--coarse {args.coarse!r}: the coarse start is for lattice nodes (use --coarse 1)")
-    if str(args.coarse).strip().lower() != "auto":
-        coarse = _integer(args.coarse, "--coarse", minimum=1)
-        if coarse not in (1, 2, 4, 8):
-            raise UsageError(f"--coarse {args.coarse!r}: must be auto, 1, 2, 4 or 8")
-    max_steps = None if args.max_steps is None else _integer(args.max_steps, "--max-steps", minimum=1)
-    slice_index = None if args.slice is None else _integer(args.slice, "--slice", minimum=0)
-    label = str(args.label)
-    if not label.strip() or "\t" in label or "\n" in label:
-        raise UsageError("--label: expected a non-empty one-line name without tabs")
-    if not args.out:
-        raise UsageError("--out: required (DIR/NAME for the result files, or FILE.png)")
-    png = str(args.out).lower().endswith(".png")
-    out = str(args.out) if png else result_prefix(str(args.out))
-    if png and args.dicom_seg:
-        raise UsageError("--dicom-seg: needs --out DIR/NAME, not a .png file")
-    return Settings(
-        image=str(args.image), seeds=seeds, model=model, params=params, detail=detail, coarse=coarse,
-        nodes=nodes, max_steps=max_steps, slice=slice_index, label=label, out=out, png=png, dicom_seg=bool(args.dicom_seg),
-        progress=bool(args.progress),
-    )
-
-
-# --------------------------------------------------------------------------
-# progress bar
-# --------------------------------------------------------------------------
-class TextProgress:
-    """A one-line text progress bar, redrawn at most every ``interval`` seconds.
-
-    Use as the ``progress(steps, time)`` callback of :func:`engine.segment.segment`.
-
-    Parameters
-    ----------
-    total : int
-        Step limit; the bar fills towards it.
-    stream : text stream
-        Where to draw (normally ``sys.stderr``).
-    label : str
-        Text in front of the bar.
-    width : int
-        Characters of the bar itself.
-    interval : float
-        Smallest time between redraws in seconds.
-    clock : callable
-        Monotonic clock in seconds (for tests).
-    """
-
-    def __init__(self, total: int, *, stream: TextIO, label: str = "evolving", width: int = 24,
-                 interval: float = 0.2, clock: Callable[[], float] = time.monotonic) -> None:
-        if total < 1:
-            raise ValueError(f"total: expected >= 1, got {total}")
-        self.total = int(total)
-        self.stream = stream
-        self.label = label
-        self.width = int(width)
-        self.interval = float(interval)
-        self.clock = clock
-        self._start = clock()
-        self._last_draw = -math.inf
-        self._shown = 0
-        self.draws = 0
-
-    def line(self, steps: int, t: float) -> str:
-        """The bar's text for ``steps`` steps at evolution time ``t``."""
-        fraction = min(max(steps / self.total, 0.0), 1.0)
-        filled = int(round(fraction * self.width))
-        elapsed = max(self.clock() - self._start, 1e-9)
-        return (f"{self.label} [{'#' * filled}{'.' * (self.width - filled)}] {steps}/{self.total} steps, "
-                f"t = {t:.4g}, {steps / elapsed:.0f} steps/s")
-
-    def __call__(self, steps: int, t: float) -> None:
-        now = self.clock()
-        if now - self._last_draw < self.interval and steps < self.total:
-            return
-        self._last_draw = now
-        text = self.line(steps, t)
-        pad = max(self._shown - len(text), 0)
-        self.stream.write("\r" + text + " " * pad)
-        self.stream.flush()
-        self._shown = len(text)
-        self.draws += 1
-
-    def close(self) -> None:
-        """Erase the bar (the summary follows on stdout)."""
-        if self._shown:
-            self.stream.write("\r" + " " * self._shown + "\r")
-            self.stream.flush()
-            self._shown = 0
-
-
-def wants_progress(forced: bool, stream: TextIO) -> bool:
-    """Show a bar when asked for or when ``stream`` is a terminal."""
-    if forced:
-        return True
-    try:
-        return bool(stream.isatty())
-    except (AttributeError, ValueError):
-        return False
-
+#: Exit code of a run that ended without an outline.
+NO_OUTLINE = 3
 
 # --------------------------------------------------------------------------
 # writing
@@ -358,26 +90,15 @@ def png_mask_bytes(mask: np.ndarray) -> bytes:
     return buf.getvalue()
 
 
-def write_png_mask(path: str | os.PathLike[str], mask: np.ndarray) -> Path:
-    """Write :func:`png_mask_bytes` atomically to ``path`` (folders are created)."""
+def write_png_mask(path: str | os.PathLike[str], mask: np.ndarray, *,
+                   checkpoint: Callable[[], None] | None = None) -> Path:
+    """Write :func:`png_mask_bytes` atomically to ``path`` (folders are created; see
+    :func:`engine.io.atomic.commit_files` for ``checkpoint``)."""
     from engine.io.atomic import commit_files
 
     target = Path(os.fspath(path))
-    commit_files({target: png_mask_bytes(mask)})
+    commit_files({target: png_mask_bytes(mask)}, checkpoint=checkpoint)
     return target
-
-
-def operator_name() -> str:
-    """Who runs the command: ``$USER``, else the login name the system reports, else ``""``."""
-    name = os.environ.get("USER", "")
-    if name:
-        return name
-    try:
-        import getpass
-
-        return getpass.getuser()
-    except (KeyError, OSError, ImportError):
-        return ""
 
 
 def seconds(timings: dict) -> dict[str, float]:
@@ -411,16 +132,19 @@ def provenance(
     command : str
         Program name recorded in the history entry.
     """
+    from engine.io.sidecar import recorded_path
+
     timings = seconds(dict(seg.timings))
     timings.update({k: float(v) for k, v in (extra_timings or {}).items()})
     parameters = dict(seg.params)
     parameters["detail"] = settings.detail
-    state = "converged" if seg.converged else "stopped at the step limit without converging"
+    state = ("converged" if seg.converged else outline_failure(seg) or
+             "stopped at the step limit without converging")
     notes = (f"{state} after {seg.steps} steps (evolution time {seg.time:.6g}); "
              f"band nodes {seg.timings.get('nodes', 'n/a')}, band rebuilds {seg.timings.get('rebuilds', 'n/a')}")
     details = {
         "command": command,
-        "image": settings.image,
+        "image": recorded_path(settings.image, Path(os.path.abspath(settings.out)).parent),
         "slice": slice_index,
         "seeds": [list(s) for s in settings.seeds],
         "model": settings.model,
@@ -430,12 +154,12 @@ def provenance(
         "nodes": settings.nodes,
         "max_steps": settings.max_steps,
         "label": settings.label,
-        "out": settings.out,
+        "out": Path(settings.out).name,
         "steps": int(seg.steps),
         "converged": bool(seg.converged),
     }
     return {
-        "operator": operator_name(),
+        "operator": settings.operator,
         "description": f"Outline of {settings.label} on slice {slice_index} grown by {command} "
                        f"(model {settings.model}).",
         "manual": False,
@@ -481,8 +205,58 @@ def _check_seeds(seeds: tuple[tuple[float, float, float], ...], shape: tuple[int
             )
 
 
+def _on_border(seed: tuple[float, float, float], shape: tuple[int, int]) -> bool:
+    """True when the seed's centre lies on the outermost pixels of the image."""
+    row, col, _ = seed
+    return min(row, col) < 0.5 or row > shape[0] - 1.5 or col > shape[1] - 1.5
+
+
+def _border_seed_note(seeds: tuple[tuple[float, float, float], ...], shape: tuple[int, int]) -> str:
+    for seed in seeds:
+        if _on_border(seed, shape):
+            return (f"; the seed {seed[0]:g},{seed[1]:g},{seed[2]:g} lies on the image border ({shape[0]} x "
+                    f"{shape[1]} pixels): move its centre at least 1 pixel inside")
+    return ""
+
+
+def outline_failure(seg: "Segmentation") -> str:
+    """What went wrong when ``seg`` holds no outline (vanished, filled the image, no pixel), else ``""``."""
+    if seg.vanished and bool(np.all(seg.mask)):
+        return f"the outline filled the whole image after {seg.steps} steps: no boundary stopped it"
+    if seg.vanished:
+        return f"the outline vanished after {seg.steps} steps: it shrank to nothing"
+    if seg.empty:
+        return f"the outline holds no pixel after {seg.steps} steps"
+    return ""
+
+
+#: Library words in messages -> the command line's flags.
+_CLI_WORDS = (
+    ("series=...", "--series KEY"),
+    ("a larger max_bytes", "a larger --memory-limit MIB"),
+    ("(new_version=True", "(--new-version"),
+    ("under another name", "under another --out name"),
+)
+
+
+def cli_words(message: str) -> str:
+    """``message`` with the library's keyword names replaced by the command line's flags."""
+    for library, flag in _CLI_WORDS:
+        message = message.replace(library, flag)
+    return message
+
+
+def _limit_message(exc: "SettingLimitError", path: str) -> str:
+    flags = {"outline_averaging": "--outline-averaging", "edge_sigma": "--edge-sigma"}
+    if exc.name in flags:
+        return f"{flags[exc.name]} {exc.value:g}: {exc.reason}"
+    if exc.name == "spacing":
+        return f"{path}: {exc.reason}"
+    return str(exc)
+
+
 def _one_line(exc: BaseException) -> str:
-    return " ".join(str(exc).split()) or type(exc).__name__
+    return " ".join(cli_words(str(exc)).split()) or type(exc).__name__
 
 
 def fail(message: str, *, prog: str = PROG) -> int:
@@ -492,27 +266,89 @@ def fail(message: str, *, prog: str = PROG) -> int:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Run ``isotide segment``; return 0 (done), 2 (bad input) or 130 (interrupted)."""
+    """Run ``isotide segment``; return 0 (done), 2 (bad input), 3 (no outline) or 130 (interrupted)."""
+    from engine.commands import interrupts
     from engine.io import LoadError, SaveError
 
     try:
         settings = parse_settings(args)
         return _run(settings)
     except KeyboardInterrupt:
-        print(f"\n{PROG}: interrupted", file=sys.stderr)
-        return 130
+        return interrupts.report(PROG)
     except (ValueError, LoadError, SaveError, OSError) as exc:
         return fail(_one_line(exc))
 
 
+def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
+            path: str) -> tuple["Segmentation", list[str]]:
+    """:func:`engine.segment.segment` with a bar, Ctrl-C taken at the end of a step, and CLI messages.
+
+    Returns the result and the library's warnings as notes (one line each);
+    that open contours leave the band is expected where the outline meets
+    the image's border, and left out there.
+    """
+    from engine.commands import interrupts
+    from engine.contours import BandCutWarning
+    from engine.front import FrontVanished
+    from engine.segment import segment
+    from engine.setting_limits import SettingLimitError
+
+    bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr) if wants_progress(
+        settings.progress, sys.stderr) else None
+
+    def on_step(steps: int, t: float) -> None:
+        interrupts.check()  # a safe point: no thread of the front's tree queries is running
+        if bar is not None:
+            bar(steps, t)
+
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            seg = segment(image, list(settings.seeds), spacing=spacing, model=settings.model,
+                          max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse,
+                          nodes=settings.nodes, progress=on_step, **settings.params)
+    except SettingLimitError as exc:
+        raise UsageError(_limit_message(exc, path)) from None
+    except FrontVanished as exc:
+        note = _border_seed_note(settings.seeds, image.shape)
+        if note:
+            raise UsageError(f"the front cannot start{note}") from None
+        raise UsageError(f"{exc}") from None
+    finally:
+        if bar is not None:
+            bar.close()
+    m = seg.mask
+    at_border = bool(m[0].any() or m[-1].any() or m[:, 0].any() or m[:, -1].any())
+    notes: list[str] = []
+    for w in caught:
+        text = " ".join(str(w.message).split())
+        if not (at_border and issubclass(w.category, BandCutWarning)) and text not in notes:
+            notes.append(text)
+    return seg, notes
+
+
 def _run(settings: Settings) -> int:
+    from engine.commands import interrupts
     from engine.io import load, save_result
     from engine.io.sidecar import OKABE_ITO
-    from engine.segment import segment
+    from engine.io.writer import check_replaceable
 
     wall0 = time.perf_counter()
     path = settings.image
-    volume = load(path)
+    loading = LoadingBar(stream=sys.stderr) if wants_progress(settings.progress, sys.stderr) else None
+
+    def on_file(done: int, total: int) -> None:
+        interrupts.check()
+        if loading is not None:
+            loading(done, total)
+
+    options = {} if settings.max_bytes is None else {"max_bytes": settings.max_bytes}
+    try:
+        volume = load(path, series=settings.series, progress=on_file, **options)
+    finally:
+        if loading is not None:
+            loading.close()
+    interrupts.check()
     load_s = time.perf_counter() - wall0
     bad = volume.nonfinite or int(np.count_nonzero(~np.isfinite(volume.array)))
     if bad:
@@ -522,38 +358,39 @@ def _run(settings: Settings) -> int:
     k = _pick_slice(volume, settings.slice)
     image = volume.array[k]
     _check_seeds(settings.seeds, image.shape)
-    spacing = tuple(float(s) for s in volume.spacing[1:])
-    bar = None
-    if wants_progress(settings.progress, sys.stderr):
-        bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr)
-    try:
-        seg = segment(image, list(settings.seeds), spacing=spacing, model=settings.model,
-                      max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse,
-                      nodes=settings.nodes, progress=bar, **settings.params)
-    finally:
-        if bar is not None:
-            bar.close()
+    if not settings.png:  # refuse before a long run what the save would refuse after it
+        check_replaceable(settings.out, new_version=settings.new_version)
+    spacing = (float(volume.spacing[1]), float(volume.spacing[2]))
+    seg, notes = _evolve(settings, image, spacing, path)
+    failure = outline_failure(seg)
+    if failure and not settings.save_anyway:
+        note = _border_seed_note(settings.seeds, image.shape)
+        print(f"{PROG}: no outline: {failure}{note}; nothing written (--save-anyway writes it)", file=sys.stderr)
+        return NO_OUTLINE
+    interrupts.check()
     pixel_area = spacing[0] * spacing[1]
     written: list[Path] = []
     if settings.png:
-        written.append(write_png_mask(settings.out, seg.mask))
+        written.append(write_png_mask(settings.out, seg.mask, checkpoint=interrupts.check))
     else:
         table = [{"index": 1, "name": settings.label, "abbreviation": settings.label, "color": OKABE_ITO[0]}]
         extra = {"load_s": load_s, "wall_s": time.perf_counter() - wall0}
         prov = provenance(settings, seg, slice_index=k, extra_timings=extra)
         paths = save_result(settings.out, seg.mask.astype(np.uint8), volume, label_table=table, provenance=prov,
-                            dicom_seg=settings.dicom_seg, slice_index=k)
+                            dicom_seg=settings.dicom_seg, slice_index=k, new_version=settings.new_version,
+                            checkpoint=interrupts.check)
         written.extend(paths.values())
     wall = time.perf_counter() - wall0
     n = volume.shape[0]
     print(f"image: {volume.source}; slice {k} of {n}")
-    for note in volume.warnings:
+    for note in [*volume.warnings, *notes]:
         print(f"note: {note}")
     print(f"steps: {seg.steps}")
     print(f"evolution time: {seg.time:.4g} (front time; {seg.timings.get('evolve_s', 0.0):.2f} s evolving)")
     print(f"wall time: {wall:.2f} s")
     print(f"area: {seg.area_mm2:.1f} mm² ({int(np.count_nonzero(seg.mask))} pixels of {pixel_area:.4g} mm²)")
-    print(f"converged: {'yes' if seg.converged else 'no (stopped at the step limit)'}")
+    converged = "yes" if seg.converged else f"no ({failure or 'stopped at the step limit'})"
+    print(f"converged: {converged}")
     for p in written:
         print(f"wrote: {p}")
-    return 0
+    return NO_OUTLINE if failure else 0

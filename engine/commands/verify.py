@@ -1,7 +1,10 @@
 """``isotide verify NAME_dseg.json``: check a saved result against its sidecar.
 
 Exit codes: 0 everything matches, 1 something no longer matches (each
-mismatch printed on its own line), 2 bad input (one line on stderr).
+mismatch printed on its own line), 2 bad input: missing, not JSON, or not an
+Isotide result sidecar (one line on stderr), 130 interrupted. With
+``--quiet`` nothing is printed when everything matches, except one line on
+stderr when input files were not present and so not checked.
 """
 
 from __future__ import annotations
@@ -11,6 +14,12 @@ import json
 import sys
 
 HELP = "check a saved mask against its sidecar's hashes and hash chain"
+
+EPILOG = """exit codes:
+  0    everything matches
+  1    something no longer matches (one line per mismatch)
+  2    bad input: no such sidecar, not JSON, or not an Isotide result sidecar
+  130  interrupted (Ctrl-C)"""
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -22,11 +31,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Verify ``args.sidecar``; return 0 (OK), 1 (mismatch) or 2 (bad input)."""
+    from engine.commands.interrupts import report as interrupted
     from engine.io import verify
 
-    report = verify(args.sidecar)
+    try:
+        report = verify(args.sidecar)
+    except KeyboardInterrupt:
+        return interrupted("isotide verify")
     if not report.readable:
-        print(f"isotide verify: {report.problems[0]}", file=sys.stderr)
+        print(f"isotide verify: {' '.join(report.problems[0].split())}", file=sys.stderr)
         return 2
     if args.json:
         print(
@@ -45,4 +58,8 @@ def run(args: argparse.Namespace) -> int:
         print(report)
         for note in report.notes:
             print(f"  note: {note}")
+    elif report.inputs_skipped:
+        n = report.inputs_skipped
+        print(f"isotide verify: note: {n} input file{'s' if n != 1 else ''} not present, so not checked "
+              "(everything else matches)", file=sys.stderr)
     return 0 if report.ok else 1

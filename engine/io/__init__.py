@@ -19,6 +19,7 @@ from engine.io.errors import (
     ApprovedResultError,
     DecodeError,
     LoadError,
+    ReviewedResultError,
     SaveError,
     SeriesSelectionError,
     VolumeTooLargeError,
@@ -35,7 +36,7 @@ from engine.io.sidecar import (
 )
 from engine.io.verify import VerifyReport, verify
 from engine.io.volume import DEFAULT_MAX_BYTES, SeriesInfo, Volume
-from engine.io.writer import result_paths, save_result, save_sidecar
+from engine.io.writer import finish_interrupted_save, result_paths, save_result, save_sidecar
 
 __all__ = [
     "Volume",
@@ -60,5 +61,7 @@ __all__ = [
     "SeriesSelectionError",
     "VolumeTooLargeError",
     "SaveError",
+    "ReviewedResultError",
     "ApprovedResultError",
+    "finish_interrupted_save",
 ]

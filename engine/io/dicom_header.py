@@ -68,6 +68,7 @@ class DicomHeader:
     multiframe: bool = False
     pixel_spacing: tuple[float, float] | None = None
     spacing_source: str = ""
+    spacing_note: str = ""  # why a PixelSpacing that is present was not used (zero, negative, NaN)
     slice_thickness: float | None = None
     spacing_between_slices: float | None = None
     axes: PlaneAxes | None = None
@@ -108,7 +109,9 @@ def _numbers(ds: Any, keyword: str, problems: list[str], *, count: int | None = 
         return None
     items = list(raw) if isinstance(raw, (list, tuple, pydicom.multival.MultiValue)) else [raw]
     try:
-        values = [float(v) for v in items]
+        with warnings.catch_warnings():  # pydicom warns about values such as 'nan' as it converts them
+            warnings.simplefilter("ignore")
+            values = [float(v) for v in items]
     except (TypeError, ValueError):
         problems.append(f"{_tag_name(keyword)} has an invalid value {str(raw)!r}")
         return None
@@ -290,20 +293,25 @@ def read_header(path: str | Path) -> DicomHeader:
     return h
 
 
-def _pixel_spacing(item: Any, problems: list[str]) -> tuple[tuple[float, float] | None, str]:
-    ps = _numbers(item, "PixelSpacing", problems, count=2)
-    if ps is not None and min(ps) > 0:
-        return (ps[0], ps[1]), "PixelSpacing"
-    ips = _numbers(item, "ImagerPixelSpacing", problems, count=2)
-    if ips is not None and min(ips) > 0:
-        return (ips[0], ips[1]), "ImagerPixelSpacing"
+def _pixel_spacing(item: Any, h: DicomHeader) -> tuple[tuple[float, float] | None, str]:
+    """(row, col) spacing in mm and the element it came from; an unusable one is noted in ``h.spacing_note``."""
+    for keyword in ("PixelSpacing", "ImagerPixelSpacing"):
+        found: list[str] = []
+        values = _numbers(item, keyword, found, count=2)
+        if values is not None and min(values) > 0:
+            return (values[0], values[1]), keyword
+        if (values is not None or found) and not h.spacing_note:
+            raw = _value(item, keyword)
+            items = list(raw) if isinstance(raw, (list, tuple, pydicom.multival.MultiValue)) else [raw]
+            shown = "\\".join(str(v) for v in items)
+            h.spacing_note = f"{_tag_name(keyword)} is {shown!r}, not a usable pixel spacing"
     return None, ""
 
 
 def _read_classic(ds: Any, h: DicomHeader) -> None:
     """Single-frame images and classic multi-frame objects (one plane, offsets)."""
     p = h.problems
-    h.pixel_spacing, h.spacing_source = _pixel_spacing(ds, p)
+    h.pixel_spacing, h.spacing_source = _pixel_spacing(ds, h)
     h.axes = _axes(_numbers(ds, "ImageOrientationPatient", p, count=6), p)
     ipp = _numbers(ds, "ImagePositionPatient", p, count=3)
     slope = (_numbers(ds, "RescaleSlope", p) or [1.0])[0]
@@ -368,7 +376,7 @@ def _read_functional_groups(ds: Any, h: DicomHeader, shared: Any, per_frame: Any
         if spacing is None:
             measures = _macro(frame, shared, "PixelMeasuresSequence")
             if measures is not None:
-                spacing, h.spacing_source = _pixel_spacing(measures, p)
+                spacing, h.spacing_source = _pixel_spacing(measures, h)
                 thick = _numbers(measures, "SliceThickness", p)
                 between = _numbers(measures, "SpacingBetweenSlices", p)
                 h.slice_thickness = thick[0] if thick else h.slice_thickness
@@ -376,7 +384,7 @@ def _read_functional_groups(ds: Any, h: DicomHeader, shared: Any, per_frame: Any
     h.frame_rescale = rescale
     h.pixel_spacing = spacing
     if spacing is None:
-        h.pixel_spacing, h.spacing_source = _pixel_spacing(ds, p)
+        h.pixel_spacing, h.spacing_source = _pixel_spacing(ds, h)
     voi = _macro(frames[0], shared, "FrameVOILUTSequence")
     h.windows = _windows(voi, p) or _windows(ds, p)
     h.modality_lut = _modality_lut(ds, p)

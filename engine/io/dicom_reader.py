@@ -204,7 +204,10 @@ def load_stack(
         row_sp, col_sp = float(spacing[-2]), float(spacing[-1])
     else:
         row_sp = col_sp = 1.0
-        notes.append("no pixel spacing in the file: 1 mm assumed")
+        if first.spacing_note:
+            notes.append(f"{first.path}: {first.spacing_note}: 1 mm assumed")
+        else:
+            notes.append("no pixel spacing in the file: 1 mm assumed")
     default_gap = first.spacing_between_slices or first.slice_thickness
     if spacing is not None and len(spacing) == 3 and first.frame_positions is None:
         default_gap = float(spacing[0])

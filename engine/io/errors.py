@@ -14,6 +14,7 @@ __all__ = [
     "SeriesSelectionError",
     "VolumeTooLargeError",
     "SaveError",
+    "ReviewedResultError",
     "ApprovedResultError",
 ]
 
@@ -94,5 +95,27 @@ class SaveError(RuntimeError):
     """A result could not be written; the previous result, if any, is intact."""
 
 
-class ApprovedResultError(SaveError):
-    """Saving would overwrite a result whose review state is ``Approved``."""
+class ReviewedResultError(SaveError):
+    """Saving would replace a result that carries a review (or whose review cannot be read).
+
+    Nothing was written. Saving as a new version keeps the earlier review
+    history in the new sidecar (``new_version=True``; ``--new-version`` on the
+    command line); another name leaves the reviewed result as it is.
+
+    Attributes
+    ----------
+    path : str
+        The existing sidecar.
+    state : str or None
+        Its review state (``Submitted``, ``Approved``, ``Returned``, or
+        ``Draft`` with comments or decisions); ``None`` when it cannot be read.
+    """
+
+    def __init__(self, path: str | Path, state: str | None, message: str) -> None:
+        self.path = str(path)
+        self.state = state
+        super().__init__(message)
+
+
+#: Former name of :class:`ReviewedResultError` (when only approved results were protected).
+ApprovedResultError = ReviewedResultError

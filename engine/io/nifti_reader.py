@@ -14,11 +14,14 @@ References
 
 from __future__ import annotations
 
+import logging
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 
 import nibabel as nib
 import numpy as np
+from nibabel.openers import ImageOpener
 
 from engine.io.errors import LoadError
 from engine.io.geometry import nifti_affine_to_lps, spacing_from_affine
@@ -28,9 +31,22 @@ from engine.io.volume import SeriesInfo, Volume, check_size
 __all__ = ["load_nifti", "nifti_info"]
 
 
+@contextmanager
+def _quiet_nibabel() -> Iterator[None]:
+    """Keep nibabel from logging the header fixes it makes on stderr (they become notes here)."""
+    log = logging.getLogger("nibabel.global")
+    was = log.disabled
+    log.disabled = True
+    try:
+        yield
+    finally:
+        log.disabled = was
+
+
 def _open(path: str) -> nib.spatialimages.SpatialImage:
     try:
-        img = nib.load(path)
+        with _quiet_nibabel():
+            img = nib.load(path)
     except PermissionError:
         raise LoadError(path, "cannot be read: permission denied") from None
     except Exception as exc:
@@ -38,6 +54,51 @@ def _open(path: str) -> nib.spatialimages.SpatialImage:
     if not isinstance(img, (nib.Nifti1Image, nib.Nifti2Image, nib.Nifti1Pair, nib.Nifti2Pair)):
         raise LoadError(path, f"not a NIfTI image ({type(img).__name__})")
     return img
+
+
+def _stored_pixdim(path: str, img: nib.spatialimages.SpatialImage) -> tuple[float, float, float]:
+    """pixdim[1..3] as stored in the file (nibabel replaces zeros by 1 as it reads the header)."""
+    holder = img.file_map.get("header") or img.file_map.get("image")
+    header_file = (holder.filename if holder is not None else None) or path
+    try:
+        with _quiet_nibabel(), ImageOpener(header_file) as fh:
+            raw = type(img.header).from_fileobj(fh, check=False)
+        values = [float(v) for v in raw["pixdim"][1:4]]
+    except Exception:  # unreadable a second time: keep what nibabel made of it
+        values = [float(v) for v in img.header["pixdim"][1:4]]
+    return values[0], values[1], values[2]
+
+
+def _usable(value: float) -> bool:
+    return bool(np.isfinite(value) and value > 0)
+
+
+def _geometry(path: str, img: nib.spatialimages.SpatialImage,
+              notes: list[str]) -> tuple[np.ndarray, tuple[float, float, float]]:
+    """LPS affine and (slice, row, col) spacing; unusable spacing in the file is replaced by 1 mm, with a note."""
+    pixdim = _stored_pixdim(path, img)
+    coded = int(img.header["sform_code"]) > 0 or int(img.header["qform_code"]) > 0
+    affine = nifti_affine_to_lps(img.affine)
+    spacing = spacing_from_affine(affine)
+    if coded and all(_usable(v) for v in spacing):
+        return affine, spacing
+    if coded:
+        notes.append("degenerate affine in the file; spacing taken from pixdim")
+    zooms = [v if _usable(v) else 1.0 for v in pixdim]
+    bad = [f"{value:g} along {axis}" for axis, value, in zip(("i (columns)", "j (rows)", "k (slices)"), pixdim)
+           if not _usable(value)]
+    if bad:
+        notes.append(f"{path}: pixel spacing {', '.join(bad)} in the file's pixdim is not a spacing: "
+                     "1 mm assumed there")
+    spacing = (zooms[2], zooms[1], zooms[0])
+    base = img.affine if np.all(np.isfinite(img.affine)) else np.eye(4)
+    columns = np.asarray(base, dtype=np.float64)[:3, :3]
+    lengths = np.linalg.norm(columns, axis=0)
+    directions = np.where(lengths > 0, columns / np.where(lengths > 0, lengths, 1.0), np.eye(3))
+    fixed = np.eye(4)
+    fixed[:3, :3] = directions * np.asarray(zooms)[None, :]
+    fixed[:3, 3] = np.asarray(base, dtype=np.float64)[:3, 3]
+    return nifti_affine_to_lps(fixed), spacing
 
 
 def _grid(path: str, img: nib.spatialimages.SpatialImage) -> tuple[int, int, int]:
@@ -107,12 +168,7 @@ def load_nifti(
     if bad.any():
         notes.append(f"{int(bad.sum())} non-finite values (NaN/Inf) set to 0")
         out[bad] = 0.0
-    affine = nifti_affine_to_lps(img.affine)
-    spacing = spacing_from_affine(affine)
-    if min(spacing) <= 0:
-        zooms = [float(z) for z in img.header.get_zooms()[:3]] + [1.0] * 3
-        spacing = (zooms[2] or 1.0, zooms[1] or 1.0, zooms[0] or 1.0)
-        notes.append("degenerate affine in the file; spacing taken from pixdim")
+    affine, spacing = _geometry(path, img, notes)
     presets: tuple[tuple[float, float], ...] = ()
     cal_min, cal_max = float(img.header["cal_min"]), float(img.header["cal_max"])
     if np.isfinite(cal_min) and np.isfinite(cal_max) and cal_max > cal_min:

@@ -105,6 +105,10 @@ def _read_npy(path: str, max_bytes: int) -> tuple[np.ndarray, list[str]]:
         raise LoadError(path, "complex array; grey values expected")
     if arr.ndim not in (2, 3):
         raise LoadError(path, f"{arr.ndim}-D array {arr.shape}; 2-D [row, col] or 3-D [slice, row, col] expected")
+    if arr.size == 0:
+        names = ("rows", "columns") if arr.ndim == 2 else ("slices", "rows", "columns")
+        sizes = " x ".join(f"{n} {name}" for n, name in zip(arr.shape, names))
+        raise LoadError(path, f"the array is empty ({sizes}): no pixels to outline")
     check_size(path, arr.shape if arr.ndim == 3 else (1, *arr.shape), max_bytes)
     return arr, []
 

@@ -8,7 +8,12 @@ the seal itself: any edit of the file shows. It proves integrity, not
 authorship (anyone can recompute it).
 
 Patient name, ID and birth date are never copied into the sidecar unless the
-caller passes them explicitly (``patient=``).
+caller passes them explicitly (``patient=``). Folder names often hold them
+too, so input files are recorded by their path relative to the result's
+folder, or by file name alone (with their SHA-256) when the two share no
+folder below the file system's root; the operator is recorded only when the
+caller names one, and the software record holds versions, not the
+computer's platform string.
 
 References
 ----------
@@ -24,7 +29,6 @@ import csv
 import io
 import json
 import os
-import platform
 import re
 import sys
 from collections.abc import Mapping, Sequence
@@ -56,10 +60,11 @@ __all__ = [
     "seal_sha256",
     "sidecar_bytes",
     "review_state",
+    "recorded_path",
 ]
 
 #: Version of the ``Isotide`` block written by this code.
-SCHEMA_VERSION = "1.0.0"
+SCHEMA_VERSION = "1.1.0"
 
 #: File name of the JSON Schema inside ``engine/schemas``.
 SCHEMA_FILE = "isotide-dseg-sidecar-1.json"
@@ -235,7 +240,7 @@ def read_label_table_tsv(data: bytes) -> list[dict[str, Any]]:
 
 
 def software_info() -> dict[str, Any]:
-    """Isotide, Python, platform and library versions for the sidecar."""
+    """Isotide, Python and library versions for the sidecar (not the platform: it names the computer's system)."""
     from engine import __version__
 
     libraries = {}
@@ -248,19 +253,24 @@ def software_info() -> dict[str, Any]:
         "Name": "Isotide",
         "Version": __version__,
         "Python": sys.version.split()[0],
-        "Platform": platform.platform(),
         "Libraries": libraries,
     }
 
 
-def _relpath(path: str, base: Path) -> str:
-    p = Path(path)
-    if not p.is_absolute():
-        p = Path.cwd() / p
+def recorded_path(path: str, base: Path) -> str:
+    """``path`` relative to ``base``; its file name alone when they share no folder below the root.
+
+    A relative path that climbs to the root would spell out the absolute
+    one (folder names often hold patients' names).
+    """
+    p = Path(os.path.abspath(path))
     try:
-        return Path(os.path.relpath(p, base)).as_posix()
+        common = Path(os.path.commonpath([p, base]))
     except ValueError:  # another drive (Windows)
-        return p.as_posix()
+        return p.name or "(unnamed)"
+    if common == Path(common.anchor):
+        return p.name or "(unnamed)"
+    return Path(os.path.relpath(p, base)).as_posix()
 
 
 def _mapped(record: Mapping[str, Any], keys: Mapping[str, str], name: str) -> dict[str, Any]:
@@ -312,13 +322,13 @@ def _input_block(volume: Volume, base: Path) -> dict[str, Any]:
             bucket.append(uid)
     files = []
     for file, digest in volume.sha256.items():
-        entry: dict[str, Any] = {"Path": _relpath(file, base), "SHA256": digest}
+        entry: dict[str, Any] = {"Path": recorded_path(file, base), "SHA256": digest}
         if uids.get(file):
             entry["SOPInstanceUIDs"] = uids[file]
         files.append(entry)
     block: dict[str, Any] = {
         "Description": volume.source,
-        "Path": _relpath(volume.path, base) if volume.path else "(in memory)",
+        "Path": recorded_path(volume.path, base) if volume.path else "(in memory)",
         "Kind": volume.kind,
         "Modality": volume.modality,
         "Shape": list(volume.shape),
@@ -352,6 +362,8 @@ def build_sidecar(
     seg_sha256: str | None = None,
     patient: Mapping[str, str] | None = None,
     now: str | None = None,
+    version: int = 1,
+    versions: Sequence[Mapping[str, Any]] = (),
 ) -> dict[str, Any]:
     """Build (and seal) the sidecar document of a result.
 
@@ -393,6 +405,14 @@ def build_sidecar(
         ``{"Name", "ID", "BirthDate"}``, only when the user asked for them.
     now : str, optional
         Timestamp (default: :func:`utc_now`).
+    version : int
+        Version number of this result (1 for the first; a save over a
+        reviewed result makes the next one).
+    versions : sequence of dict
+        Earlier versions, oldest first, as :func:`engine.io.save_result`
+        carries them forward: ``Version``, ``SidecarSHA256`` and ``Review``
+        (the earlier review block) and, when known, ``Saved``, ``Operator``,
+        ``HistoryHead``, ``VoxelSHA256``, ``MaskSHA256`` or a ``Note``.
 
     Returns
     -------
@@ -409,6 +429,8 @@ def build_sidecar(
     unknown = set(provenance) - _PROVENANCE_KEYS
     if unknown:
         raise ValueError(f"provenance: unknown keys {sorted(unknown)} (allowed: {sorted(_PROVENANCE_KEYS)})")
+    if isinstance(version, bool) or not isinstance(version, (int, np.integer)) or version < 1:
+        raise ValueError(f"version: expected an int >= 1, got {version!r}")
     now = now or utc_now()
     table = normalise_label_table(label_table)
     base = Path(output_dir).resolve()
@@ -457,6 +479,8 @@ def build_sidecar(
         "Created": str(provenance.get("created") or now),
         "Saved": now,
         "Review": review,
+        "Version": int(version),
+        "Versions": [_jsonable(v, f"versions[{i}]") for i, v in enumerate(versions)],
     }
     if patient:
         isotide["Patient"] = {k: str(v) for k, v in patient.items() if k in ("Name", "ID", "BirthDate")}

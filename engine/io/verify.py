@@ -12,6 +12,10 @@ What is checked, each mismatch reported as one line:
 6. the DICOM SEG's SHA-256, when one was written;
 7. every input file that is still present hashes as recorded (missing inputs
    are noted, not counted as mismatches).
+
+A save that a kill stopped during its renames is completed first (see
+:mod:`engine.io.atomic`); a file that is not a result sidecar at all is
+reported as unreadable, not as a mismatch.
 """
 
 from __future__ import annotations
@@ -50,6 +54,8 @@ class VerifyReport:
         Things not checked and why (e.g. input files not present).
     checked : list of str
         What was checked and found matching.
+    inputs_skipped : int
+        Input files recorded but not checked (not present, or unreadable).
     """
 
     path: Path
@@ -58,6 +64,7 @@ class VerifyReport:
     problems: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     checked: list[str] = field(default_factory=list)
+    inputs_skipped: int = 0
 
     def fail(self, problem: str) -> None:
         self.ok = False
@@ -70,13 +77,19 @@ class VerifyReport:
 
 
 def sidecar_path(path: str | os.PathLike[str]) -> Path:
-    """The ``NAME_dseg.json`` for a sidecar, mask, label table, SEG or ``DIR/NAME`` path."""
+    """The ``NAME_dseg.json`` for a sidecar, mask, label table, SEG or ``DIR/NAME`` path (any ``.json`` as it is)."""
     p = Path(os.fspath(path))
     name = p.name
     for suffix in ("_dseg.json", "_dseg.nii.gz", "_dseg.tsv", ".seg.dcm"):
         if name.endswith(suffix):
             return p.with_name(name[: -len(suffix)] + "_dseg.json")
+    if name.lower().endswith(".json"):
+        return p
     return p.with_name(name + "_dseg.json")
+
+
+#: Keys every saved result's ``Isotide`` block has; a block with none of them is not a result.
+_RESULT_KEYS = ("Seal", "Output", "History")
 
 
 def _resolve(base: Path, stored: str) -> Path:
@@ -180,6 +193,18 @@ def verify(path: str | os.PathLike[str]) -> VerifyReport:
         raise ValueError(f"path: expected a str or path-like, got {type(path).__name__}")
     sidecar = sidecar_path(path)
     report = VerifyReport(path=sidecar)
+    name = sidecar.name
+    if name.endswith("_dseg.json") and len(name) > len("_dseg.json"):
+        from engine.io.errors import SaveError
+        from engine.io.writer import finish_interrupted_save
+
+        try:
+            if finish_interrupted_save(sidecar.with_name(name[: -len("_dseg.json")])):
+                report.notes.append("a save stopped during its renames was completed first (its journal was found)")
+        except SaveError as exc:
+            report.readable = False
+            report.fail(str(exc))
+            return report
     try:
         text = sidecar.read_text(encoding="utf-8")
     except FileNotFoundError:
@@ -199,6 +224,11 @@ def verify(path: str | os.PathLike[str]) -> VerifyReport:
     if not isinstance(doc, dict) or not isinstance(doc.get("Isotide"), dict):
         report.readable = False
         report.fail(f"{sidecar}: not an Isotide sidecar (no 'Isotide' block)")
+        return report
+    if not any(key in doc["Isotide"] for key in _RESULT_KEYS):
+        report.readable = False
+        report.fail(f"{sidecar}: not an Isotide result sidecar (its 'Isotide' block has no "
+                    f"{', '.join(_RESULT_KEYS)})")
         return report
     block = doc["Isotide"]
     base = sidecar.parent
@@ -255,4 +285,5 @@ def verify(path: str | os.PathLike[str]) -> VerifyReport:
             report.notes.append(f"input {entry['Path']}: cannot be read ({exc.strerror or exc}), not checked")
     if present:
         report.checked.append(f"{present} input file(s)")
+    report.inputs_skipped = sum(1 for n in report.notes if n.startswith("input "))
     return report

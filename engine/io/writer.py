@@ -12,23 +12,23 @@ from __future__ import annotations
 
 import gzip
 import hashlib
+import json
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
 import nibabel as nib
 import numpy as np
 
-from engine.io.atomic import commit_files
-from engine.io.errors import ApprovedResultError
+from engine.io.atomic import commit_files, finish_interrupted
+from engine.io.errors import ReviewedResultError
 from engine.io.geometry import lps_affine_to_nifti
 from engine.io.hashing import sha256_bytes
 from engine.io.sidecar import (
     build_sidecar,
     label_table_tsv,
     normalise_label_table,
-    review_state,
     seal_sidecar,
     sidecar_bytes,
     validate_sidecar,
@@ -39,6 +39,9 @@ __all__ = [
     "save_result",
     "save_sidecar",
     "result_paths",
+    "journal_path",
+    "finish_interrupted_save",
+    "check_replaceable",
     "voxel_sha256",
     "label_nifti_bytes",
     "as_label_volume",
@@ -64,6 +67,31 @@ def result_paths(prefix: str | os.PathLike[str]) -> dict[str, Path]:
         "json": p.with_name(f"{name}_dseg.json"),
         "seg": p.with_name(f"{name}.seg.dcm"),
     }
+
+
+def journal_path(prefix: str | os.PathLike[str]) -> Path:
+    """The journal a save of ``prefix`` (= ``DIR/NAME``) writes before its renames: ``DIR/.NAME_dseg.commit``.
+
+    Only present while a save's renames run, or after a kill stopped them
+    (see :mod:`engine.io.atomic`).
+    """
+    p = result_paths(prefix)["json"]
+    return p.with_name(f".{p.name[: -len('.json')]}.commit")
+
+
+def finish_interrupted_save(prefix: str | os.PathLike[str]) -> bool:
+    """Complete a save of ``prefix`` that a kill stopped during its renames; True when there was one.
+
+    Afterwards the result's files are the whole new set that save wrote.
+    :func:`save_result`, :func:`save_sidecar` and :func:`engine.io.verify`
+    call it first.
+
+    Raises
+    ------
+    SaveError
+        The journal is unreadable or a rename fails.
+    """
+    return finish_interrupted(journal_path(prefix))
 
 
 def voxel_sha256(labels: np.ndarray) -> str:
@@ -165,10 +193,12 @@ def save_result(
     label_table: Sequence[Mapping[str, Any]],
     provenance: Mapping[str, Any],
     dicom_seg: bool = False,
+    new_version: bool = False,
     overwrite_approved: bool = False,
     slice_index: int | None = None,
     include_patient_identifiers: bool = False,
     now: str | None = None,
+    checkpoint: Callable[[], None] | None = None,
 ) -> dict[str, Path]:
     """Write the result ``prefix`` (= ``DIR/NAME``) atomically.
 
@@ -196,14 +226,26 @@ def save_result(
         Also write ``NAME.seg.dcm`` (DICOM input only). It necessarily carries
         the study's patient and study identifiers. When False, a stale
         ``NAME.seg.dcm`` from an earlier save is removed.
+    new_version : bool
+        Allow replacing a result that carries a review (state ``Submitted``,
+        ``Approved`` or ``Returned``, or a ``Draft`` with a reviewer, comments
+        or decisions): the new files become the next version, a ``Draft``,
+        and the sidecar keeps every earlier version's review (``Versions``:
+        state, reviewer, decisions, comments, and the hashes of what was
+        reviewed). Earlier versions are always carried forward, whatever
+        this flag says; a result without a review is simply replaced.
     overwrite_approved : bool
-        Allow replacing a result whose review state is ``Approved``.
+        Former name of ``new_version`` (same effect).
     slice_index : int, optional
         See ``labels``.
     include_patient_identifiers : bool
         Copy patient name, ID and birth date into the sidecar (DICOM only).
     now : str, optional
         Timestamp to record (default: now, UTC).
+    checkpoint : callable, optional
+        Called between the steps of building and writing the files (see
+        :func:`engine.io.atomic.commit_files`); raise from it to stop the
+        save, which then changes nothing.
 
     Returns
     -------
@@ -212,9 +254,9 @@ def save_result(
 
     Raises
     ------
-    ApprovedResultError
-        The existing result is approved (or its sidecar unreadable) and
-        ``overwrite_approved`` is False. Nothing is written.
+    ReviewedResultError
+        The existing result carries a review (or its sidecar cannot be read)
+        and ``new_version`` is False. Nothing is written.
     SaveError
         Writing failed; the previous result is intact.
     ValueError
@@ -232,19 +274,8 @@ def save_result(
         raise ValueError(f"labels: values {unknown[:10]} have no entry in label_table")
     if dicom_seg and volume.kind != "dicom":
         raise ValueError("dicom_seg: a DICOM SEG needs DICOM input (the source images it refers to)")
-    if not overwrite_approved:
-        try:
-            state = review_state(paths["json"])
-        except ValueError:
-            raise ApprovedResultError(
-                f"{paths['json']}: existing sidecar cannot be read, so its review state is unknown; "
-                "pass overwrite_approved=True to replace it"
-            ) from None
-        if state == "Approved":
-            raise ApprovedResultError(
-                f"{paths['json']}: the existing result is Approved; pass overwrite_approved=True to replace it "
-                "(editing an approved outline should start a new version under a new name)"
-            )
+    finish_interrupted(journal_path(prefix))
+    version, versions = _carried_versions(paths["json"], new_version or overwrite_approved)
     counts = np.bincount(full.ravel(), minlength=int(full.max()) + 1 if full.size else 1)
     label_voxels = {e["index"]: int(counts[e["index"]]) if e["index"] < len(counts) else 0 for e in table}
     nifti = label_nifti_bytes(full, volume.affine)
@@ -255,6 +286,8 @@ def save_result(
         from engine.io.dicom_seg import dicom_seg_bytes
 
         operator = str(provenance.get("operator") or "") if isinstance(provenance, Mapping) else ""
+        if checkpoint is not None:
+            checkpoint()
         seg = dicom_seg_bytes(full, volume, table, operator=operator, series_description=paths["seg"].name)
         files[paths["seg"]] = seg
         seg_name, seg_hash = paths["seg"].name, sha256_bytes(seg)
@@ -274,10 +307,12 @@ def save_result(
         seg_sha256=seg_hash,
         patient=patient,
         now=now,
+        version=version,
+        versions=versions,
     )
     files[paths["json"]] = sidecar_bytes(doc)
     remove = [] if dicom_seg or not paths["seg"].exists() else [paths["seg"]]
-    commit_files(files, remove=remove)
+    commit_files(files, remove=remove, journal=journal_path(prefix), checkpoint=checkpoint)
     out = {"nifti": paths["nifti"], "tsv": paths["tsv"], "json": paths["json"]}
     if dicom_seg:
         out["seg"] = paths["seg"]
@@ -309,5 +344,100 @@ def save_sidecar(path: str | os.PathLike[str], doc: Mapping[str, Any]) -> Path:
     if problems:
         raise ValueError(f"doc: {problems[0]}")
     target = Path(os.fspath(path))
+    name = target.name
+    if name.endswith("_dseg.json") and len(name) > len("_dseg.json"):
+        finish_interrupted(journal_path(target.with_name(name[: -len("_dseg.json")])))
     commit_files({target: sidecar_bytes(sealed)})
     return target
+
+
+def check_replaceable(prefix: str | os.PathLike[str], *, new_version: bool = False) -> None:
+    """Raise what :func:`save_result` would raise about the result already at ``prefix``, before any work.
+
+    Completes an interrupted save there first.
+
+    Raises
+    ------
+    ReviewedResultError
+        The existing result carries a review (or cannot be read) and
+        ``new_version`` is False.
+    SaveError
+        An interrupted save there cannot be completed.
+    """
+    paths = result_paths(prefix)
+    finish_interrupted(journal_path(prefix))
+    _carried_versions(paths["json"], new_version)
+
+
+def _has_review(review: Any) -> bool:
+    """True when a sidecar's review block holds anything a reviewer did."""
+    if not isinstance(review, Mapping):
+        return True
+    return (review.get("State") != "Draft" or bool(review.get("Reviewer")) or bool(review.get("Decisions"))
+            or bool(review.get("Comments")))
+
+
+def _version_record(doc: Mapping[str, Any], raw: bytes) -> dict[str, Any]:
+    """What a new version keeps of the result it replaces: its review and what was reviewed."""
+    block = doc["Isotide"]
+    output = block.get("Output") if isinstance(block.get("Output"), Mapping) else {}
+    mask = output.get("Mask")
+    record: dict[str, Any] = {
+        "Version": block["Version"] if isinstance(block.get("Version"), int) and block["Version"] >= 1 else 1,
+        "SidecarSHA256": sha256_bytes(raw),
+        "Review": {key: block["Review"].get(key) for key in ("State", "Reviewer", "Decisions", "Comments")},
+    }
+    for key, value in (("Saved", block.get("Saved")), ("Operator", block.get("Operator")),
+                       ("HistoryHead", block.get("HistoryHead")), ("VoxelSHA256", output.get("VoxelSHA256")),
+                       ("MaskSHA256", mask.get("SHA256") if isinstance(mask, Mapping) else None)):
+        if isinstance(value, str):
+            record[key] = value
+    return record
+
+
+def _carried_versions(sidecar: Path, new_version: bool) -> tuple[int, list[dict[str, Any]]]:
+    """Version number and earlier versions for a save over ``sidecar``.
+
+    Raises
+    ------
+    ReviewedResultError
+        The existing result carries a review, or cannot be read, and
+        ``new_version`` is False.
+    """
+    if not sidecar.exists():
+        return 1, []
+    try:
+        raw = sidecar.read_bytes()
+        doc = json.loads(raw.decode("utf-8"))
+        block = doc["Isotide"]
+        review = block["Review"]
+        state = str(review["State"])
+        earlier = block.get("Versions", [])
+        if not isinstance(earlier, list) or not all(isinstance(v, dict) for v in earlier):
+            raise ValueError("Versions is not a list of records")
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        if not new_version:
+            raise ReviewedResultError(
+                sidecar, None,
+                f"{sidecar}: the existing sidecar cannot be read ({type(exc).__name__}), so its review is "
+                "unknown; save under another name, move it away, or save as a new version "
+                "(new_version=True), which records the unreadable file's SHA-256",
+            ) from None
+        try:
+            digest = sha256_bytes(sidecar.read_bytes())
+        except OSError as read_error:
+            raise ReviewedResultError(sidecar, None, f"{sidecar}: cannot be read ({read_error.strerror})") from None
+        return 2, [{"Version": 1, "SidecarSHA256": digest, "Review": None,
+                    "Note": "the earlier sidecar could not be read as an Isotide sidecar"}]
+    current = block["Version"] if isinstance(block.get("Version"), int) and block["Version"] >= 1 else 1
+    if not _has_review(review):
+        return current, list(earlier)
+    if not new_version:
+        what = {"Submitted": "is Submitted for review", "Approved": "is Approved", "Returned": "was Returned"}.get(
+            state, f"is a {state} with a review")
+        raise ReviewedResultError(
+            sidecar, state,
+            f"{sidecar}: the existing result {what}; replacing it would lose its review. Save as a new "
+            "version (new_version=True: the review history is kept in the new sidecar) or under another name",
+        )
+    return current + 1, [*earlier, _version_record(doc, raw)]
