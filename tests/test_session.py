@@ -199,7 +199,7 @@ def test_scripted_session_on_the_abdomen_case(tmp_path):
     s.commit()
     paths = s.save(str(tmp_path / "abdomen"))
     assert verify(paths["json"]).ok
-    back = open_result(paths["json"])
+    back = open_result(paths["json"], study=str(ABDOMEN / "dicom"))
     assert [(lab.index, lab.name, lab.colour) for lab in back.labels] == \
         [(lab.index, lab.name, lab.colour) for lab in s.labels]
     assert [(o.label, o.slice) for o in back.outlines()] == [(o.label, o.slice) for o in s.outlines()]
@@ -211,7 +211,7 @@ def test_scripted_session_on_the_abdomen_case(tmp_path):
     back.commit()
     again = back.save(str(tmp_path / "abdomen"))
     assert verify(again["json"]).ok
-    assert [h["Action"] for h in open_result(again["json"]).prior_history] == \
+    assert [h["Action"] for h in open_result(again["json"], study=str(ABDOMEN / "dicom")).prior_history] == \
         [c.action for c in s.history] + ["carry", "evolve", "commit"]
 
 

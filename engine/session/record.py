@@ -142,6 +142,9 @@ def open_result(path: str | os.PathLike[str], *, study: str | None = None,
         if not recorded or recorded == "(in memory)":
             raise ValueError(f"{sidecar}: the result was drawn on an image held in memory; give the study")
         study = str((base / recorded).resolve()) if not Path(recorded).is_absolute() else recorded
+        if not Path(study).exists():
+            raise ValueError(f"{sidecar}: its study is not at {recorded!r} beside it (the record keeps input paths "
+                             "relative to the result, or names only); open the study and give it")
     volume = load(study, series=block["Input"].get("SeriesInstanceUID") if _several_series(study) else None,
                   progress=progress)
     expected = sorted(f["SHA256"] for f in block["Input"]["Files"])
