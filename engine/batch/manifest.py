@@ -320,9 +320,9 @@ def parse_case(row: Mapping[str, Any], *, number: int, base: str | os.PathLike[s
             raise ValueError(f"seeds: slice {outside[0]} lies outside the slice range {slices[0]}-{slices[1]}")
     reference = None
     if not _blank(row.get("reference")):
-        reference = str((Path(os.fspath(base)) / str(row["reference"]).strip()).absolute())
+        reference = os.path.abspath(Path(os.fspath(base)) / str(row["reference"]).strip())
     name = _name(row["case"], "case") if not _blank(row.get("case")) else _name(case_stem(path), "case name of path")
-    return CaseSpec(row=number, name=name, path=str(path.absolute()), label=label, seeds=seeds, model=model,
+    return CaseSpec(row=number, name=name, path=os.path.abspath(path), label=label, seeds=seeds, model=model,
                     series=series, slices=slices, params=tuple(sorted(params.items())), reference=reference)
 
 

@@ -118,7 +118,7 @@ class CaseProgress:
         self.bar.close()
 
 
-def execute(cases, out: Path, args: argparse.Namespace, *, prog: str) -> tuple[list, bool]:
+def execute(cases, out: Path, args: argparse.Namespace) -> tuple[list, bool]:
     """Run ``cases`` as the flags say; returns (results, interrupted)."""
     from engine.batch import BatchInterrupted, RunOptions, batch_client, run_cases
 
@@ -126,20 +126,19 @@ def execute(cases, out: Path, args: argparse.Namespace, *, prog: str) -> tuple[l
     if args.scheduler and args.workers is not None:
         raise ValueError("--workers: not used with --scheduler (the scheduler's workers run the cases)")
     options = RunOptions(str(out.resolve()), force=bool(args.force), operator=operator_name())
-    progress = CaseProgress(len(cases), show=wants_progress(args.progress, sys.stderr), stream=sys.stderr,
-                            out=sys.stdout)
-    try:
-        with batch_client(workers=workers, scheduler=args.scheduler) as client:
-            where = ("this process" if client is None else
-                     f"scheduler {args.scheduler}" if args.scheduler else
-                     f"a local cluster of {len(client.scheduler_info()['workers'])} worker processes")
-            print(f"{len(cases)} case{'s' if len(cases) != 1 else ''} on {where}", flush=True)
-            try:
-                return run_cases(cases, options, client=client, on_result=progress), False
-            except BatchInterrupted as stop:
-                return stop.results, True
-    finally:
-        progress.close()
+    with batch_client(workers=workers, scheduler=args.scheduler) as client:
+        where = ("in this process" if client is None else
+                 f"through the scheduler {args.scheduler}" if args.scheduler else
+                 f"on a local cluster of {len(client.scheduler_info()['workers'])} worker processes")
+        print(f"{len(cases)} case{'s' if len(cases) != 1 else ''} {where}", flush=True)
+        progress = CaseProgress(len(cases), show=wants_progress(args.progress, sys.stderr), stream=sys.stderr,
+                                out=sys.stdout)
+        try:
+            return run_cases(cases, options, client=client, on_result=progress), False
+        except BatchInterrupted as stop:
+            return stop.results, True
+        finally:
+            progress.close()
 
 
 def run(args: argparse.Namespace) -> int:
@@ -150,7 +149,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         out = check_out(args.out)
         cases = read_manifest(args.manifest)
-        results, interrupted = execute(cases, out, args, prog=PROG)
+        results, interrupted = execute(cases, out, args)
     except KeyboardInterrupt:
         print(f"\n{PROG}: interrupted", file=sys.stderr)
         return 130

@@ -108,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
         varies = [parse_vary(v) for v in args.vary]
         out = check_out(args.out)
         cases = sweep_cases(base_cases(args), varies)
-        results, interrupted = execute(cases, out, args, prog=PROG)
+        results, interrupted = execute(cases, out, args)
     except KeyboardInterrupt:
         print(f"\n{PROG}: interrupted", file=sys.stderr)
         return 130
