@@ -98,10 +98,11 @@ def batch_client(*, workers: int | None = None, scheduler: str | None = None,
     import dask
     from distributed import Client, LocalCluster
 
-    # A lost worker fails its task at once; run_cases resubmits it once itself.
+    # A lost worker fails its task at once; run_cases resubmits it once itself. The scheduler's
+    # HTTP routes (and dashboard, when bokeh is installed) take a free loopback port, not 8787.
     with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                               scheduler_port=0, dashboard_address=None, silence_logs=logging.CRITICAL)
+                               scheduler_port=0, dashboard_address="127.0.0.1:0", silence_logs=logging.CRITICAL)
     try:
         client = Client(cluster, set_as_default=False)
         try:
