@@ -25,7 +25,8 @@ GOOD_ROWS = [
      "case": "head"},
 ]
 
-COLUMNS = ["path", "label", "seeds", "model", "series", "slice", "window", "smoothness", "drive", "reference", "case"]
+COLUMNS = ["path", "label", "seeds", "model", "series", "slice", "window", "smoothness", "drive", "max_steps",
+           "reference", "case"]
 
 
 def write_manifest(path: Path, rows: list[dict]) -> Path:

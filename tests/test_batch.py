@@ -104,6 +104,17 @@ def test_a_case_outlines_its_slices_through_the_session_and_records_how(tmp_path
     assert history[-1]["Details"]["result"]["slices"] == "10-12"
 
 
+def test_a_step_limit_stops_each_slice_and_is_reported(tmp_path):
+    rows = [dict(GOOD_ROWS[3], max_steps="7")]
+    code = main(["batch", str(write_manifest(tmp_path / "m.csv", rows)), "--out", str(tmp_path / "out"),
+                 "--workers", "0"])
+    assert code == 0
+    row = read_summary(tmp_path / "out" / "summary.csv")["right lateral ventricle/head"]
+    assert row["status"] == "done" and row["steps"] == "21" and row["not_converged"] == "6-8"
+    problem = read_manifest(write_manifest(tmp_path / "bad.csv", [dict(GOOD_ROWS[3], max_steps="0")]))[0]
+    assert isinstance(problem, CaseProblem) and "max_steps" in problem.error
+
+
 # ------------------------------------------------------------------- resume
 def test_resume_skips_finished_cases_and_reruns_changed_ones(tmp_path, monkeypatch):
     calls: list[str] = []

@@ -14,7 +14,6 @@ never raises (except ``KeyboardInterrupt`` in the calling process).
 from __future__ import annotations
 
 import math
-import os
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
@@ -76,6 +75,8 @@ class CaseResult:
     variant: tuple[tuple[str, Any], ...] = field(default=())
     attempts: int = 1
     worker_seconds: float = 0.0  # wall time inside the worker, loading and saving included
+    cpu_seconds: float = 0.0  # processor time of the worker process over the case (all its threads)
+    unconverged: str = ""  # slices whose front stopped at the step limit
 
 
 def problem_result(case: CaseProblem | CaseSpec, error: str, *, status: str = "failed") -> CaseResult:
@@ -111,7 +112,7 @@ def _cancel_check(event_name: str | None) -> Callable[[], bool]:
 
 
 def outline_case(spec: CaseSpec, *, cancel: Callable[[], bool] = lambda: False, operator: str = ""
-                 ) -> tuple[Any, int, list[int], int, list[int]]:
+                 ) -> tuple[Any, int, list[int], int, list[int], list[int]]:
     """Open the study and outline the case's label on its slices.
 
     Returns
@@ -126,6 +127,8 @@ def outline_case(spec: CaseSpec, *, cancel: Callable[[], bool] = lambda: False, 
         Front steps over all slices.
     vanished : list of int
         Slices a carried front vanished on (the structure ends there).
+    unconverged : list of int
+        Slices whose front stopped at the step limit without converging.
 
     Raises
     ------
@@ -157,6 +160,7 @@ def outline_case(spec: CaseSpec, *, cancel: Callable[[], bool] = lambda: False, 
     session.set_params(label, model=spec.model, **dict(spec.params))
     steps = 0
     done: set[int] = set()
+    unconverged: list[int] = []
 
     def grow(k: int) -> bool:
         nonlocal steps
@@ -167,6 +171,8 @@ def outline_case(spec: CaseSpec, *, cancel: Callable[[], bool] = lambda: False, 
         if frame.vanished:
             session.clear_front()
             return False
+        if not frame.converged:
+            unconverged.append(k)
         session.commit()
         done.add(k)
         return True
@@ -183,7 +189,7 @@ def outline_case(spec: CaseSpec, *, cancel: Callable[[], bool] = lambda: False, 
                 session.carry(k, label=label, from_slice=k + step)
                 if not grow(k):
                     vanished.append(k)
-    return session, label, sorted(done), steps, vanished
+    return session, label, sorted(done), steps, vanished, sorted(unconverged)
 
 
 def run_case(spec: CaseSpec | CaseProblem, options: RunOptions) -> CaseResult:
@@ -198,7 +204,7 @@ def run_case(spec: CaseSpec | CaseProblem, options: RunOptions) -> CaseResult:
     """
     if isinstance(spec, CaseProblem):
         return problem_result(spec, spec.error)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     prefix = result_prefix(options.out_dir, spec)
     base = CaseResult(spec.row, spec.name, spec.label, "failed", output=str(prefix), variant=spec.variant)
     try:
@@ -211,9 +217,10 @@ def run_case(spec: CaseSpec | CaseProblem, options: RunOptions) -> CaseResult:
                                area_mm2=figure_from_record(recorded.get("area_mm2")),
                                dice=figure_from_record(recorded.get("dice")),
                                hd95_mm=figure_from_record(recorded.get("hd95_mm")),
+                               unconverged=str(recorded.get("unconverged", "")),
                                worker_seconds=time.perf_counter() - t0)
-        session, label, outlined, steps, vanished = outline_case(spec, cancel=_cancel_check(options.cancel_event),
-                                                                 operator=options.operator)
+        session, label, outlined, steps, vanished, unconverged = outline_case(
+            spec, cancel=_cancel_check(options.cancel_event), operator=options.operator)
         from engine.session import label_volume
 
         labels = label_volume(session) == label
@@ -225,12 +232,14 @@ def run_case(spec: CaseSpec | CaseProblem, options: RunOptions) -> CaseResult:
             dice, hd95 = score(labels, ref, (lo, hi), session.volume.spacing)
         seconds = time.perf_counter() - t0
         figures = {"slices": slice_text(outlined), "steps": steps, "seconds": round(seconds, 3),
+                   "unconverged": slice_text(unconverged),
                    "area_mm2": plain_figure(area), "dice": plain_figure(dice), "hd95_mm": plain_figure(hd95)}
         details = {"case_key": key, "case": spec.name, "row": spec.row, "settings": spec.settings_record(),
                    "variant": {k: v for k, v in spec.variant}, "vanished_on": vanished, "result": figures}
         session.save(str(prefix), history_entry={"action": ACTION, "details": details})
         return replace(base, status="done", slices=figures["slices"], steps=steps, seconds=seconds, area_mm2=area,
-                       dice=dice, hd95_mm=hd95, worker_seconds=time.perf_counter() - t0)
+                       dice=dice, hd95_mm=hd95, worker_seconds=time.perf_counter() - t0,
+                       cpu_seconds=time.process_time() - c0, unconverged=figures["unconverged"])
     except CaseCancelled:
         return replace(base, status="cancelled", error="the batch was cancelled while the case ran",
                        worker_seconds=time.perf_counter() - t0)

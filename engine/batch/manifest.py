@@ -19,6 +19,7 @@ slice      no       ``K`` or ``FIRST-LAST``: the slices to outline (seeds
 window     no       ``LOW,HIGH`` (window model)
 smoothness no       curvature weight
 drive      no       image-driven speed weight
+max_steps  no       step limit of each slice's front (default 20000)
 reference  no       a label volume to compare with (Dice, HD95); the label's
                     value in it is found by name in its ``.tsv`` label table
 case       no       the case's name in output file names (default: the file
@@ -58,7 +59,8 @@ __all__ = [
 ]
 
 #: Every field a manifest row may have, in the order the documentation lists them.
-COLUMNS = ("path", "label", "seeds", "model", "series", "slice", "window", "smoothness", "drive", "reference", "case")
+COLUMNS = ("path", "label", "seeds", "model", "series", "slice", "window", "smoothness", "drive", "max_steps",
+           "reference", "case")
 #: Fields every row must have.
 REQUIRED = ("path", "label", "seeds", "model")
 #: Characters a label or case name may not hold (they name folders and files).
@@ -309,6 +311,10 @@ def parse_case(row: Mapping[str, Any], *, number: int, base: str | os.PathLike[s
         params["smoothness"] = _number(row["smoothness"], "smoothness", minimum=0.0)
     if not _blank(row.get("drive")):
         params["drive"] = _number(row["drive"], "drive")
+    if not _blank(row.get("max_steps")):
+        params["max_steps"] = _whole(row["max_steps"], "max_steps")
+        if params["max_steps"] < 1:
+            raise ValueError(f"max_steps {row['max_steps']!r}: expected a whole number >= 1")
     FrontSettings(model=model).updated(**params)  # refuses values the front would refuse
     if slices is not None:
         unplaced = [s for s in seeds if s[0] is None]

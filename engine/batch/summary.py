@@ -16,7 +16,7 @@ __all__ = ["SUMMARY_COLUMNS", "summary_rows", "write_table", "format_figure", "c
 
 #: Columns of ``summary.csv``; a sweep puts its varied settings after ``label``.
 SUMMARY_COLUMNS = ("case", "label", "slices", "steps", "time_s", "area_mm2", "dice", "hd95_mm", "status", "error",
-                   "attempts", "row", "output")
+                   "not_converged", "attempts", "row", "output")
 
 
 def format_figure(value: float, digits: int) -> str:
@@ -53,6 +53,7 @@ def summary_rows(results: Sequence[CaseResult], *, out_dir: str | os.PathLike[st
             "hd95_mm": format_figure(r.hd95_mm, 2),
             "status": r.status,
             "error": r.error,
+            "not_converged": r.unconverged,
             "attempts": r.attempts,
             "row": r.row,
             "output": output if r.status in ("done", "up to date") else "",

@@ -93,6 +93,8 @@ def case_line(result) -> str:
         bits = [f"slices {result.slices}", f"{result.steps} steps", f"{result.seconds:.1f} s"]
         if result.dice == result.dice:  # not NaN: scored against a reference
             bits.append(f"Dice {format_figure(result.dice, 3)}, HD95 {format_figure(result.hd95_mm, 1)} mm")
+        if result.unconverged:
+            bits.append(f"stopped at the step limit on slice(s) {result.unconverged}")
         return f"{result.status:<10} {where}: " + ", ".join(bits)
     return f"{result.status:<10} {where}: {result.error}"
 

@@ -13,6 +13,8 @@ ends included) or ``NAME=V1,V2,...``; give it once per setting
 outline-averaging). Every combination runs on every case, on the same
 kind of cluster as ``isotide batch`` (``--workers``, ``--scheduler``).
 
+``--max-steps N`` limits each slice's front of a study given as CASE.
+
 Output: ``DIR/<label>/<case>_<setting>-<value>..._dseg.*`` per run,
 ``DIR/sweep.csv`` (one row per run: case, label, the varied settings, slices,
 steps, time, area, Dice, HD95, status, error) and ``DIR/sweep.png`` (Dice and
@@ -25,7 +27,9 @@ Exit codes: 0 every run done or up to date, 1 some run failed, 2 bad input,
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 from engine.commands.batch import add_run_arguments, check_out, execute
@@ -51,6 +55,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--model", default="region", metavar="MODEL", help="speed model for a study given as CASE")
     parser.add_argument("--slice", metavar="K|FIRST-LAST", help="slices to outline for a study given as CASE")
     parser.add_argument("--series", metavar="SERIES", help="series of a folder with several (index or UID)")
+    parser.add_argument("--max-steps", metavar="N", help="step limit of each slice's front (default 20000)")
     parser.add_argument("--reference", metavar="REF", help="reference label volume to score against")
     add_run_arguments(parser)
 
@@ -71,13 +76,13 @@ def base_cases(args: argparse.Namespace) -> list:
                 raise ValueError(f"{text}: has no case of label {label!r}")
             for case in rows:
                 if not isinstance(case, CaseProblem) and case.reference is None and args.reference:
-                    case = parse_case(_row_of(case, args.reference), number=case.row, base=".")
+                    case = replace(case, reference=os.path.abspath(args.reference))
                 cases.append(case)
             continue
         if not args.seed:
             raise ValueError(f"--seed: required for the study {text} (or give a manifest as CASE)")
         row = {"path": text, "label": label, "seeds": ";".join(args.seed), "model": args.model,
-               "slice": args.slice, "series": args.series, "reference": args.reference}
+               "slice": args.slice, "series": args.series, "reference": args.reference, "max_steps": args.max_steps}
         try:
             cases.append(parse_case(row, number=len(cases) + 1, base="."))
         except ValueError as exc:
@@ -86,15 +91,6 @@ def base_cases(args: argparse.Namespace) -> list:
         if not isinstance(case, CaseProblem) and case.reference is None:
             raise ValueError(f"--reference: required for {case.path} (nothing to score the sweep against)")
     return mark_collisions(cases, unit="case")
-
-
-def _row_of(case, reference: str) -> dict:
-    """A manifest row equal to ``case`` with ``reference`` filled in."""
-    return {"path": case.path, "label": case.label, "model": case.model, "case": case.name,
-            "seeds": ";".join(f"{'' if k is None else f'{k}:'}{r:g},{c:g},{rad:g}" for k, r, c, rad in case.seeds),
-            "series": case.series, "slice": "" if case.slices is None else f"{case.slices[0]}-{case.slices[1]}",
-            "reference": str(Path(reference).absolute()),
-            **{k: (",".join(f"{x:g}" for x in v) if isinstance(v, tuple) else v) for k, v in case.params}}
 
 
 def run(args: argparse.Namespace) -> int:
