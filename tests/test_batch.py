@@ -263,3 +263,14 @@ def test_sweep_runs_the_grid_and_plots_it(tmp_path, capsys):
                  "--out", str(tmp_path / "sweep"), "--workers", "0"])
     assert code == 0
     assert "2 up to date" in capsys.readouterr().out  # the same runs as above: nothing to redo
+
+
+def test_an_unreachable_scheduler_is_one_clear_error():
+    from engine.batch import batch_client
+
+    with pytest.raises(ValueError, match="--scheduler tcp://127.0.0.1:9: cannot connect"):
+        with batch_client(scheduler="tcp://127.0.0.1:9", timeout=1.0):
+            pass
+    with pytest.raises(ValueError, match="workers"):
+        with batch_client(workers=-1):
+            pass

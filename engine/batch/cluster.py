@@ -100,7 +100,13 @@ def batch_client(*, workers: int | None = None, scheduler: str | None = None,
 
     # A lost worker fails its task at once; run_cases resubmits it once itself. The scheduler's
     # HTTP routes (and dashboard, when bokeh is installed) take a free loopback port, not 8787.
-    with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
+    # Workers keep glibc's own malloc thresholds: Dask's MALLOC_TRIM_THRESHOLD_ (which also turns
+    # off the dynamic mmap threshold) made every array of a step a fresh mmap, and a case took 1.6
+    # times the processor time it takes here (DEVELOPERS.md, Batches).
+    # No statistical profiler either (it samples the case's stack every 10 ms for a dashboard).
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0,
+                          "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None,
+                          "distributed.worker.profile.enabled": False}):
         cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
                                scheduler_port=0, dashboard_address="127.0.0.1:0", silence_logs=logging.CRITICAL)
     try:
@@ -119,7 +125,6 @@ def _import_engine() -> None:
     import engine.batch.case  # noqa: F401
     import engine.io  # noqa: F401
     import engine.session  # noqa: F401
-    import engine.segment  # noqa: F401
 
 
 def run_cases(cases: Sequence[CaseSpec | CaseProblem], options: RunOptions, *, client: Any = None,

@@ -30,9 +30,12 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import TextIO
+from typing import TYPE_CHECKING, TextIO
 
 from engine.commands.segment import fail, one_line_errors, operator_name, wants_progress
+
+if TYPE_CHECKING:
+    from engine.batch import CaseResult
 
 HELP = "outline every case of a manifest (CSV or JSON), here or on a Dask cluster"
 
@@ -82,7 +85,7 @@ def check_out(out: str | None) -> Path:
     return path
 
 
-def case_line(result) -> str:
+def case_line(result: CaseResult) -> str:
     """One line per finished case: status, label/case, figures or the error."""
     from engine.batch.summary import format_figure
 
@@ -110,7 +113,7 @@ class CaseProgress:
         self.bar = tqdm(total=total, unit="case", file=stream, disable=not show, dynamic_ncols=True,
                         desc="cases")
 
-    def __call__(self, result) -> None:
+    def __call__(self, result: CaseResult) -> None:
         self.counts[result.status] = self.counts.get(result.status, 0) + 1
         self.bar.write(case_line(result), file=self.out)
         self.bar.set_postfix_str(", ".join(f"{v} {k}" for k, v in self.counts.items() if v), refresh=False)

@@ -111,11 +111,12 @@ def main() -> None:
         here = run_on(0, cases, Path(tmp) / "here")
         one = run_on(1, cases, Path(tmp) / "one")
         two = run_on(2, cases, Path(tmp) / "two")
-    print(f"\n{'where':<26}{'start s':>9}{'wall s':>9}{'cases/min':>11}{'in cases s':>12}{'peak MB/worker':>18}")
+    print(f"\n{'where':<26}{'start s':>9}{'wall s':>9}{'cases/min':>11}{'in cases s':>12}{'processor s':>13}"
+          f"{'peak MB/worker':>18}")
     for label, r in (("this process", here), ("LocalCluster, 1 worker", one), ("LocalCluster, 2 workers", two)):
         mem = "/".join(f"{m:.0f}" for m in r["memory"])
         print(f"{label:<26}{r['start']:>9.2f}{r['wall']:>9.2f}{60 * n / r['wall']:>11.1f}{r['inside']:>12.2f}"
-              f"{mem:>18}")
+              f"{sum(r['cpu']):>13.2f}{mem:>18}")
     times = one["times"]
     print(f"\ncase time inside a worker: median {statistics.median(times):.2f} s, longest {max(times):.2f} s, "
           f"total {sum(times):.2f} s; median Dice against the truth {one['dice']:.4f}")
