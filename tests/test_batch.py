@@ -274,3 +274,17 @@ def test_an_unreachable_scheduler_is_one_clear_error():
     with pytest.raises(ValueError, match="workers"):
         with batch_client(workers=-1):
             pass
+
+
+def test_save_records_one_more_history_entry_after_the_commands(tmp_path):
+    s = Session.from_array(np.full((64, 64), 100.0))
+    lab = s.add_label("disk").index
+    s.extend([[32, 32]], 10.0, label=lab, slice=0)
+    s.commit()
+    with pytest.raises(ValueError, match="history_entry"):
+        s.save(str(tmp_path / "r"), history_entry={"details": {}})
+    paths = s.save(str(tmp_path / "r"), history_entry={"action": "batch", "details": {"case_key": "k"}})
+    assert verify(paths["json"]).ok  # the entry is inside the hash chain
+    history = json.loads(paths["json"].read_text())["Isotide"]["History"]
+    assert [h["Action"] for h in history] == ["label_add", "extend", "commit", "batch"]
+    assert history[-1]["Details"] == {"case_key": "k"} and history[-1]["PrevSHA256"] == history[-2]["SHA256"]
