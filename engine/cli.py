@@ -18,6 +18,8 @@ VERBS: dict[str, str] = {
     "demo": "engine.commands.demo",
     "segment": "engine.commands.segment",
     "verify": "engine.commands.verify",
+    "batch": "engine.commands.batch",
+    "sweep": "engine.commands.sweep",
 }
 
 

@@ -79,10 +79,13 @@ def provenance_record(session: "Session", *, operator: str | None = None,
 def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: bool = False,
                  operator: str | None = None, overwrite_approved: bool = False,
                  include_patient_identifiers: bool = False, description: str | None = None,
-                 now: str | None = None) -> dict[str, Path]:
+                 now: str | None = None, history_entry: Mapping[str, Any] | None = None) -> dict[str, Path]:
     """Save the session's committed outlines as the result ``out`` (= ``DIR/NAME``).
 
-    The live front is not saved until it is committed. Returns the paths
+    The live front is not saved until it is committed. ``history_entry``
+    (``{"action": ..., "details": {...}}``) is one more entry of the saved
+    history, after the session's commands: how the session was driven (a
+    batch case records its settings and figures there). Returns the paths
     written (see :func:`engine.io.save_result`, whose errors it raises).
     """
     from engine.io import save_result
@@ -92,6 +95,10 @@ def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: 
     if not table:
         raise ValueError("the session has no label to save")
     prov = provenance_record(session, operator=operator, description=description)
+    if history_entry is not None:
+        if not isinstance(history_entry, Mapping) or not str(history_entry.get("action") or "").strip():
+            raise ValueError("history_entry: expected a mapping with an 'action' text")
+        prov["history"].append(dict(history_entry))
     paths = save_result(out, label_volume(session), session.volume, label_table=table, provenance=prov,
                         dicom_seg=dicom_seg, overwrite_approved=overwrite_approved,
                         include_patient_identifiers=include_patient_identifiers, now=now)
