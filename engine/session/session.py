@@ -210,10 +210,9 @@ class Session:
         return self._hidden
 
     def set_label_visible(self, index: int, visible: bool) -> None:
-        """Show or hide a label's outlines (a view setting: not on the undo stack)."""
+        """Show or hide a label's outlines (a view setting: not on the undo stack; safe while a front evolves)."""
         self.label(index)
         self._hidden = self._hidden - {index} if visible else self._hidden | {index}
-        self._publish()
 
     # --------------------------------------------------------------- commands
     def _check_slice(self, slice_index: int) -> int:
