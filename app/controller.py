@@ -87,11 +87,10 @@ class SessionController(QObject):
         thread.worker.frame.disconnect(self._on_frame)
         if not thread.stop():
             self._retiring.append(thread)
-            thread.thread.finished.connect(lambda t=thread: self._retired(t))
+            thread.thread.finished.connect(self._prune_retired)  # a bound method: runs in the GUI thread
 
-    def _retired(self, thread: WorkerThread) -> None:
-        if thread in self._retiring:
-            self._retiring.remove(thread)
+    def _prune_retired(self) -> None:
+        self._retiring = [t for t in self._retiring if not t.thread.isFinished()]
 
     def shutdown(self, *, wait_ms: int = 10000) -> bool:
         """Stop every worker (a running front stops within one step); True when all have finished."""

@@ -117,6 +117,7 @@ class StudyOpener(QObject):
         self._job: _LoadJob | None = None
         self._dialog: QProgressDialog | None = None
         self._cancel = threading.Event()
+        self._path = ""
         self.quiet = False  # True: no dialogs (errors still reported through failedToOpen)
 
     @property
@@ -135,7 +136,8 @@ class StudyOpener(QObject):
         self._thread.started.connect(self._job.run)
         self._job.progress.connect(self._progress)
         self._job.finished.connect(self._finished)
-        self._job.failed.connect(lambda message, p=path: self._failed(p, message))
+        self._path = path
+        self._job.failed.connect(self._failed)  # a bound method: runs in the GUI thread
         self._job.choose.connect(self._choose)
         if not self.quiet:
             dialog = QProgressDialog(f"Reading {Path(path).name}…", "Cancel", 0, 0, self.parent_widget)
@@ -167,7 +169,8 @@ class StudyOpener(QObject):
         self._done()
         self.opened.emit(opened)
 
-    def _failed(self, path: str, message: str) -> None:
+    def _failed(self, message: str) -> None:
+        path = self._path
         self._done()
         if not message:
             return  # cancelled

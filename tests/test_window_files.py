@@ -1,0 +1,79 @@
+"""Bad input through the window, and a second study opened while a front evolves.
+
+A corrupt file must give an error dialog with the engine's one-line message
+naming the file, and leave the window as it was (the study in view still
+works); opening another study while the worker evolves a front must stop
+that run within a step, record it, and let the worker thread finish.
+"""
+
+from __future__ import annotations
+
+import pytest
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QMessageBox
+
+from tests.window_helpers import ABDOMEN, HEAD, click, key, make_window, open_and_wait, wait_idle
+
+pytestmark = pytest.mark.gui
+
+
+@pytest.fixture
+def errors(monkeypatch):
+    """Error dialogs shown (recorded instead of waiting for a click)."""
+    shown: list[tuple[str, str]] = []
+    monkeypatch.setattr("app.study_io.QMessageBox.critical", lambda parent, title, text: shown.append((title, text)))
+    return shown
+
+
+@pytest.mark.parametrize("name,content", [
+    ("broken.nii.gz", b"\x1f\x8b\x08\x00" + b"not really a gzip stream" * 4),
+    ("truncated.dcm", b"\x00" * 128 + b"DICM" + b"\x02\x00\x10\x00UI"),
+    ("picture.png", b"\x89PNG\r\n\x1a\n" + b"\x00" * 20),
+])
+def test_a_corrupt_file_gives_an_error_dialog_and_the_study_in_view_stays_usable(qtbot, tmp_path, errors, name,
+                                                                                 content):
+    w = make_window(qtbot, tmp_path)
+    open_and_wait(qtbot, w, HEAD / "image.nii.gz")
+    study = w.controller.session
+    bad = tmp_path / name
+    bad.write_bytes(content)
+    assert w.open_path(str(bad))
+    qtbot.waitUntil(lambda: bool(errors) and not w.opener.busy, timeout=30000)
+    title, text = errors[0]
+    assert title == "Cannot open" and name in text and "\n" not in text
+    assert w.controller.session is study and w.views.session is study
+    # still usable: a seed on the tumour (sample_cases/head_mr/README.md) grows a front
+    lab_count = len(study.labels)
+    w.views.set_slice(10)
+    click(qtbot, w.views.main, 50, 102)
+    wait_idle(qtbot, w)
+    assert len(study.labels) == lab_count + 1 and study.frame().contours
+
+
+def test_opening_a_missing_path_reports_it(qtbot, tmp_path, errors):
+    w = make_window(qtbot, tmp_path)
+    assert w.open_path(str(tmp_path / "nothing-here.nii.gz"))
+    qtbot.waitUntil(lambda: bool(errors), timeout=20000)
+    assert "nothing-here.nii.gz" in errors[0][1]
+    assert w.controller.session is None
+
+
+def test_opening_a_second_study_while_a_front_evolves_stops_it_cleanly(qtbot, tmp_path, monkeypatch):
+    monkeypatch.setattr("app.window_files.ask_save_changes", lambda *a: QMessageBox.StandardButton.Discard)
+    w = make_window(qtbot, tmp_path)
+    open_and_wait(qtbot, w, ABDOMEN / "dicom")
+    first = w.controller.session
+    while w.views.slice_index != 16:
+        key(qtbot, w, Qt.Key.Key_PageDown if w.views.slice_index < 16 else Qt.Key.Key_PageUp)
+    click(qtbot, w.views.main, 106, 112)  # the liver: it takes seconds to converge
+    qtbot.waitUntil(lambda: first.running and first.frame().steps > 3, timeout=30000)
+    thread = w.controller._thread.thread
+    open_and_wait(qtbot, w, HEAD / "image.nii.gz")
+    qtbot.waitUntil(thread.isFinished, timeout=10000)
+    qtbot.waitUntil(lambda: w.controller.retiring == 0, timeout=10000)
+    assert not first.running
+    run = first.history[-1]
+    assert run.action == "evolve" and not run.details["converged"]  # stopped, and kept as one command
+    second = w.controller.session
+    assert second is not first and w.views.session is second and second.live is None
+    assert w.controller.undo_stack.count() == 0
