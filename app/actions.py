@@ -43,6 +43,8 @@ _SPECS = {
     "next_slice": ("Next slice", "PgDown", "Show the next slice"),
     "previous_slice": ("Previous slice", "PgUp", "Show the previous slice"),
     "fit": ("Fit to window", "Ctrl+0", "Show the whole slice"),
+    "zoom_in": ("Zoom in", QKeySequence.StandardKey.ZoomIn, "Enlarge the Slice view (also Ctrl+wheel)"),
+    "zoom_out": ("Zoom out", QKeySequence.StandardKey.ZoomOut, "Shrink the Slice view (also Ctrl+wheel)"),
     "three_views": ("Three views", "", "Show the planes of fixed row and column beside the Slice view"),
     "curvature": ("Curvature colours", "", "Colour outlines by their curvature (1/mm)"),
     "brush_smaller": ("Smaller brush", "[", "Brush radius − 0.5 mm"),
@@ -100,7 +102,7 @@ def make_menus(window: QMainWindow, actions: dict[str, QAction]) -> dict[str, QM
     for key in ("undo", "redo"):
         edit.addAction(actions[key])
     view = bar.addMenu("&View")
-    for key in ("next_slice", "previous_slice", "fit", "three_views", "curvature"):
+    for key in ("next_slice", "previous_slice", "zoom_in", "zoom_out", "fit", "three_views", "curvature"):
         view.addAction(actions[key])
     menus["window"] = view.addMenu("Window/level")
     menus["docks"] = view.addMenu("Panels")

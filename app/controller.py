@@ -18,7 +18,7 @@ from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from typing import Any
 
-from PySide6.QtCore import QObject, Signal
+from PySide6.QtCore import QObject, QTimer, Signal
 from PySide6.QtGui import QUndoStack
 
 from app.undo_mirror import UndoMirror
@@ -57,6 +57,7 @@ class SessionController(QObject):
         self._was_running = False
         self._was_idle = True
         self.requests_done = 0
+        self._catching_up = False
         self._settingsResult.connect(self._settings_reported)
 
     # ------------------------------------------------------------- the case
@@ -174,9 +175,20 @@ class SessionController(QObject):
             self.runFinished.emit(self.session.frame())
 
     def _on_frame(self) -> None:
+        if self.session is None:
+            return
+        drawn = self.session.frame().revision
         self.frameReady.emit()
         if self._thread is not None:
             self._thread.worker.frame_taken()
+        if self.session.frame().revision != drawn and not self._catching_up:
+            # a frame came while this one was drawn (its signal was held back): draw it next
+            self._catching_up = True
+            QTimer.singleShot(0, self._catch_up)
+
+    def _catch_up(self) -> None:
+        self._catching_up = False
+        self._on_frame()
 
     # ----------------------------------------------------------- evolution
     def evolve(self, steps: int | None = None, *, before: Callable[[Session], Any] | None = None,

@@ -185,6 +185,8 @@ class MainWindow(QMainWindow):
         a["next_slice"].triggered.connect(lambda: self.views.set_slice(self.views.slice_index + 1))
         a["previous_slice"].triggered.connect(lambda: self.views.set_slice(self.views.slice_index - 1))
         a["fit"].triggered.connect(lambda: [canvas.fit() for canvas in self.views.canvases()])
+        a["zoom_in"].triggered.connect(lambda: self.views.main.zoom(1.25))
+        a["zoom_out"].triggered.connect(lambda: self.views.main.zoom(0.8))
         a["three_views"].toggled.connect(self._three_views)
         a["brush_smaller"].triggered.connect(lambda: self.brush.setValue(self.brush.value() - 0.5))
         a["brush_larger"].triggered.connect(lambda: self.brush.setValue(self.brush.value() + 0.5))

@@ -90,11 +90,14 @@ class CurvatureCurves:
             item.setPen(label_pen(colour.name(), dashed=dashed, width=2.5))
             item.setParentItem(parent)
             item.setZValue(z)
+            item.setVisible(False)
             self.items.append(item)
 
     def clear(self) -> None:
         for item in self.items:
-            item.setData([], [])
+            if item.isVisible():
+                item.setData([], [])
+                item.setVisible(False)
 
     def set(self, contours: Sequence[NDArray[np.floating]], curvature: Sequence[NDArray[np.floating]],
             limit: float) -> None:
@@ -118,7 +121,9 @@ class CurvatureCurves:
             sel = bins == i
             if not sel.any():
                 item.setData([], [])
+                item.setVisible(False)
                 continue
+            item.setVisible(True)
             pts = np.empty((2 * int(sel.sum()), 2))
             pts[0::2], pts[1::2] = a[sel], b[sel]
             item.setData(pts[:, 1], pts[:, 0], connect="pairs")

@@ -35,6 +35,7 @@ class _PlaneViewBox(pg.ViewBox):
 
     def __init__(self, canvas: "PlaneCanvas") -> None:
         super().__init__(invertY=True, lockAspect=True, enableMenu=False)
+        self.disableAutoRange()  # the canvas fits the plane itself; no bounds to gather at every frame
         self._canvas = canvas
         self.setAcceptHoverEvents(True)
 
@@ -164,6 +165,11 @@ class PlaneCanvas(pg.GraphicsView):
             return
         rect = self.group.mapRectToParent(self._rect())
         self.vb.setRange(rect, padding=0.02)
+
+    def zoom(self, factor: float) -> None:
+        """Enlarge (``factor`` > 1) or shrink the view about its centre."""
+        self.auto_fit = False
+        self.vb.scaleBy((1.0 / factor, 1.0 / factor))
 
     def set_title(self, text: str) -> None:
         self._title.setText(text)

@@ -82,6 +82,8 @@ class SessionWorker(QObject):
     def execute(self, request: Request) -> None:
         try:
             result = request.call(self.session) if request.call is not None else None
+            if request.kind == "evolve" and request.call is not None:
+                self._on_frame(None)  # show what the call did (a seed disk) before the front is built
             if request.kind == "evolve" and not request.cancel.is_set():
                 result = self.session.evolve(request.steps, cancel=request.cancel, on_frame=self._on_frame,
                                              frame_interval=FRAME_INTERVAL)

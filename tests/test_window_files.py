@@ -63,8 +63,11 @@ def test_opening_a_second_study_while_a_front_evolves_stops_it_cleanly(qtbot, tm
     w = make_window(qtbot, tmp_path)
     open_and_wait(qtbot, w, ABDOMEN / "dicom")
     first = w.controller.session
-    while w.views.slice_index != 16:
+    for _ in range(30):
+        if w.views.slice_index == 16:
+            break
         key(qtbot, w, Qt.Key.Key_PageDown if w.views.slice_index < 16 else Qt.Key.Key_PageUp)
+    assert w.views.slice_index == 16
     click(qtbot, w.views.main, 106, 112)  # the liver: it takes seconds to converge
     qtbot.waitUntil(lambda: first.running and first.frame().steps > 3, timeout=30000)
     thread = w.controller._thread.thread
