@@ -90,8 +90,8 @@ class ToolHandler(QObject):
         label = self.current_label(True)
         if label is None:
             return None
-        lab = self.controller.session.label(label)
-        if lab.locked:
+        lab = next((x for x in self.controller.session.labels if x.index == label), None)  # None: being added
+        if lab is not None and lab.locked:
             self.message.emit(f"{lab.name} is locked: unlock it in the Labels panel to change it")
             return None
         return label, self.views.slice_index
