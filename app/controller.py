@@ -58,6 +58,7 @@ class SessionController(QObject):
         self._was_idle = True
         self.requests_done = 0
         self._catching_up = False
+        self._seen_index = 0
         self._settingsResult.connect(self._settings_reported)
 
     # ------------------------------------------------------------- the case
@@ -71,6 +72,7 @@ class SessionController(QObject):
             self._thread.worker.done.connect(self._on_done)
             self._thread.worker.frame.connect(self._on_frame)
             self.mirror.reconcile(session)
+            self._seen_index = session.undo_index
         self._update_flags()
         self.caseChanged.emit()
         self.changed.emit()
@@ -166,6 +168,7 @@ class SessionController(QObject):
             self.failed.emit(outcome.error, request.what)
         if self.session is not None and all(r.kind == "evolve" for r in self._pending.values()):
             self.mirror.reconcile(self.session)
+            self._seen_index = self.session.undo_index
         self._update_flags()
         if callback is not None:
             callback(outcome)
@@ -177,6 +180,12 @@ class SessionController(QObject):
     def _on_frame(self) -> None:
         if self.session is None:
             return
+        if self.session.undo_index != self._seen_index and all(r.kind == "evolve" for r in self._pending.values()):
+            # a running request changed the case before it started evolving (a seed that first committed
+            # another label's front): show that now, not when the run ends
+            self._seen_index = self.session.undo_index
+            self.mirror.reconcile(self.session)
+            self.changed.emit()
         drawn = self.session.frame().revision
         self.frameReady.emit()
         if self._thread is not None:

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from PySide6.QtCore import QRectF, Qt
-from PySide6.QtGui import QLinearGradient, QPainter
+from PySide6.QtGui import QColor, QLinearGradient, QPainter
 from PySide6.QtWidgets import QSizePolicy, QWidget
 
 from app.overlays import curvature_colours
@@ -17,7 +17,7 @@ class CurvatureBar(QWidget):
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
         self.limit = 0.25
-        self.setMinimumHeight(34)
+        self.setMinimumHeight(36)
         self.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Fixed)
         self.setToolTip("Curvature along the outline (1/mm): a circle of radius r has 1/r; "
                         "negative where the outline bends inward")
@@ -29,13 +29,14 @@ class CurvatureBar(QWidget):
     def paintEvent(self, _ev) -> None:  # noqa: N802
         p = QPainter(self)
         w, h = self.width(), self.height()
+        p.fillRect(self.rect(), QColor(0, 0, 0, 150))
         bar = QRectF(4, 2, w - 8, 12)
         gradient = QLinearGradient(bar.left(), 0, bar.right(), 0)
         colours = curvature_colours()
         for i, colour in enumerate(colours):
             gradient.setColorAt(i / (len(colours) - 1), colour)
         p.fillRect(bar, gradient)
-        p.setPen(self.palette().windowText().color())
+        p.setPen(QColor(235, 235, 235))
         text_box = QRectF(4, 16, w - 8, h - 16)
         p.drawText(text_box, Qt.AlignmentFlag.AlignLeft, f"−{self.limit:g} concave")
         p.drawText(text_box, Qt.AlignmentFlag.AlignHCenter, "0")

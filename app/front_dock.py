@@ -19,6 +19,7 @@ from PySide6.QtWidgets import (
     QFormLayout,
     QGridLayout,
     QGroupBox,
+    QHBoxLayout,
     QLabel,
     QSizePolicy,
     QSpinBox,
@@ -27,7 +28,6 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from app.curvature_bar import CurvatureBar
 from engine.session import Frame, FrontSettings
 
 __all__ = ["FrontPanel", "MODELS"]
@@ -100,17 +100,41 @@ class FrontPanel(QWidget):
         layout.setContentsMargins(6, 4, 6, 4)
         layout.addWidget(self.title)
 
-        runs = QGridLayout()
-        runs.setSpacing(3)
-        names = [("evolve", 0, 0), ("step", 0, 1), ("commit", 1, 0), ("clear_front", 1, 1),
-                 ("carry_previous", 2, 0), ("carry_next", 2, 1), ("margin", 3, 0), ("clear_pins", 3, 1)]
-        for name, r, c in names:
-            button = QToolButton()
-            button.setDefaultAction(actions[name])
-            button.setToolButtonStyle(Qt.ToolButtonStyle.ToolButtonTextOnly)
-            button.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Fixed)
-            runs.addWidget(button, r, c)
-        layout.addLayout(runs)
+        def button(name: str) -> QToolButton:
+            b = QToolButton()
+            b.setDefaultAction(actions[name])
+            b.setToolButtonStyle(Qt.ToolButtonStyle.ToolButtonTextOnly)
+            b.setSizePolicy(QSizePolicy.Policy.Expanding, QSizePolicy.Policy.Fixed)
+            return b
+
+        self.steps = _int_spin(1, 10000)
+        self.steps.setValue(10)
+        self.steps.setSuffix(" steps")
+        self.steps.setToolTip("Steps taken by Step")
+        self.margin_mm = _spin(-50.0, 50.0, 0.5, 1, suffix=" mm")
+        self.margin_mm.setValue(1.0)
+        self.margin_mm.setToolTip("Margin: grow (+) or shrink (−) the outline by this many mm")
+        rows = [[button("evolve"), button("step"), self.steps], [button("commit"), button("clear_front")],
+                [button("carry_previous"), button("carry_next")], [button("margin"), self.margin_mm,
+                                                                   button("clear_pins")]]
+        for widgets in rows:
+            line = QHBoxLayout()
+            line.setSpacing(3)
+            for widget in widgets:
+                line.addWidget(widget, 1)
+            layout.addLayout(line)
+        self.evolve_on_seed = QCheckBox("Evolve after each seed")
+        self.evolve_on_seed.setChecked(True)
+        self.curvature = QCheckBox("Curvature colours")
+        self.curvature_limit = _spin(0.01, 5.0, 0.05, 2, suffix=" 1/mm")
+        self.curvature_limit.setValue(0.25)
+        self.curvature_limit.setEnabled(False)
+        self.curvature_limit.setToolTip("Curvature at the ends of the colour map (the bar on the Slice view)")
+        options = QGridLayout()
+        options.addWidget(self.evolve_on_seed, 0, 0, 1, 2)
+        options.addWidget(self.curvature, 1, 0)
+        options.addWidget(self.curvature_limit, 1, 1)
+        layout.addLayout(options)
 
         figures = QGroupBox("Live figures")
         grid = QGridLayout(figures)
@@ -162,28 +186,6 @@ class FrontPanel(QWidget):
         layout.addWidget(self.advanced_toggle)
         layout.addWidget(self.advanced)
 
-        self.steps = _int_spin(1, 10000)
-        self.steps.setValue(10)
-        self.steps.setToolTip("Steps taken by Step")
-        self.margin_mm = _spin(-50.0, 50.0, 0.5, 1, suffix=" mm")
-        self.margin_mm.setValue(1.0)
-        self.margin_mm.setToolTip("Margin: grow (+) or shrink (−) the outline by this many mm")
-        self.curvature_limit = _spin(0.01, 5.0, 0.05, 2, suffix=" 1/mm")
-        self.curvature_limit.setValue(0.25)
-        self.curvature_limit.setToolTip("Curvature at the ends of the colour map")
-        options = QFormLayout()
-        options.addRow("Steps per Step", self.steps)
-        options.addRow("Margin", self.margin_mm)
-        self.evolve_on_seed = QCheckBox("Evolve after each seed")
-        self.evolve_on_seed.setChecked(True)
-        self.curvature = QCheckBox("Curvature colours")
-        options.addRow(self.evolve_on_seed)
-        options.addRow(self.curvature)
-        options.addRow("Colour range", self.curvature_limit)
-        layout.addLayout(options)
-        self.bar = CurvatureBar()
-        self.bar.setVisible(False)
-        layout.addWidget(self.bar)
         layout.addStretch(1)
 
     def _show_advanced(self, on: bool) -> None:
@@ -226,8 +228,6 @@ class FrontPanel(QWidget):
             self._emit(window=(low, high))
 
     def _curvature(self, on: bool) -> None:
-        self.bar.set_limit(self.curvature_limit.value())
-        self.bar.setVisible(on)
         self.curvature_limit.setEnabled(on)
         self.curvatureChanged.emit(on, self.curvature_limit.value())
 

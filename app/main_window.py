@@ -192,6 +192,7 @@ class MainWindow(QMainWindow):
         a["brush_larger"].triggered.connect(lambda: self.brush.setValue(self.brush.value() + 0.5))
         for key in TOOLS:
             a[f"tool_{key}"].triggered.connect(lambda _=False, k=key: self.tools.set_tool(k))
+        self.tools.toolChanged.connect(lambda k: a[f"tool_{k}"].setChecked(True))
 
     # -------------------------------------------------------- current label
     def current_label(self, create: bool = False) -> int | None:
@@ -244,6 +245,8 @@ class MainWindow(QMainWindow):
         self.views.set_session(session, window=self.files.default_window(session) if session else None)
         self.views.set_three_views(self.actions["three_views"].isChecked())
         self._fill_presets()
+        if session is None:
+            self.history.setEmptyLabel("No study open")
         if session is not None:
             session.curvature_colours = self.front.curvature.isChecked()
             self.setWindowTitle(f"Isotide — {case_name(session)}[*]")

@@ -68,10 +68,10 @@ def label_pen(colour: str, *, dashed: bool = False, width: float = 2.0) -> QPen:
     return pen
 
 
-def stroke_pen(colour: str, width_px: float) -> QPen:
+def stroke_pen(colour: str, width_px: float, *, alpha: int = 90) -> QPen:
     """A translucent pen as wide as a brush stroke, in the plane's pixel units (not screen pixels)."""
     c = QColor(colour)
-    c.setAlpha(90)
+    c.setAlpha(alpha)
     pen = QPen(c)
     pen.setWidthF(max(width_px, 0.1))
     pen.setCosmetic(False)

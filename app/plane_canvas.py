@@ -22,6 +22,7 @@ from PySide6.QtCore import QPointF, QRectF, Qt, Signal
 from PySide6.QtGui import QColor, QTransform
 from PySide6.QtWidgets import QLabel
 
+from app.curvature_bar import CurvatureBar
 from app.overlays import CurvatureCurves, circle_points, ellipse_points, hatch_rgba, joined, label_pen, stroke_pen
 from engine.session.planes import PlaneView
 
@@ -93,6 +94,7 @@ class PlaneCanvas(pg.GraphicsView):
         super().__init__(parent, background="#101010")
         self.vb = _PlaneViewBox(self)
         self.setCentralItem(self.vb)
+        self.vb.sigResized.connect(self._vb_resized)
         self.group = pg.ItemGroup()
         self.vb.addItem(self.group)
         self.image = pg.ImageItem(axisOrder="row-major")
@@ -120,6 +122,10 @@ class PlaneCanvas(pg.GraphicsView):
         self._title = self._overlay_label()
         self._edges = [self._overlay_label() for _ in range(4)]
         self._corner = self._overlay_label()
+        self.curvature_bar = CurvatureBar(self)
+        self.curvature_bar.setAttribute(Qt.WidgetAttribute.WA_TransparentForMouseEvents)
+        self.curvature_bar.setFixedWidth(300)
+        self.curvature_bar.hide()
         self._empty = QLabel(self)
         self._empty.setAlignment(Qt.AlignmentFlag.AlignCenter)
         self._empty.setWordWrap(True)
@@ -176,6 +182,10 @@ class PlaneCanvas(pg.GraphicsView):
         self._title.setVisible(bool(text))
         self._title.adjustSize()
 
+    def _vb_resized(self, *_args) -> None:
+        if self.auto_fit and self.view is not None and not getattr(self, "closed", False):
+            self.fit()
+
     def set_empty_text(self, text: str) -> None:
         """A centred note shown while the canvas has nothing to show ("" hides it)."""
         self._empty.setText(text)
@@ -194,8 +204,6 @@ class PlaneCanvas(pg.GraphicsView):
             return  # closing: the scene's items are already deleted
         super().resizeEvent(ev)
         self._place_overlays()
-        if getattr(self, "auto_fit", False) and self.view is not None:
-            self.fit()
 
     def _place_overlays(self) -> None:
         if not hasattr(self, "_corner"):
@@ -212,6 +220,7 @@ class PlaneCanvas(pg.GraphicsView):
         bottom.move((w - bottom.width()) // 2, h - bottom.height() - 4)
         self._corner.adjustSize()
         self._corner.move(6, h - self._corner.height() - 6)
+        self.curvature_bar.move(w - self.curvature_bar.width() - 8, h - self.curvature_bar.height() - 8)
         self._empty.setGeometry(w // 8, h // 3, w - w // 4, h // 3)
 
     # ----------------------------------------------------------- mapping
@@ -323,7 +332,7 @@ class PlaneCanvas(pg.GraphicsView):
             return
         pts = np.asarray(points, dtype=float).reshape(-1, 2)
         width = 2.0 * radius_mm / float(np.mean(self.pixel_mm))
-        self.stroke.setPen(stroke_pen(colour, width))
+        self.stroke.setPen(stroke_pen(colour, width, alpha=140 if colour == "#000000" else 90))
         if len(pts) == 1:
             pts = np.vstack([pts, pts + 1e-3])
         self.stroke.setData(pts[:, 1], pts[:, 0])

@@ -301,4 +301,7 @@ class StudyViews(QWidget):
     def set_curvature_limit(self, limit: float | None) -> None:
         """Colour outlines by curvature (±``limit`` 1/mm at the map's ends); None: label colours."""
         self.curvature_limit = limit
+        self.main.curvature_bar.setVisible(limit is not None)
+        if limit is not None:
+            self.main.curvature_bar.set_limit(limit)
         self.refresh_outlines()

@@ -34,6 +34,8 @@ TOOLS = {
     "probe": ("Probe", "I", "Hover: intensity and signed distance to the front"),
 }
 
+#: Colour of a stroke being drawn: Extend in the label's colour, Trim dark (cut away), Pin grey (hatched after).
+_STROKE_COLOUR = {"trim": "#000000", "pin": "#b4b4b4"}
 _BRUSH_STYLE = {"extend": Qt.PenStyle.SolidLine, "trim": Qt.PenStyle.DashLine, "pin": Qt.PenStyle.DotLine}
 
 
@@ -135,7 +137,7 @@ class ToolHandler(QObject):
             self._stroke = [(s0, s1)]
         if not self._stroke or np.hypot(p0 - self._stroke[-1][0], p1 - self._stroke[-1][1]) >= 0.5:
             self._stroke.append((p0, p1))
-        canvas.set_stroke(self._stroke, self.brush_mm, self.colour)
+        canvas.set_stroke(self._stroke, self.brush_mm, _STROKE_COLOUR.get(self.tool, self.colour))
         canvas.set_brush(p0, p1, self.brush_mm, style=_BRUSH_STYLE[self.tool])
         if stage == "finish":
             points, self._stroke = self._stroke, []

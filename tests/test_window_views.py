@@ -114,7 +114,7 @@ def test_curvature_colours_colour_the_live_front_and_outlines(qtbot, tmp_path):
     wait_idle(qtbot, w)
     frame = s.frame()
     assert frame.curvature is not None and len(frame.curvature) == len(frame.contours)
-    assert w.actions["curvature"].isChecked() and w.front.bar.isVisible()
+    assert w.actions["curvature"].isChecked() and w.views.main.curvature_bar.isVisible()
     shown = [item for item in w.views.main._live_curvature.items if item.isVisible()]
     assert shown and len(w.views.main.live.xData) == 0
     # a roughly round tumour: most of its outline convex (positive curvature), near 1/radius
