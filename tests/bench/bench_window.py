@@ -94,7 +94,7 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=5, help="seed clicks timed")
     args = parser.parse_args()
 
-    from app.application import make_application
+    from app.application import make_application, settle_memory
     from app.main_window import MainWindow
     from app.study_io import Opened
     from engine.session import Session
@@ -104,6 +104,7 @@ def main() -> None:
     w = MainWindow(settings=QSettings(str(folder / "s.ini"), QSettings.Format.IniFormat), recovery_folder=folder)
     w.resize(1400, 900)
     w.show()
+    settle_memory()  # as isotide does once its window is up
     QTest.qWaitForWindowExposed(w)
     a, b = make_phantom(512, noise_seed=7), make_phantom(512, noise_seed=8)
     stack = np.stack([a["image"], b["image"]]).astype(np.float32)
