@@ -276,6 +276,8 @@ class SessionController(QObject):
         self.edit(tool.capitalize(), lambda s: getattr(s, method)(pts, radius_mm, label=label, slice=slice_index),
                   label=label, slice_index=slice_index)
 
-    def carry(self, to_slice: int, *, label: int, on_done: Done | None = None) -> None:
-        """Carry the label's outline to ``to_slice`` and evolve it at once."""
-        self.evolve(before=lambda s: s.carry(to_slice, label=label), what="Carry", on_done=on_done)
+    def carry(self, to_slice: int, *, label: int, from_slice: int | None = None, on_done: Done | None = None) -> None:
+        """Carry the label's outline (from ``from_slice``: None lets the Session choose) to ``to_slice``
+        and evolve it at once."""
+        self.evolve(before=lambda s: s.carry(to_slice, label=label, from_slice=from_slice), what="Carry",
+                    on_done=on_done)

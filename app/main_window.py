@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 from PySide6.QtCore import QSettings, Qt, QTimer
 from PySide6.QtWidgets import (
+    QApplication,
     QComboBox,
     QDockWidget,
     QDoubleSpinBox,
@@ -266,7 +267,8 @@ class MainWindow(QMainWindow):
         if self.labels.current is not None:
             self.tools.colour = session.label(self.labels.current).colour \
                 if any(lab.index == self.labels.current for lab in session.labels) else self.tools.colour
-        if not self.front.hasFocus():
+        focus = QApplication.focusWidget()
+        if focus is None or not self.front.isAncestorOf(focus):  # not while the user types a setting
             self._show_settings()
         self.setWindowModified(session.modified)
         self.update_actions()
@@ -316,12 +318,16 @@ class MainWindow(QMainWindow):
         label = self.current_label()
         if session is None or label is None:
             return
-        k = self.views.slice_index + direction
+        here = self.views.slice_index
+        k = here + direction
         if not 0 <= k < session.slices:
             self.statusBar().showMessage("There is no slice beyond this one", 4000)
             return
-        self.controller.carry(k, label=label)
-        self.views.set_slice(k)
+        live = session.live
+        source = here if (label, here) in session.state.outlines or (
+            live is not None and (live.label, live.slice) == (label, here)) else None
+        self.views.set_slice(k)  # first: leaving the slice pauses its front, which the carry then commits
+        self.controller.carry(k, label=label, from_slice=source)
 
     def margin(self) -> None:
         label = self.current_label()

@@ -160,3 +160,23 @@ def test_a_folder_with_two_series_asks_which_to_open(qtbot, tmp_path, monkeypatc
     assert len(asked[0]) == 2
     assert w.controller.session.volume.shape == (16, 160, 160)
     assert w.cases.series.count() == 2 and w.cases.series.isVisible()
+
+
+def test_carry_from_a_live_front_commits_it_and_evolves_the_next_slice_from_this_one(qtbot, tmp_path):
+    w = make_window(qtbot, tmp_path)
+    open_and_wait(qtbot, w, HEAD / "image.nii.gz")
+    s = w.controller.session
+    w.views.set_slice(10)
+    click(qtbot, w.views.main, 50, 102)  # the tumour (sample_cases/head_mr/README.md)
+    wait_idle(qtbot, w)
+    w.actions["commit"].trigger()
+    wait_idle(qtbot, w)
+    w.views.set_slice(12)  # an outline two slices on, so slice 11 has one on each side
+    click(qtbot, w.views.main, 50, 102)
+    wait_idle(qtbot, w)
+    assert s.live.slice == 12 and s.frame().converged
+    w.actions["carry_previous"].trigger()  # from the live front on 12, not from the outline on 10
+    wait_idle(qtbot, w)
+    assert w.views.slice_index == 11 and s.live.slice == 11 and s.frame().converged and s.frame().steps > 0
+    assert (1, 12) in s.state.outlines  # the live front was committed first
+    assert s.history[-1].action == "evolve" and s.history[-2].details["from_slice"] == 12
