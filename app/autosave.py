@@ -107,7 +107,7 @@ class Autosaver(QObject):
 
     def _key(self) -> Any:
         s = self.controller.session
-        return None if s is None else (id(s), s.state, len(s._stack.applied()))
+        return None if s is None else (id(s), s.state)  # every change makes a new (immutable) state
 
     def tick(self) -> None:
         """Check for changes and autosave when one is due."""

@@ -167,6 +167,7 @@ class MainWindow(QMainWindow):
         self.front.curvature.toggled.connect(a["curvature"].setChecked)
         a["curvature"].toggled.connect(self.front.curvature.setChecked)
         self.cases.sliceChosen.connect(self.views.set_slice)
+        self.cases.seriesChosen.connect(lambda path, key: self.open_path(path, series=key))
         self.tools.message.connect(lambda text: self.statusBar().showMessage(text, 4000))
         self.tools.probed.connect(self._probed)
         self.brush.valueChanged.connect(self.tools.set_brush_mm)

@@ -80,3 +80,61 @@ def test_opening_a_second_study_while_a_front_evolves_stops_it_cleanly(qtbot, tm
     second = w.controller.session
     assert second is not first and w.views.session is second and second.live is None
     assert w.controller.undo_stack.count() == 0
+
+
+def test_save_with_dicom_seg_writes_a_verifiable_result_beside_the_mask(qtbot, tmp_path):
+    from engine.io import verify
+
+    w = make_window(qtbot, tmp_path)
+    open_and_wait(qtbot, w, HEAD / "dicom")
+    s = w.controller.session
+    assert w.actions["dicom_seg"].isEnabled()
+    w.views.set_slice(10)
+    click(qtbot, w.views.main, 50, 102)  # the tumour
+    wait_idle(qtbot, w)
+    w.actions["commit"].trigger()
+    wait_idle(qtbot, w)
+    w.actions["dicom_seg"].setChecked(True)
+    w.files.save_to(str(tmp_path / "head"))
+    wait_idle(qtbot, w)
+    assert (tmp_path / "head.seg.dcm").is_file() and verify(tmp_path / "head_dseg.json").ok
+    assert not s.modified and w.files.result == str(tmp_path / "head")
+
+
+def test_a_dropped_file_opens_and_joins_the_recent_list(qtbot, tmp_path):
+    from PySide6.QtCore import QMimeData, QPointF, QUrl
+    from PySide6.QtGui import QDropEvent
+
+    w = make_window(qtbot, tmp_path)
+    mime = QMimeData()
+    path = HEAD / "image.nii.gz"
+    mime.setUrls([QUrl.fromLocalFile(str(path))])
+    event = QDropEvent(QPointF(20, 20), Qt.DropAction.CopyAction, mime, Qt.MouseButton.LeftButton,
+                       Qt.KeyboardModifier.NoModifier)
+    w.dropEvent(event)
+    qtbot.waitUntil(lambda: w.controller.session is not None, timeout=30000)
+    assert w.controller.session.volume.shape == (16, 160, 160)
+    assert w.files.recent()[0] == str(path)
+    assert [a.text() for a in w.menus["recent"].actions()] == [str(path)]
+    assert w.windowTitle() == "Isotide — image[*]"
+
+
+def test_the_demo_seeds_two_structures_and_evolves_them(qtbot, tmp_path):
+    from app.demo import DemoScript
+    from engine.commands.demo import DEMO_SLICE, STRUCTURES
+    from tests.window_helpers import dice, live_mask, truth
+
+    w = make_window(qtbot, tmp_path)
+    demo = DemoScript(w)
+    demo.start()
+    qtbot.waitUntil(lambda: demo.stage == "done", timeout=120000)
+    wait_idle(qtbot, w)
+    s = w.controller.session
+    assert [lab.name for lab in s.labels] == [x.name for x in STRUCTURES]
+    assert w.views.slice_index == DEMO_SLICE
+    first = s.outlines(DEMO_SLICE, 1)[0]
+    t = truth()[DEMO_SLICE]
+    # the structures' truth labels in sample_cases/abdomen_mr (aorta 5, vertebral body 6)
+    assert dice(first.mask, t == STRUCTURES[0].truth_label) >= 0.95
+    assert s.live.label == 2 and s.frame().converged
+    assert dice(live_mask(s), t == STRUCTURES[1].truth_label) >= 0.95

@@ -180,3 +180,23 @@ def test_carry_from_a_live_front_commits_it_and_evolves_the_next_slice_from_this
     assert w.views.slice_index == 11 and s.live.slice == 11 and s.frame().converged and s.frame().steps > 0
     assert (1, 12) in s.state.outlines  # the live front was committed first
     assert s.history[-1].action == "evolve" and s.history[-2].details["from_slice"] == 12
+
+
+def test_a_click_in_the_history_list_goes_back_to_that_point(qtbot, tmp_path):
+    w = make_window(qtbot, tmp_path)
+    open_and_wait(qtbot, w, HEAD / "image.nii.gz")
+    s = w.controller.session
+    w.views.set_slice(4)
+    w.tools.set_tool("extend")
+    for col in (40, 80, 120):  # three strokes: Add label, then Extend three times
+        click(qtbot, w.views.main, 80, col)
+        wait_idle(qtbot, w)
+    assert s.undo_index == 4 and w.controller.undo_stack.count() == 4
+    after_first = s.history[1].after.live.snapshot.phi.copy()
+    view = w.history
+    row = view.model().index(2, 0)  # row 0 is "Study opened"; row 2 is after the first Extend
+    qtbot.mouseClick(view.viewport(), Qt.MouseButton.LeftButton, pos=view.visualRect(row).center())
+    wait_idle(qtbot, w)
+    assert s.undo_index == 2 and w.controller.undo_stack.index() == 2
+    assert np.array_equal(s.live.snapshot.phi, after_first)
+    assert w.actions["redo"].isEnabled() and w.actions["redo"].text().startswith("Redo Extend")
