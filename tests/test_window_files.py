@@ -138,3 +138,21 @@ def test_the_demo_seeds_two_structures_and_evolves_them(qtbot, tmp_path):
     assert dice(first.mask, t == STRUCTURES[0].truth_label) >= 0.95
     assert s.live.label == 2 and s.frame().converged
     assert dice(live_mask(s), t == STRUCTURES[1].truth_label) >= 0.95
+
+
+def test_without_the_sample_study_the_demo_renders_its_slice(qtbot, tmp_path, monkeypatch):
+    from app.demo import DemoScript
+    from engine.commands.demo import STRUCTURES, demo_phantom
+    from tests.window_helpers import dice, live_mask
+
+    monkeypatch.setattr("app.demo.sample_study", lambda: None)
+    w = make_window(qtbot, tmp_path)
+    demo = DemoScript(w)
+    demo.start()
+    qtbot.waitUntil(lambda: demo.stage == "done", timeout=180000)
+    wait_idle(qtbot, w)
+    s = w.controller.session
+    assert s.volume.shape[0] == 1 and not w.views.side_panel.isVisible()
+    t = demo_phantom().truth[0]  # the rendered slice's own truth labels
+    assert dice(s.outlines(0, 1)[0].mask, t == STRUCTURES[0].truth_label) >= 0.95
+    assert dice(live_mask(s), t == STRUCTURES[1].truth_label) >= 0.95
