@@ -59,6 +59,21 @@ def test_window_verbs_without_a_screen_exit_2_with_one_line(tmp_path, args, env_
     assert "Traceback" not in run.stderr and run.stdout == ""
 
 
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="X11 displays are a Linux matter here")
+def test_an_unreachable_x_display_exits_2_with_one_line_instead_of_aborting(tmp_path):
+    import ctypes.util
+
+    if ctypes.util.find_library("xcb") is None:
+        pytest.skip("libxcb is not installed: the missing libraries are reported instead")
+    study = str(ROOT / "sample_cases" / "head_mr" / "image.nii.gz")
+    run = isotide("open", study, env_changes={"QT_QPA_PLATFORM": None, "WAYLAND_DISPLAY": None,
+                                              "DISPLAY": ":4711"}, cwd=tmp_path)
+    assert run.returncode == 2, run.stderr
+    lines = run.stderr.strip().splitlines()
+    assert len(lines) == 1 and "the X display :4711 cannot be reached" in lines[0]
+    assert "headless verbs" in lines[0]
+
+
 def test_open_of_a_missing_path_exits_2_before_any_window(tmp_path):
     run = isotide("open", str(tmp_path / "nope.nii.gz"), env_changes={}, cwd=tmp_path)
     assert run.returncode == 2

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from app.screen import APT_LINE, screen_problem, xcb_problem
+from app.screen import APT_LINE, display_problem, screen_problem, xcb_problem
 
 __all__ = ["launch", "headless_verbs", "window_problem"]
 
@@ -25,6 +25,9 @@ def window_problem() -> tuple[str, bool] | None:
     missing = xcb_problem()
     if missing:
         return f"Qt's window-system plugin (xcb) cannot load: {missing} is missing", True
+    unreachable = display_problem()
+    if unreachable:
+        return f"the window needs a screen ({unreachable})", False
     return None
 
 
