@@ -1,4 +1,4 @@
-"""``isotide demo [--out DIR] [--no-window]``: outline two structures of an invented phantom.
+"""``isotide demo --headless [--out DIR]``: outline two structures of an invented phantom, without the window.
 
 The demo renders one axial slice of the invented abdomen phantom
 (:func:`engine.phantoms.build_abdomen`, 256 x 256 pixels of 1.5625 mm: the
@@ -18,9 +18,9 @@ each of two structures, and writes into the folder ``DIR`` (default
 For each structure it prints the steps, the time, the area and the Dice
 coefficient against the phantom's truth labels.
 
-The window does not exist yet, so the demo always runs headless; once it
-does, ``isotide demo`` will open it and ``--no-window`` will keep the
-headless run shown here.
+``isotide demo`` opens the window on the same study when a screen is
+available (:mod:`app.verbs.demo_verb`); with ``--headless`` (``--no-window``
+is the same) or without a screen it runs this module's headless demo.
 
 Exit codes: 0 done, 2 the output folder cannot be written (one line on
 stderr), 130 interrupted.
@@ -125,8 +125,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     one_line_errors(parser, PROG)
     parser.add_argument("--out", default=DEFAULT_OUT, metavar="DIR",
                         help=f"folder for the demo's files (default: ./{DEFAULT_OUT})")
-    parser.add_argument("--no-window", action="store_true",
-                        help="run headless (the window does not exist yet, so the demo always does)")
+    parser.add_argument("--headless", "--no-window", dest="headless", action="store_true",
+                        help="run without the window and write the results (also when there is no screen)")
     parser.add_argument("--operator", metavar="NAME",
                         help="who ran the demo, recorded in the sidecar (default: nobody is recorded)")
     parser.add_argument("--progress", action="store_true", help="show a progress bar on stderr even when redirected")

@@ -35,7 +35,11 @@ from engine.session.state import Label, SessionState
 if TYPE_CHECKING:
     from engine.session.session import Session
 
-__all__ = ["save_session", "open_result", "label_volume", "provenance_record"]
+__all__ = ["save_session", "open_result", "label_volume", "provenance_record", "StudyNotFoundError"]
+
+
+class StudyNotFoundError(ValueError):
+    """The study a result was drawn on is not where its record points (give it explicitly)."""
 
 
 def label_volume(session: "Session") -> NDArray[np.uint16]:
@@ -69,15 +73,11 @@ def provenance_record(session: "Session", *, operator: str | None = None,
     }
     if session.created:
         out["created"] = session.created
-    if session.prior_review:
-        prior = session.prior_review
-        out["review"] = {"state": "Draft", "decisions": list(prior.get("Decisions", [])),
-                         "comments": list(prior.get("Comments", []))}
     return out
 
 
 def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: bool = False,
-                 operator: str | None = None, overwrite_approved: bool = False,
+                 operator: str | None = None, new_version: bool = False,
                  include_patient_identifiers: bool = False, description: str | None = None,
                  now: str | None = None, history_entry: Mapping[str, Any] | None = None) -> dict[str, Path]:
     """Save the session's committed outlines as the result ``out`` (= ``DIR/NAME``).
@@ -100,7 +100,7 @@ def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: 
             raise ValueError("history_entry: expected a mapping with an 'action' text")
         prov["history"].append(dict(history_entry))
     paths = save_result(out, label_volume(session), session.volume, label_table=table, provenance=prov,
-                        dicom_seg=dicom_seg, overwrite_approved=overwrite_approved,
+                        dicom_seg=dicom_seg, new_version=new_version,
                         include_patient_identifiers=include_patient_identifiers, now=now)
     session.saved_index = session.undo_index
     return paths
@@ -147,11 +147,13 @@ def open_result(path: str | os.PathLike[str], *, study: str | None = None,
     if study is None:
         recorded = block["Input"].get("Path", "")
         if not recorded or recorded == "(in memory)":
-            raise ValueError(f"{sidecar}: the result was drawn on an image held in memory; give the study")
+            raise StudyNotFoundError(f"{sidecar}: the result was drawn on an image held in memory; open that "
+                                     "image and give it as the study")
         study = str((base / recorded).resolve()) if not Path(recorded).is_absolute() else recorded
         if not Path(study).exists():
-            raise ValueError(f"{sidecar}: its study is not at {recorded!r} beside it (the record keeps input paths "
-                             "relative to the result, or names only); open the study and give it")
+            raise StudyNotFoundError(f"{sidecar}: its study is not at {recorded!r} beside it (the record keeps "
+                                     "input paths relative to the result, or names only); open the study first, "
+                                     "then the result")
     volume = load(study, series=block["Input"].get("SeriesInstanceUID") if _several_series(study) else None,
                   progress=progress)
     expected = sorted(f["SHA256"] for f in block["Input"]["Files"])

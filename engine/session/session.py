@@ -210,10 +210,9 @@ class Session:
         return self._hidden
 
     def set_label_visible(self, index: int, visible: bool) -> None:
-        """Show or hide a label's outlines (a view setting: not on the undo stack)."""
+        """Show or hide a label's outlines (a view setting: not on the undo stack; safe while a front evolves)."""
         self.label(index)
         self._hidden = self._hidden - {index} if visible else self._hidden | {index}
-        self._publish()
 
     # --------------------------------------------------------------- commands
     def _check_slice(self, slice_index: int) -> int:
@@ -445,8 +444,8 @@ class Session:
         """Grow the live front: ``steps`` steps, or until it converges, vanishes or reaches its step limit.
 
         ``cancel`` (a ``threading.Event`` or a callable) is checked between
-        steps. ``on_frame(frame)`` is called with a fresh frame at most every
-        ``frame_interval`` seconds and once at the end. The whole run is one
+        steps. ``on_frame(frame)`` is called with a fresh frame on a beat of
+        ``frame_interval`` seconds (never more often on average) and once at the end. The whole run is one
         command on the undo stack. Returns the last frame.
         """
         if steps is not None and (isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 1):
@@ -468,7 +467,7 @@ class Session:
             self._run_settings = self.settings(live.label)
             self._running = True
             t0 = time.perf_counter()
-        taken, last = 0, 0.0
+        taken, due = 0, 0.0
         try:
             while not stop() and (steps is None or taken < steps):
                 with self._lock:
@@ -480,8 +479,10 @@ class Session:
                     front.step(1)
                     taken += 1
                     now = time.perf_counter()
-                    if now - last >= frame_interval:
-                        last = now
+                    if now >= due:
+                        # frames on a fixed beat (at most one per frame_interval on average), not an
+                        # interval after the last one: a step's overrun no longer lowers the rate
+                        due = due + frame_interval if now - due < frame_interval else now + frame_interval
                         self._publish(running=True, rate=taken / max(now - t0, 1e-9))
                         if on_frame is not None:
                             on_frame(self._frame)
