@@ -7,7 +7,6 @@ it, and a machine without a screen gets one line instead of Qt's abort.
 
 from __future__ import annotations
 
-import signal
 import sys
 from collections.abc import Sequence
 from typing import NoReturn
@@ -37,20 +36,11 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def run_program() -> NoReturn:
-    """The ``isotide`` console command: :func:`main`, then exit with its code.
+    """The ``isotide`` console command: :func:`main` with the engine's Ctrl-C handling
+    (:func:`engine.cli.run_program`: one "interrupted" line and exit 130)."""
+    from engine.cli import run_program as engine_run_program
 
-    Ctrl-C is handled as by the engine's own entry point
-    (:func:`engine.cli.run_program`): recorded, acted on at safe points, one
-    "interrupted" line and exit 130; ignored once :func:`main` has returned.
-    """
-    from engine.commands import interrupts
-
-    interrupts.install()
-    try:
-        code = main()
-    finally:
-        signal.signal(signal.SIGINT, signal.SIG_IGN)
-    sys.exit(code)
+    engine_run_program(main)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -6,7 +6,7 @@ import argparse
 import importlib
 import signal
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import NoReturn
 
 from engine import __version__
@@ -73,16 +73,16 @@ def main(argv: Sequence[str] | None = None) -> int:
             interrupts.uninstall()
 
 
-def run_program() -> NoReturn:
-    """The ``isotide`` console command: :func:`main`, then exit with its code.
+def run_program(entry: Callable[[], int] | None = None) -> NoReturn:
+    """The ``isotide`` console command: ``entry()`` (default :func:`main`), then exit with its code.
 
     Ctrl-C is taken over before anything heavy is imported, and ignored once
-    :func:`main` has returned, so that shutting the interpreter down cannot
+    the entry has returned, so that shutting the interpreter down cannot
     turn a late Ctrl-C into a traceback or change the exit code.
     """
     interrupts.install()
     try:
-        code = main()
+        code = (entry or main)()
     finally:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
     sys.exit(code)
