@@ -1,7 +1,55 @@
 """Isotide engine: numerics and file formats for level-set outlining.
 
 The engine is the functional core of Isotide: arrays in, arrays out, no Qt and
-no global state. Everything the window can do, a script can do through it.
+no global state. Everything the window can do, a script can do through it::
+
+    from engine import Front, Session, load, segment
+
+The public names are loaded on first use, so ``import engine`` stays light
+(the command line imports it for its version).
 """
 
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
+
 __version__ = "0.1.0"
+
+#: Public name -> module that defines it.
+_PUBLIC = {
+    "Front": "engine.front",
+    "FrontSnapshot": "engine.front",
+    "FrontParams": "engine.speeds",
+    "segment": "engine.segment",
+    "Segmentation": "engine.segment",
+    "Session": "engine.session",
+    "open_result": "engine.session",
+    "load": "engine.io",
+    "list_series": "engine.io",
+    "Volume": "engine.io",
+    "save_result": "engine.io",
+    "verify": "engine.io",
+}
+
+__all__ = ["__version__", *_PUBLIC]
+
+if TYPE_CHECKING:  # pragma: no cover
+    from engine.front import Front, FrontSnapshot
+    from engine.io import Volume, list_series, load, save_result, verify
+    from engine.segment import Segmentation, segment
+    from engine.session import Session, open_result
+    from engine.speeds import FrontParams
+
+
+def __getattr__(name: str) -> Any:
+    module = _PUBLIC.get(name)
+    if module is None:
+        raise AttributeError(f"module 'engine' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)
