@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import json
 import os
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -33,7 +33,7 @@ from engine.review.records import (
     derive_review,
     review_entry,
 )
-from engine.review.workflow import allowed_steps, check_step
+from engine.review.workflow import ReviewStepError, allowed_steps, check_step
 
 __all__ = ["record_step", "read_review", "ReviewRecord", "VersionInfo", "LabelInfo", "ResultMismatchError",
            "ResultChangedError", "NotAResultError", "check_marks"]
@@ -243,7 +243,8 @@ def check_marks(marks: Iterable[Mark | Mapping[str, Any]], *, labels: Iterable[i
 
 def record_step(path: str | os.PathLike[str], step: str, *, reviewer: str | None = None,
                 comment: str | None = None, marks: Iterable[Mark | Mapping[str, Any]] = (),
-                expect_sha256: str | None = None, now: str | None = None) -> ReviewRecord:
+                expect_sha256: str | None = None, now: str | None = None,
+                checkpoint: Callable[[], None] | None = None) -> ReviewRecord:
     """Record a review step (``submit``, ``approve`` or ``return``) on the saved result at ``path``.
 
     Parameters
@@ -266,6 +267,9 @@ def record_step(path: str | os.PathLike[str], step: str, *, reviewer: str | None
         refused if the file changed since.
     now : str, optional
         Time of the step (ISO 8601 UTC; default now).
+    checkpoint : callable, optional
+        Called after the checks and before the sidecar is written; raise
+        from it (a command line's Ctrl-C) to record nothing.
 
     Returns
     -------
@@ -313,7 +317,10 @@ def record_step(path: str | os.PathLike[str], step: str, *, reviewer: str | None
                                   f"({report.problems[0]})", report.problems)
     block = doc["Isotide"]
     state = str(block["Review"].get("State"))
-    s = check_step(state, step)
+    try:
+        s = check_step(state, step)
+    except ReviewStepError as exc:
+        raise ReviewStepError(f"{sidecar}: {exc}", state=exc.state, step=exc.step) from None
     if s.needs_reviewer and name is None:
         raise ValueError(f"reviewer: to {s.key} a result, give the reviewer's name")
     shape = block["Input"]["Shape"]
@@ -343,5 +350,7 @@ def record_step(path: str | os.PathLike[str], step: str, *, reviewer: str | None
         raise ResultChangedError(f"{sidecar}: cannot be read again ({exc.strerror or exc})") from None
     if current != raw:
         raise ResultChangedError(f"{sidecar}: the result changed while the step was being recorded; read it again")
+    if checkpoint is not None:
+        checkpoint()
     save_sidecar(sidecar, doc)
     return read_review(sidecar)

@@ -43,9 +43,9 @@ STEPS: dict[str, Step] = {
 _WHY = {
     "Draft": "a Draft is submitted for review first",
     "Submitted": "it is already Submitted and waits for approval or return",
-    "Approved": "an approval is final for its version; edit the outlines and save them as a new version "
-                "(a Draft) to review them again",
-    "Returned": "rework the outlines and save them as a new version (a Draft), then submit that",
+    "Approved": "an approval is final for its version; edit the outlines and save them as a new version, "
+                "a Draft, to review them again",
+    "Returned": "rework the outlines and save them as a new version, a Draft, then submit that",
 }
 
 
