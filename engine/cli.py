@@ -21,6 +21,7 @@ VERBS: dict[str, str] = {
     "batch": "engine.commands.batch",
     "sweep": "engine.commands.sweep",
     "review": "engine.commands.review",
+    "report": "engine.commands.report",
 }
 
 
