@@ -189,8 +189,8 @@ def test_versions_are_listed_with_their_review(tmp_path):
     session.save(str(sidecar.parent / "case"), new_version=True)
     text = write_report(sidecar).path.read_text()
     words = " ".join(" ".join(parse(text).text).split())
-    assert re.search(r"1 Returned Dr A .*Return by Dr A: too small", words)
-    assert "2 (these files) Draft" in words
+    assert "Version 1: Returned" in words and "Return Submitted → Returned Dr A too small" in words
+    assert re.search(r"1 Returned Dr A [^|]*? 2 2 \(these files\) Draft", words)
 
 
 def test_patient_identifiers_appear_only_when_the_record_holds_them(tmp_path):

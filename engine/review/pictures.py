@@ -163,11 +163,14 @@ def slice_picture(image: NDArray | None, masks: Mapping[int, NDArray[np.bool_]],
     for c in _contours(mask[r0:r1, c0:c1]):
         pts = screen(c + np.array([r0, c0]))
         draw.line(pts + pts[:1], fill=colours.get(label, "#FFFFFF"), width=2, joint="curve")
-    font = ImageFont.load_default()
+    try:
+        font = ImageFont.load_default(size=14)
+    except TypeError:  # Pillow before 10.1: one small bitmap font
+        font = ImageFont.load_default()
     markers: dict[int, tuple[float, float]] = {}
     for number, point in notes:
         (x, y), = screen(np.array([point]))
-        radius = 9
+        radius = 10
         draw.ellipse((x - radius, y - radius, x + radius, y + radius), outline="#FFFFFF", width=2)
         draw.text((x + radius + 2, y - radius - 2), str(number), fill="#FFFFFF", font=font,
                   stroke_width=2, stroke_fill="#000000")

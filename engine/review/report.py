@@ -36,14 +36,15 @@ __all__ = ["write_report", "report_html", "ReportResult", "report_path", "CAUTIO
 CAUTION = ("Isotide is not a medical device. Every outline it produces must be reviewed by qualified people "
            "before any use. Local regulations and licensed practice govern clinical use.")
 
-#: Setting key -> the word shown (see the Front panel).
+#: Setting key -> the word shown (see the Front panel) and its unit.
 _SETTING_WORDS = {
-    "drive": "Drive", "smoothness": "Smoothness", "curvature_weight": "Smoothness", "edge_pull": "Edge pull",
-    "edge_sigma": "Edge scale σ (mm)", "edge_contrast": "Edge contrast K", "edge_weight": "Edge weight",
-    "window": "Intensity window", "local_radius": "Local radius (mm)", "outline_averaging": "Outline averaging (mm)",
-    "detail": "Detail", "band_width": "Band width", "stencil_size": "Stencil size", "degree": "Polynomial degree",
-    "integrator": "Integrator", "coarse": "Coarse start", "nodes": "Nodes", "max_steps": "Max steps",
-    "smoothness_scale": "smoothness_scale",
+    "drive": ("Drive", ""), "smoothness": ("Smoothness", ""), "curvature_weight": ("Smoothness", ""),
+    "edge_pull": ("Edge pull", ""), "edge_sigma": ("Edge scale σ", " mm"), "edge_contrast": ("Edge contrast K", ""),
+    "edge_weight": ("Edge weight", ""), "window": ("Intensity window", ""), "local_radius": ("Local radius", " mm"),
+    "outline_averaging": ("Outline averaging", " mm"), "detail": ("Detail", ""), "band_width": ("Band width", ""),
+    "stencil_size": ("Stencil size", ""), "degree": ("Polynomial degree", ""), "integrator": ("Integrator", ""),
+    "coarse": ("Coarse start", ""), "nodes": ("Nodes", ""), "max_steps": ("Max steps", ""),
+    "smoothness_scale": ("smoothness_scale", ""),
 }
 _MAIN_SETTINGS = ("drive", "smoothness", "curvature_weight", "outline_averaging", "detail")
 _MODEL_SETTINGS = {"edge": ("edge_pull", "edge_sigma", "edge_contrast"), "window": ("window",)}
@@ -52,7 +53,7 @@ _MODELS = {"region": "Region (Chan–Vese)", "edge": "Edge (geodesic)", "window"
 _EDITS = {"extend": "Extend", "trim": "Trim", "pin": "Pin", "margin": "Margin", "clear_pins": "Clear pins"}
 
 _CSS = """
-body{font:14px/1.45 system-ui,-apple-system,"Segoe UI",sans-serif;color:#1a1a1a;margin:24px auto;max-width:1060px;
+body{font:14px/1.45 system-ui,-apple-system,"Segoe UI",sans-serif;color:#1a1a1a;margin:24px auto;max-width:1100px;
 padding:0 16px}
 h1{font-size:22px;margin:0 0 4px}h2{font-size:18px;border-bottom:1px solid #bbb;padding-bottom:3px;margin-top:28px}
 h3{font-size:16px;margin:18px 0 6px}
@@ -64,7 +65,8 @@ vertical-align:top}th{background:#f0f0f0;font-weight:600}
 .state{font-weight:700;font-size:17px}
 .swatch{display:inline-block;width:14px;height:14px;border:1px solid #555;vertical-align:-2px;margin-right:6px}
 .slices{display:flex;flex-wrap:wrap;gap:14px}
-.card{border:1px solid #ccc;padding:8px;width:340px;break-inside:avoid;page-break-inside:avoid}
+.card{border:1px solid #ccc;padding:8px;width:340px;box-sizing:border-box;break-inside:avoid;
+page-break-inside:avoid}
 .card img{display:block;max-width:100%;background:#000}
 .muted{color:#555}.small{font-size:12px}
 ol.notes{margin:4px 0 0 18px;padding:0}
@@ -133,7 +135,8 @@ def settings_text(model: Any, parameters: Mapping[str, Any] | None) -> str:
     keys = [k for k in _MAIN_SETTINGS if k in params] + [k for k in _MODEL_SETTINGS.get(model, ()) if k in params]
     keys += [k for k in params if k not in keys and k not in ("model",) and k in _SETTING_WORDS
              and (k not in defaults or params[k] != defaults[k]) and params[k] is not None]
-    parts = [f"{_SETTING_WORDS.get(k, k)} {_setting_text(k, params[k])}" for k in keys if params[k] is not None]
+    parts = [f"{_SETTING_WORDS[k][0]} {_setting_text(k, params[k])}{_SETTING_WORDS[k][1]}" for k in keys
+             if params[k] is not None]
     head = _MODELS.get(model, model)
     return "; ".join([head, *parts]) if head else "; ".join(parts)
 
@@ -223,6 +226,7 @@ def report_html(path: str | os.PathLike[str], *, volume: Any = None,
     NotAResultError
         No such result sidecar, or not one.
     """
+    from engine import __version__
     from engine.io import verify
     from engine.io.sidecar import utc_now
     from engine.metrics import area_mm2
@@ -256,8 +260,7 @@ def report_html(path: str | os.PathLike[str], *, volume: Any = None,
         f"</title><style>{_CSS}</style></head><body>")
     add(f"<h1>Review summary: {_e(name)}</h1>")
     add(f'<p class="muted">Result {_e(sidecar.name)}, version {version}, saved {_e(_local(block.get("Saved")))}. '
-        f"Summary written {_e(_local(utc_now()))} by Isotide "
-        f"{_e(block.get('Software', {}).get('Version'))}.</p>")
+        f"Summary written {_e(_local(utc_now()))} by Isotide {_e(__version__)}.</p>")
     add(f'<div class="caution">{_e(CAUTION)}</div>')
 
     # the record check
@@ -285,18 +288,25 @@ def report_html(path: str | os.PathLike[str], *, volume: Any = None,
         add("<p>Comments:</p><ul>" + "".join(f"<li>{_e(c.text)}</li>" for c in plain) + "</ul>")
     earlier = [v for v in block.get("Versions") or [] if isinstance(v, Mapping)]
     add("<h3>Versions</h3><table><tr><th>Version</th><th>State</th><th>Reviewer</th><th>Saved</th>"
-        "<th>Decisions</th></tr>")
+        "<th>Review steps</th></tr>")
     for v in earlier:
         rv = v.get("Review") if isinstance(v.get("Review"), Mapping) else None
-        ds = [decision_from_record(d) for d in (rv or {}).get("Decisions") or []]
-        steps = "; ".join(f"{d.step or 'decision'}" + (f" by {d.reviewer}" if d.reviewer else "")
-                          + (f": {d.comment}" if d.comment else "") for d in ds)
+        count = len((rv or {}).get("Decisions") or [])
         add(f"<tr><td>{_e(v.get('Version'))}</td><td>{_e(rv.get('State') if rv else v.get('Note'))}</td>"
             f"<td>{_e(rv.get('Reviewer') if rv else None)}</td><td>{_e(_local(v.get('Saved')))}</td>"
-            f"<td>{_e(steps)}</td></tr>")
+            f"<td>{count}</td></tr>")
     add(f"<tr><td><b>{version}</b> (these files)</td><td>{_e(review.get('State'))}</td>"
         f"<td>{_e(review.get('Reviewer'))}</td><td>{_e(_local(block.get('Saved')))}</td><td>{len(decisions)}</td>"
         "</tr></table>")
+    for v in reversed(earlier):
+        rv = v.get("Review") if isinstance(v.get("Review"), Mapping) else None
+        if not rv:
+            continue
+        ds = [decision_from_record(d) for d in rv.get("Decisions") or []]
+        add(f"<h3>Version {_e(v.get('Version'))}: {_e(rv.get('State'))}</h3>")
+        add(f'<p class="small muted">Replaced by a later version; the outlines reviewed here are identified by '
+            f"their mask's voxel hash {_e(str(v.get('VoxelSHA256', ''))[:16])}….</p>")
+        add(_decisions_table(ds, label_names))
 
     # study and result
     inp = block["Input"]
@@ -317,7 +327,9 @@ def report_html(path: str | os.PathLike[str], *, volume: Any = None,
     if not isinstance(patient, Mapping):
         add('<p class="small muted">No patient identifiers: the record holds none.</p>')
     add("<h2>Result</h2><table>")
-    for key, value in (("Outlined by", block.get("Operator") or None), ("First saved", _local(block.get("Created"))),
+    operators = sorted({str(e.get("Operator")) for e in block.get("History") or []
+                        if isinstance(e, Mapping) and e.get("Operator")})
+    for key, value in (("Outlined by", block.get("Operator") or ", ".join(operators) or "not recorded"), ("First saved", _local(block.get("Created"))),
                        ("Saved", _local(block.get("Saved"))), ("Drawn by hand in part", "yes" if doc.get("Manual")
                                                                 else "no"),
                        ("Description", doc.get("Description")),
