@@ -8,7 +8,7 @@ here.
 """
 
 from engine.compare.run import VariantFrame, VariantRun
-from engine.compare.table import CompareTable, MetricsRow, compare_table
+from engine.compare.table import CompareTable, MetricsRow, compare_table, mask_outline
 from engine.compare.variants import (
     MAX_VARIANTS,
     MIN_VARIANTS,
@@ -21,4 +21,5 @@ from engine.compare.variants import (
 )
 
 __all__ = ["Start", "Variant", "VariantRun", "VariantFrame", "CompareTable", "MetricsRow", "compare_table",
-           "default_variants", "settings_changes", "starts_for", "NAMES", "MIN_VARIANTS", "MAX_VARIANTS"]
+           "mask_outline", "default_variants", "settings_changes", "starts_for", "NAMES", "MIN_VARIANTS",
+           "MAX_VARIANTS"]

@@ -17,7 +17,7 @@ from numpy.typing import NDArray
 
 from engine.compare.run import VariantFrame
 
-__all__ = ["MetricsRow", "CompareTable", "compare_table"]
+__all__ = ["MetricsRow", "CompareTable", "compare_table", "mask_outline"]
 
 
 @dataclass(frozen=True)
@@ -92,3 +92,16 @@ def compare_table(frames: Sequence[VariantFrame], *, spacing: Sequence[float],
         for b in done[i + 1:]:
             pairs[(a.name, b.name)] = _scores(a.mask, b.mask, spacing)
     return CompareTable(tuple(rows), pairs)
+
+
+def mask_outline(mask: NDArray[np.bool_]) -> list[NDArray[np.floating]]:
+    """Closed ``(row, col)`` polylines along a pixel mask's edge (marching squares at level ½ on the mask
+    padded with background, as :func:`skimage.measure.find_contours` does it; Lorensen & Cline 1987)."""
+    from skimage.measure import find_contours
+
+    m = np.asarray(mask, dtype=bool)
+    if m.ndim != 2:
+        raise ValueError(f"mask: expected a 2-D array, got shape {m.shape}")
+    if not m.any():
+        return []
+    return [c - 1.0 for c in find_contours(np.pad(m.astype(float), 1), 0.5)]
