@@ -590,6 +590,10 @@ class CompareBoard(QWidget):
         return True
 
     def _adopt(self, settings: FrontSettings) -> None:
+        if self.w.controller.session is not self.session:
+            QMessageBox.information(self, "Adopt", "The board's study is no longer the one in view; its settings "
+                                    "cannot be given to a label there.")
+            return
         current = self.session.settings(self.label)
         changes = settings_changes(current, settings)
         name = self.session.label(self.label).name
