@@ -25,7 +25,6 @@ from PySide6.QtWidgets import (
     QFileDialog,
     QFormLayout,
     QHBoxLayout,
-    QHeaderView,
     QInputDialog,
     QLabel,
     QLineEdit,
@@ -35,8 +34,6 @@ from PySide6.QtWidgets import (
     QPlainTextEdit,
     QPushButton,
     QTabWidget,
-    QTreeWidget,
-    QTreeWidgetItem,
     QVBoxLayout,
     QWidget,
 )
@@ -118,6 +115,9 @@ class MarkOverlay:
             text.setPos(point[1] + 1.0, point[0] - 1.0)
             self.texts.append(text)
         self.points.setData(xs, ys, pen=pens, brush=pg.mkBrush(0, 0, 0, 0))
+        loose = [f"{number}{' (new)' if pending else ''}: {mark.note}" for number, mark, pending in marks
+                 if mark.slice == slice_index and mark.point is None and mark.label not in anchors]
+        self.canvas.set_corner_text("Notes on this slice — " + "; ".join(loose) if loose else "")
 
 
 class SignoffPanel(QWidget):
@@ -193,13 +193,8 @@ class SignoffPanel(QWidget):
         self.step_buttons["approve"].setToolTip("Submitted → Approved (needs your name; final for this version)")
         self.step_buttons["return"].setToolTip("Submitted → Returned (needs your name and a comment or a note)")
         tabs = QTabWidget()
-        self.decisions = QTreeWidget()
-        self.decisions.setColumnCount(1)
-        self.decisions.setHeaderHidden(True)
-        self.decisions.setRootIsDecorated(True)
+        self.decisions = QListWidget()
         self.decisions.setWordWrap(True)
-        self.decisions.setUniformRowHeights(False)
-        self.decisions.header().setSectionResizeMode(0, QHeaderView.ResizeMode.Stretch)
         self.decisions.setToolTip("Every step of this version; double-click a note to go to its slice")
         self.versions = QListWidget()
         self.versions.setWordWrap(True)
@@ -217,7 +212,7 @@ class SignoffPanel(QWidget):
         self.mark_button.toggled.connect(self._mark_mode)
         self.remove_note_button.clicked.connect(self._remove_note)
         self.notes.itemDoubleClicked.connect(lambda item: self._go_to(item.data(Qt.ItemDataRole.UserRole)))
-        self.decisions.itemDoubleClicked.connect(lambda item, _c: self._go_to(item.data(0, Qt.ItemDataRole.UserRole)))
+        self.decisions.itemDoubleClicked.connect(lambda item: self._go_to(item.data(Qt.ItemDataRole.UserRole)))
         self.summary_button.clicked.connect(self.write_summary)
         self.w.views.main.clicked.connect(self._clicked)
         self.w.views.sliceChanged.connect(lambda _k: self.refresh_overlay())
@@ -331,26 +326,22 @@ class SignoffPanel(QWidget):
         number = 0
         for d in r.decisions:
             move = f" ({d.source} → {d.state})" if d.source else ""
-            by = f" by {d.reviewer}" if d.reviewer else ""
-            item = QTreeWidgetItem([f"{d.step or 'decision'}{move}"])
-            font = item.font(0)
+            by = f" by {d.reviewer}" if d.reviewer else " (no name given)"
+            head = QListWidgetItem(f"{d.step or 'decision'}{move}")
+            font = head.font()
             font.setBold(True)
-            item.setFont(0, font)
-            item.addChild(QTreeWidgetItem([f"{_local(d.time)}{by or ' (no name given)'}"]))
-            if d.comment:
-                child = QTreeWidgetItem([d.comment])
-                child.setToolTip(0, d.comment)
-                item.addChild(child)
+            head.setFont(font)
+            self.decisions.addItem(head)
+            lines = [f"    {_local(d.time)}{by}"] + [f"    {d.comment}"] if d.comment else [f"    {_local(d.time)}{by}"]
+            self.decisions.addItem(QListWidgetItem("\n".join(lines)))
             for m in d.marks:
                 number += 1
-                child = QTreeWidgetItem([f"note {number} · {names.get(m.label, m.label)} · slice {m.slice}: {m.note}"])
-                child.setToolTip(0, f"{m.note}\n(double-click: go to slice {m.slice})")
-                child.setData(0, Qt.ItemDataRole.UserRole, (m.slice, m.point))
-                item.addChild(child)
-            self.decisions.addTopLevelItem(item)
-            item.setExpanded(True)
+                child = QListWidgetItem(f"    note {number} · {names.get(m.label, m.label)} · slice {m.slice}: {m.note}")
+                child.setToolTip(f"double-click: go to slice {m.slice}")
+                child.setData(Qt.ItemDataRole.UserRole, (m.slice, m.point))
+                self.decisions.addItem(child)
         if not r.decisions:
-            self.decisions.addTopLevelItem(QTreeWidgetItem(["No step yet for this version."]))
+            self.decisions.addItem(QListWidgetItem("No step yet for this version."))
         for v in reversed(r.versions):
             who = f" by {v.reviewer}" if v.reviewer else ""
             head = f"Version {v.version}: {v.state}{who}" + (" (these files)" if v.current else "")

@@ -83,7 +83,8 @@ def test_a_reviewer_returns_a_submitted_result_with_a_note_placed_on_the_outline
     assert not any(b.isEnabled() for b in panel.step_buttons.values()) and panel.pending == []
     assert w.settings.value("review/reviewer") == "Dr A"
     assert len(panel.overlay.texts) == 1  # the recorded note stays in the view
-    assert "Returned" in panel.state_text.text() and panel.decisions.topLevelItemCount() == 2
+    assert "Returned" in panel.state_text.text() and panel.decisions.count() == 5  # two steps of two lines, a note
+    assert panel.decisions.item(4).data(Qt.ItemDataRole.UserRole)[0] == 10
     assert not any(kind in ("warning", "critical") for kind, _, _ in dialogs.seen)
 
 

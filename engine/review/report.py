@@ -330,8 +330,10 @@ def report_html(path: str | os.PathLike[str], *, volume: Any = None,
     operators = sorted({str(e.get("Operator")) for e in block.get("History") or []
                         if isinstance(e, Mapping) and e.get("Operator")})
     for key, value in (("Outlined by", block.get("Operator") or ", ".join(operators) or "not recorded"), ("First saved", _local(block.get("Created"))),
-                       ("Saved", _local(block.get("Saved"))), ("Drawn by hand in part", "yes" if doc.get("Manual")
-                                                                else "no"),
+                       ("Saved", _local(block.get("Saved"))),
+                       ("Drawn by hand in part", "yes" if doc.get("Manual") or any(
+                           isinstance(e, Mapping) and e.get("Action") in _EDITS for e in block.get("History") or [])
+                        else "no"),
                        ("Description", doc.get("Description")),
                        ("Software", f"Isotide {block.get('Software', {}).get('Version', '')}, Python "
                                     f"{block.get('Software', {}).get('Python', '')}"),
