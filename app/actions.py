@@ -27,6 +27,8 @@ _SPECS = {
     "save_as": ("Save as…", QKeySequence.StandardKey.SaveAs, "Save the outlines under a new name"),
     "dicom_seg": ("Also write DICOM SEG", "", "Save a DICOM Segmentation beside the mask (DICOM studies only)"),
     "save_working": ("Save working session…", "", "Keep the case as it is, with its live front, to go on later"),
+    "review_summary": ("Write review summary…", "", "An HTML summary of the saved result and its review, with a "
+                       "picture of every outlined slice"),
     "quit": ("Quit", QKeySequence.StandardKey.Quit, "Close Isotide"),
     "undo": ("Undo", QKeySequence.StandardKey.Undo, "Undo the last change"),
     "redo": ("Redo", ["Ctrl+Shift+Z", "Ctrl+Y"], "Redo the change undone last"),
@@ -38,6 +40,8 @@ _SPECS = {
     "carry_previous": ("Carry to previous slice", "Shift+PgUp", "Start the previous slice's front from this "
                        "outline"),
     "margin": ("Margin", "M", "Grow or shrink the outline by the margin set in the Front panel"),
+    "compare": ("Compare board…", "Ctrl+B", "Run 2–4 variants of this slice's front side by side with different "
+                "settings"),
     "clear_pins": ("Clear pins", "", "Release every pin of the front"),
     "remove_seed": ("Remove seed", "Delete", "Remove the seed under the mouse (else the last one)"),
     "next_slice": ("Next slice", "PgDown", "Show the next slice"),
@@ -94,7 +98,7 @@ def make_menus(window: QMainWindow, actions: dict[str, QAction]) -> dict[str, QM
         file_menu.addAction(actions[key])
     menus["recent"] = file_menu.addMenu("Open recent")
     file_menu.addSeparator()
-    for key in ("save", "save_as", "dicom_seg", "save_working"):
+    for key in ("save", "save_as", "dicom_seg", "save_working", "review_summary"):
         file_menu.addAction(actions[key])
     file_menu.addSeparator()
     file_menu.addAction(actions["quit"])
@@ -108,7 +112,7 @@ def make_menus(window: QMainWindow, actions: dict[str, QAction]) -> dict[str, QM
     menus["docks"] = view.addMenu("Panels")
     front = bar.addMenu("F&ront")
     for key in ("evolve", "step", "clear_front", "commit", None, "carry_previous", "carry_next", None, "margin",
-                "clear_pins", "remove_seed"):
+                "clear_pins", "remove_seed", None, "compare"):
         front.addSeparator() if key is None else front.addAction(actions[key])
     tools = bar.addMenu("&Tools")
     for key in TOOLS:

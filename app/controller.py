@@ -60,6 +60,8 @@ class SessionController(QObject):
         self._catching_up = False
         self._seen_index = 0
         self._settingsResult.connect(self._settings_reported)
+        #: Asked before each request (by its ``what``); False drops it (an approved result asks before an edit).
+        self.guard: Callable[[str], bool] | None = None
 
     # ------------------------------------------------------------- the case
     def set_session(self, session: Session | None) -> None:
@@ -139,6 +141,8 @@ class SessionController(QObject):
         again after the call (only when it was running).
         """
         if self.session is None or self._thread is None:
+            return None
+        if self.guard is not None and not self.guard(what):
             return None
         was_running = self.evolving
         if pause and was_running:

@@ -33,6 +33,7 @@ from app.cases_dock import CasesPanel, case_name
 from app.controller import SessionController
 from app.front_dock import FrontPanel
 from app.labels_dock import LabelsPanel
+from app.signoff_dock import SignoffPanel
 from app.study_io import Opened, StudyOpener
 from app.study_views import StudyViews
 from app.tools import TOOLS, ToolHandler
@@ -75,6 +76,16 @@ class MainWindow(QMainWindow):
         self._toolbar()
         self._status_bar()
         self.files = WindowFiles(self)
+        self.signoff = SignoffPanel(self)
+        self.signoff_dock = QDockWidget("Sign-off", self)
+        self.signoff_dock.setObjectName("Sign-off")
+        self.signoff_dock.setWidget(self.signoff)
+        self.addDockWidget(Qt.DockWidgetArea.RightDockWidgetArea, self.signoff_dock)
+        self.tabifyDockWidget(self.front_dock, self.signoff_dock)  # a reviewer needs it more than the settings
+        self.front_dock.raise_()
+        self.menus["docks"].addAction(self.signoff_dock.toggleViewAction())
+        self.controller.guard = self.signoff.allow
+        self.compare_board = None
         kwargs = {} if autosave_s is None else {"interval_s": autosave_s, "idle_s": min(3.0, autosave_s)}
         self.autosaver = Autosaver(self.controller, self.files.autosave_meta, folder=recovery_folder, **kwargs)
         self._connect()
@@ -155,6 +166,10 @@ class MainWindow(QMainWindow):
         c.runningChanged.connect(lambda _: self.update_actions())
         c.failed.connect(self._failed)
         c.caseChanged.connect(self._case_changed)
+        c.changed.connect(self.signoff.sync)
+        self.opener.opened.connect(lambda _opened: self.signoff.after_open())  # after WindowFiles has taken it
+        a["review_summary"].triggered.connect(self.signoff.write_summary)
+        a["compare"].triggered.connect(self.open_compare_board)
         self.views.sliceChanged.connect(self._slice_changed)
         self.views.hovered.connect(self._hovered)
         self.views.hoverLeft.connect(self._hover_left)
@@ -305,6 +320,8 @@ class MainWindow(QMainWindow):
         for key in ("save", "save_as", "save_working"):
             a[key].setEnabled(has)
         a["dicom_seg"].setEnabled(has and session.volume.kind == "dicom")
+        a["review_summary"].setEnabled(has and self.signoff.record is not None)
+        a["compare"].setEnabled(has and self.current_label() is not None)
         a["undo"].setEnabled(has and (session.can_undo() or running))
         a["redo"].setEnabled(has and session.can_redo())
         undo_text = session.history[session.undo_index - 1].text if has and session.can_undo() else ""
@@ -435,6 +452,20 @@ class MainWindow(QMainWindow):
             self.views.set_window(*data)
             self.window_presets.setCurrentIndex(index)
 
+    def open_compare_board(self) -> None:
+        """The Compare board on the current label and slice (one board at a time: a new one replaces the last)."""
+        from app.compare_board import CompareBoard
+
+        session = self.controller.session
+        label = self.current_label()
+        if session is None or label is None:
+            self.statusBar().showMessage("Pick a label first: the Compare board runs variants of its front", 6000)
+            return
+        if self.compare_board is not None:
+            self.compare_board.close()
+        self.compare_board = CompareBoard(self, session, label, self.views.slice_index)
+        self.compare_board.show()
+
     # ---------------------------------------------------------- open / close
     def open_path(self, path: str, *, series: str | None = None) -> bool:
         """Open a study, result or working session (asks to save unsaved outlines first)."""
@@ -463,6 +494,9 @@ class MainWindow(QMainWindow):
             ev.ignore()
             return
         self._closing = True
+        if self.compare_board is not None:
+            self.compare_board.close()
+        self.signoff.shutdown()
         self.opener.cancel()
         self.controller.shutdown()
         self.autosaver.close()

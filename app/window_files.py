@@ -49,6 +49,7 @@ class WindowFiles:
     def __init__(self, window: "MainWindow") -> None:
         self.w = window
         self.result: str | None = None  # DIR/NAME the case saves to
+        self.new_version = False  # the user chose to start a new version of a reviewed result (no second question)
         self.study_path = ""
         self._recovered: Path | None = None
         self._after_save: list = []
@@ -100,6 +101,7 @@ class WindowFiles:
         w.controller.set_session(opened.session)
         self.study_path = opened.session.volume.path
         self.result = None
+        self.new_version = False
         if opened.kind == "result":
             self.result = result_prefix(opened.path)
         meta = opened.meta or {}
@@ -174,9 +176,10 @@ class WindowFiles:
         """Save to ``DIR/NAME`` through the worker; ``then()`` runs once it is saved."""
         w = self.w
         seg = w.actions["dicom_seg"].isChecked() and w.controller.session.volume.kind == "dicom"
-        new_version = False
+        new_version = self.new_version and prefix == self.result
         try:
-            check_replaceable(prefix)
+            if not new_version:
+                check_replaceable(prefix)
         except ReviewedResultError as exc:
             answer = QMessageBox.question(
                 w, "Result under review",
@@ -191,6 +194,7 @@ class WindowFiles:
             if outcome.error:
                 return  # shown by the window
             self.result = prefix
+            self.new_version = False
             w.autosaver.discard()
             w.setWindowModified(False)
             w.statusBar().showMessage(f"Saved {Path(outcome.result['json']).name} and its mask", 6000)

@@ -20,6 +20,8 @@ VERBS: dict[str, str] = {
     "verify": "engine.commands.verify",
     "batch": "engine.commands.batch",
     "sweep": "engine.commands.sweep",
+    "review": "engine.commands.review",
+    "report": "engine.commands.report",
 }
 
 

@@ -325,14 +325,22 @@ def test_approved_result_is_not_overwritten_without_the_flag(tmp_path, series):
         save(tmp_path, vol)
 
 
-def test_review_update_through_save_sidecar_keeps_verify_ok(tmp_path, series):
+def test_review_steps_keep_verify_ok_and_a_review_written_by_hand_shows(tmp_path, series):
+    from engine.review import record_step
+
     vol = eio.load(series)
     paths = save(tmp_path, vol)
     doc = json.loads(paths["json"].read_text())
     doc["Isotide"]["Review"] = {"State": "Approved", "Reviewer": "Dr Reviewer", "Decisions": [{"label": 1}],
                                 "Comments": ["fine"]}
-    eio.save_sidecar(paths["json"], doc)
+    eio.save_sidecar(paths["json"], doc)  # resealed, but no step in the history says so
+    report = eio.verify(paths["json"])
+    assert not report.ok and any("not recorded in the history" in p for p in report.problems)
+    paths = save(tmp_path, vol, overwrite_approved=True)
+    record_step(paths["json"], "submit")
+    record_step(paths["json"], "approve", reviewer="Dr Reviewer", comment="fine")
     assert eio.verify(paths["json"]).ok
+    doc = json.loads(paths["json"].read_text())
     with pytest.raises(ApprovedResultError):
         save(tmp_path, vol)
     doc["Isotide"]["Review"]["State"] = "Lost"

@@ -64,7 +64,7 @@ __all__ = [
 ]
 
 #: Version of the ``Isotide`` block written by this code.
-SCHEMA_VERSION = "1.1.0"
+SCHEMA_VERSION = "1.2.0"
 
 #: File name of the JSON Schema inside ``engine/schemas``.
 SCHEMA_FILE = "isotide-dseg-sidecar-1.json"

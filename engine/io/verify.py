@@ -5,7 +5,8 @@ What is checked, each mismatch reported as one line:
 1. the sidecar is JSON and valid against the shipped JSON Schema;
 2. its seal (hash of the document) still matches;
 3. the edit history's hash chain is intact, from the inputs' anchor to
-   ``HistoryHead``;
+   ``HistoryHead``, and the review block agrees with the review steps the
+   history records (:func:`engine.review.review_problems`);
 4. the mask file's SHA-256, its voxel content, shape and geometry, and that
    its label values are in the table (with the recorded voxel counts);
 5. the label table file's SHA-256 and that it lists the sidecar's labels;
@@ -257,6 +258,13 @@ def verify(path: str | os.PathLike[str]) -> VerifyReport:
             report.fail("history: HistoryHead does not match the last entry (entries removed or added)")
         elif not chain:
             report.checked.append(f"history hash chain ({len(history)} entries)")
+        from engine.review.consistency import review_problems
+
+        review = review_problems(block)
+        for problem in review:
+            report.fail(problem)
+        if not review:
+            report.checked.append("review record")
 
     output = block.get("Output") if isinstance(block.get("Output"), dict) else {}
     if isinstance(block.get("Input"), dict):
