@@ -42,6 +42,10 @@ class StudyNotFoundError(ValueError):
     """The study a result was drawn on is not where its record points (give it explicitly)."""
 
 
+#: History actions that are outlines drawn by hand.
+_MANUAL = ("extend", "trim", "margin")
+
+
 def label_volume(session: "Session") -> NDArray[np.uint16]:
     """Every committed outline as one integer volume ``[slice, row, col]``; where outlines overlap the
     label listed later wins."""
@@ -55,6 +59,7 @@ def provenance_record(session: "Session", *, operator: str | None = None,
                       description: str | None = None) -> dict[str, Any]:
     """The ``provenance`` of :func:`engine.io.save_result` for the session's committed outlines."""
     who = session.operator if operator is None else str(operator)
+    who = who or session.prior_operator
     per_label: dict[int, list[dict[str, Any]]] = {lab.index: [] for lab in session.labels}
     for outline in session.outlines():
         record = dict(outline.record)
@@ -69,7 +74,8 @@ def provenance_record(session: "Session", *, operator: str | None = None,
         "history": history,
         "description": description or (f"Outlines of {names} drawn with Isotide (level-set fronts grown from seeds, "
                                        "with manual corrections)." if names else "No outlines."),
-        "manual": any(c.action in ("extend", "trim", "margin") for c in session._stack.applied()),
+        "manual": any(c.action in _MANUAL for c in session._stack.applied())
+        or any(str(h.get("Action", "")) in _MANUAL for h in session.prior_history),
     }
     if session.created:
         out["created"] = session.created
@@ -184,6 +190,7 @@ def open_result(path: str | os.PathLike[str], *, study: str | None = None,
     session.prior_history = tuple(block.get("History", []))
     session.prior_review = block.get("Review")
     session.created = block.get("Created")
+    session.prior_operator = str(block.get("Operator") or "")
     session.saved_index = 0
     session._publish()
     return session

@@ -94,8 +94,9 @@ class Session:
         self.prior_history: tuple[Mapping[str, Any], ...] = ()
         #: Review block of the result this session was opened from (``None``: a new result).
         self.prior_review: Mapping[str, Any] | None = None
-        #: When the result this session continues was first saved.
+        #: When the result this session continues was first saved, and who made it (when recorded).
         self.created: str | None = None
+        self.prior_operator = ""
         self.saved_index = 0
 
     # ---------------------------------------------------------------- opening

@@ -67,6 +67,7 @@ class WorkingCopy:
     created: str | None
     modified: bool
     meta: Mapping[str, Any]
+    prior_operator: str = ""
 
 
 @dataclass(frozen=True)
@@ -98,7 +99,7 @@ def capture(session: "Session", *, meta: Mapping[str, Any] | None = None, blocki
         return WorkingCopy(session.volume, session.operator, session.state, session._stack.applied(),
                            session.settings(None), session.hidden_labels(), tuple(session.prior_history),
                            session.prior_review, session.created, session.modified,
-                           MappingProxyType(dict(meta or {})))
+                           MappingProxyType(dict(meta or {})), session.prior_operator)
     finally:
         lock.release()
 
@@ -252,6 +253,7 @@ def write_working(copy: WorkingCopy, path: str | os.PathLike[str], *, now: str |
         "prior_history": _plain(copy.prior_history),
         "prior_review": _plain(copy.prior_review),
         "created": copy.created,
+        "prior_operator": copy.prior_operator,
         "modified": bool(copy.modified),
         "meta": _plain(copy.meta),
     }
@@ -379,6 +381,7 @@ def open_working(path: str | os.PathLike[str], *, study: str | None = None,
     session.prior_history = tuple(manifest.get("prior_history") or ())
     session.prior_review = manifest.get("prior_review")
     session.created = manifest.get("created")
+    session.prior_operator = str(manifest.get("prior_operator") or "")
     session.saved_index = -1 if manifest.get("modified", True) else 0
     with session._lock:
         session._sync_front(state)
