@@ -21,7 +21,10 @@ Output
     sidecar is written.
 
 The command prints the steps taken, the evolution time reached, the wall
-time, the area in mm² and whether the front converged. With ``--progress``,
+time, the area in mm² and whether the front converged; when the block size
+of ``--coarse`` is more than the outlined structure can hold, the block
+size it was lowered to (also in the sidecar's parameters as ``coarse`` and
+``coarse_requested``, and in its notes). With ``--progress``,
 or whenever stderr is a terminal, a one-line text bar on stderr shows the
 steps taken out of the step limit (fronts usually converge long before it).
 
@@ -97,7 +100,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--nodes", default="lattice", metavar="lattice|scattered",
                         help="where the front lives: a lattice (default) or scattered nodes, finer near edges")
     parser.add_argument("--coarse", default="auto", metavar="auto|1|2|4|8",
-                        help="block size of the coarse start (1 = start at full resolution; default auto)")
+                        help="block size of a coarse stage (auto or 1: none, the flood brings the front to the "
+                             "boundary; a size the outlined structure cannot hold is lowered)")
     parser.add_argument("--max-steps", metavar="N", help="step limit (default 20000)")
     parser.add_argument("--slice", metavar="K", help="slice of a volume (default: the middle slice)")
     parser.add_argument("--label", default="structure", metavar="NAME", help="label name (default: structure)")
@@ -380,6 +384,16 @@ def operator_name() -> str:
         return ""
 
 
+def coarse_note(seg: "Segmentation") -> str:
+    """What became of a block size the structure could not hold ("" when the one asked for was used)."""
+    asked = seg.params.get("coarse_requested")
+    if asked is None:
+        return ""
+    used = seg.params.get("coarse", 1)
+    return (f"block size {asked} lowered to {used} (the outlined structure is too small for blocks of "
+            f"{asked} pixels{'; finished at full resolution' if used == 1 else ''})")
+
+
 def seconds(timings: dict) -> dict[str, float]:
     """The timing entries in seconds (keys ending in ``_s``), as plain floats."""
     return {k: float(v) for k, v in timings.items() if k.endswith("_s") and math.isfinite(float(v))}
@@ -414,10 +428,13 @@ def provenance(
     timings = seconds(dict(seg.timings))
     timings.update({k: float(v) for k, v in (extra_timings or {}).items()})
     parameters = dict(seg.params)
-    parameters["detail"] = settings.detail
+    parameters.setdefault("detail", settings.detail)  # the detail used (raised for thin structures)
     state = "converged" if seg.converged else "stopped at the step limit without converging"
     notes = (f"{state} after {seg.steps} steps (evolution time {seg.time:.6g}); "
              f"band nodes {seg.timings.get('nodes', 'n/a')}, band rebuilds {seg.timings.get('rebuilds', 'n/a')}")
+    lowered = coarse_note(seg)
+    if lowered:
+        notes += f"; {lowered}"
     details = {
         "command": command,
         "image": settings.image,
@@ -550,6 +567,9 @@ def _run(settings: Settings) -> int:
     for note in volume.warnings:
         print(f"note: {note}")
     print(f"steps: {seg.steps}")
+    lowered = coarse_note(seg)
+    if lowered:
+        print(f"coarse start: {lowered}")
     print(f"evolution time: {seg.time:.4g} (front time; {seg.timings.get('evolve_s', 0.0):.2f} s evolving)")
     print(f"wall time: {wall:.2f} s")
     print(f"area: {seg.area_mm2:.1f} mm² ({int(np.count_nonzero(seg.mask))} pixels of {pixel_area:.4g} mm²)")
