@@ -25,6 +25,9 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import ndimage
 
+#: Smallest side (pixels) of the block-averaged image, by dimension: a 48³
+#: block mean holds as many voxels as a 330² image holds pixels.
+MIN_COARSE_SIDE = {2: 96, 3: 48}
 #: Smallest radius of the structure's largest inscribed disk, in blocks, for a
 #: coarse front: its band stencils reach about four coarse pixels, and a
 #: structure two blocks wide leaks through the blocks it shares with its
@@ -38,19 +41,24 @@ COARSE_MAX_STEPS = 2000
 
 
 def resolvable_factor(inside: NDArray[np.bool_], spacing: NDArray[np.floating], requested: int) -> int:
-    """The largest block size up to ``requested`` at which the structure ``inside`` keeps a core of MIN_COARSE_SEED blocks.
+    """The largest block size up to ``requested`` that the image and the structure ``inside`` can hold.
 
-    The radius of the largest disk (ball) inside ``inside``, in pixels along
-    the coarsest axis (exact Euclidean distance transform, Maurer, Qi &
-    Raghavan, IEEE Trans. PAMI 25(2) (2003) 265-270, as scipy implements
-    it), must be at least MIN_COARSE_SEED blocks; the block size is halved
-    until it is (1: no coarse stage).
+    The block-averaged image must keep MIN_COARSE_SIDE pixels on its
+    shortest side (a 256² image allows blocks of 2: on a 64² block mean the
+    brain of the head sample crept along the 2 px layer of fluid around it),
+    and the radius of the largest disk (ball) inside ``inside``, in pixels
+    along the coarsest axis (exact Euclidean distance transform, Maurer, Qi
+    & Raghavan, IEEE Trans. PAMI 25(2) (2003) 265-270, as scipy implements
+    it), must be at least MIN_COARSE_SEED blocks. The block size is halved
+    until both hold (1: no coarse stage).
     """
+    m = np.asarray(inside, dtype=bool)
     sp = np.asarray(spacing, dtype=float)
-    depth = ndimage.distance_transform_edt(inside, sampling=sp / float(np.max(sp))) if np.any(inside) else None
+    depth = ndimage.distance_transform_edt(m, sampling=sp / float(np.max(sp))) if m.any() else None
     radius = float(np.max(depth)) if depth is not None else 0.0
+    side = MIN_COARSE_SIDE.get(m.ndim, 0)
     factor = int(requested)
-    while factor > 1 and radius < MIN_COARSE_SEED * factor:
+    while factor > 1 and (radius < MIN_COARSE_SEED * factor or min(m.shape) / factor < side):
         factor //= 2
     return factor
 

@@ -148,6 +148,10 @@ RING_PIXELS = 3.0
 #: taken in some partial-volume pixels; taken as the outside it would make
 #: the whole uniform structure look like outside and turn the front back.
 LOCAL_CONTRAST = 0.1
+#: Share of the local ring (Gaussian weights) that the pixels beyond the noise on one side of the
+#: inside mean must make up to count as a neighbouring tissue: a ring still in the structure has
+#: 0.1 % of its pixels three noise deviations out on either side, and a smooth bias field a few per cent.
+SIDE_SHARE = 0.25
 #: Difference between the centred and the upwind |∇φ| beyond which a node is
 #: taken to sit on a kink of φ, where curvature motion uses the upwind value.
 KINK_GRADIENT = 0.1
@@ -914,19 +918,31 @@ class Front:
         ring = (depth > rim) & (depth <= rim + RING_PIXELS * coarse)
         local = (px - lo).T
         b.local_in = np.full(len(px), c_in)
+        # ring pixels are told apart from the inside by the inside mean near them (the inside
+        # without its rim, Gaussian weights; the global mean where there is too little of it):
+        # a smooth bias field across a large structure is not taken for a neighbouring tissue
+        core = (ndimage.distance_transform_edt(self._inside[box], sampling=self.features.spacing) > rim).astype(float)
+        w_core = ndimage.gaussian_filter(core, radius_px, mode="nearest")
+        near_in = np.where(w_core > 0.05, ndimage.gaussian_filter(img * core, radius_px, mode="nearest")
+                           / np.maximum(w_core, 1e-12), c_in)
         # the outside on each side of the inside mean (darker, brighter), beyond noise:
         # a structure between a darker and a brighter tissue (an organ on bone in CT) is
         # held by both, where their mixed mean could lie on the inside's own side
+        w_ring = ndimage.map_coordinates(ndimage.gaussian_filter(ring.astype(float), radius_px, mode="nearest"),
+                                         local, order=1, mode="nearest")
         sides = []
         for side in (-1.0, 1.0):
             far = np.sign(c_out - c_in) != side
             need = max(3.0 * noise, LOCAL_CONTRAST * abs(c_in - c_out)) if far else 3.0 * noise
-            beyond = (ring & (side * (img - c_in) > need)).astype(float)
+            beyond = (ring & (side * (img - near_in) > need)).astype(float)
             w_side = ndimage.gaussian_filter(beyond, radius_px, mode="nearest")
             s_side = ndimage.gaussian_filter(img * beyond, radius_px, mode="nearest")
             weight = ndimage.map_coordinates(w_side, local, order=1, mode="nearest")
             mean = ndimage.map_coordinates(s_side, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
-            sides.append(np.where(weight > 0.05, mean, np.nan))
+            # a side is a tissue where it makes up a good share of the ring, not where a few
+            # pixels of the inside's own noise tail (or of a smooth bias) are beyond `need`
+            distinct = (weight > 0.05) & (weight >= SIDE_SHARE * w_ring)
+            sides.append(np.where(distinct, mean, np.nan))
         first = np.where(np.isnan(sides[0]), sides[1], sides[0])
         other = np.where(np.isnan(sides[0]), np.nan, sides[1])
         b.local_out = np.stack([np.where(np.isnan(first), c_out, first), other])

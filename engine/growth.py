@@ -55,6 +55,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
+from engine.front import SIDE_SHARE
 from engine.front_geometry import seed_disks
 
 #: Models the flood serves (it follows their inside test).
@@ -79,7 +80,7 @@ MIN_WEIGHT = 0.05
 #: weakest local contrast) the pixel counts as a mixture on a steep edge.
 MIXTURE = 3.0
 #: Passes at most.
-MAX_PASSES = 8
+MAX_PASSES = 12
 #: A pass that adds fewer pixels than this fraction of the region ends the flood.
 SETTLED = 0.002
 #: Half-side (pixels) of the box around each seed whose wavelet coefficients give the noise.
@@ -164,6 +165,7 @@ class RegionGrowth:
     noise: float = field(init=False, default=0.0)
     smoothing: float = field(init=False, default=FIRST_SMOOTHING)
     contrast: float = field(init=False, default=0.0)
+    _first: bool = field(init=False, default=True, repr=False)  # still flooding with the first smoothing
     _smoothed: dict = field(init=False, default_factory=dict, repr=False)
 
     def __post_init__(self) -> None:
@@ -195,16 +197,31 @@ class RegionGrowth:
         return out
 
     def step(self) -> bool:
-        """One pass of the flood; returns True while it still grows (False once finished)."""
+        """One pass of the flood; returns True while it still grows (False once finished).
+
+        A pass works on a box around the present region; a pass whose flood
+        reaches the side of its box leaves the rest to the next pass (on a
+        wider box), so no pass takes long on a large image.
+        """
         if self.finished:
             return False
         before = int(self.inside.sum())
-        grown = self._pass()
+        grown, reached_box = self._pass()
         self.passes += 1
         added = int(grown.sum()) - before
-        if self.model == "window" or added <= max(SETTLED * before, 0) or self.passes >= MAX_PASSES:
-            self.finished = True
         self.inside = grown
+        if reached_box:
+            pass
+        elif self._first:
+            # the first smoothing has found the structure's surroundings: choose the smoothing
+            self._first = False
+            self._choose_smoothing()
+            if self.model == "window":
+                self.finished = True
+        elif added <= SETTLED * before:
+            self.finished = True
+        if self.passes >= MAX_PASSES:
+            self.finished = True
         if self.inside.sum() > UNBOUNDED * self.inside.size:
             # no boundary anywhere: the flood found nothing to stop at; give the seeds back
             self.inside = self._seed_mask.copy()
@@ -248,25 +265,22 @@ class RegionGrowth:
         return tuple(slice(max(int(a[0]) - p, 0), min(int(a[-1]) + p + 1, n))
                      for a, p, n in zip(nz, pad, self.image.shape))
 
-    def _pass(self) -> NDArray[np.bool_]:
-        while True:
-            box = self._box()
-            region = self.inside[box]
-            accept = self._accept(box, region)
-            structure = ndimage.generate_binary_structure(self.image.ndim, 1)
-            labels, _ = ndimage.label(accept | region, structure)
-            held = np.unique(labels[self._seed_mask[box] | region])
-            held = held[held > 0]
-            grown_box = np.isin(labels, held)
-            touches = [(s.start > 0 and grown_box.take(0, axis=i).any())
-                       or (s.stop < n and grown_box.take(-1, axis=i).any())
-                       for i, (s, n) in enumerate(zip(box, self.image.shape))]
-            grown = self.inside.copy()
-            grown[box] = grown_box
-            if not any(touches):
-                return grown
-            # the flood reached the edge of its box: widen the box around what it reached and go again
-            self.inside = grown
+    def _pass(self) -> tuple[NDArray[np.bool_], bool]:
+        """The region after one pass, and whether its flood reached the side of the pass's box."""
+        box = self._box()
+        region = self.inside[box]
+        accept = self._accept(box, region)
+        structure = ndimage.generate_binary_structure(self.image.ndim, 1)
+        labels, _ = ndimage.label(accept | region, structure)
+        held = np.unique(labels[self._seed_mask[box] | region])
+        held = held[held > 0]
+        grown_box = np.isin(labels, held)
+        touches = [(s.start > 0 and grown_box.take(0, axis=i).any())
+                   or (s.stop < n and grown_box.take(-1, axis=i).any())
+                   for i, (s, n) in enumerate(zip(box, self.image.shape))]
+        grown = self.inside.copy()
+        grown[box] = grown_box
+        return grown, any(touches)
 
     def _accept(self, box: tuple[slice, ...], region: NDArray[np.bool_]) -> NDArray[np.bool_]:
         """Pixels of ``box`` the model clearly calls inside, given the present ``region``."""
@@ -275,9 +289,7 @@ class RegionGrowth:
             smooth = self._smoothed_image(self.smoothing, box)
             centre, half = 0.5 * (low + high), 0.5 * (high - low)
             return (half - np.abs(smooth - centre)) / half >= CLEAR_INSIDE
-        if self.passes == 1:
-            self._choose_smoothing(box, region)
-        smoothing = FIRST_SMOOTHING if self.passes == 0 else self.smoothing
+        smoothing = FIRST_SMOOTHING if self._first else self.smoothing
         smooth = self._smoothed_image(smoothing, box)
         noise = max(self.noise * smoothing_factor(self._sigma_px(smoothing)), 1e-12)
         core, ring = self._core_and_ring(region, smoothing)
@@ -287,6 +299,7 @@ class RegionGrowth:
         inside_mean = float(smooth[core].mean())
         accept = np.ones(smooth.shape, dtype=bool)
         decided = np.zeros(smooth.shape, dtype=bool)
+        ring_weight = _local_mean(smooth, ring, radius_px, weights=True)[1]
         weakest = np.full(smooth.shape, np.inf)  # the least contrast to a distinct side
         for side in (-1.0, 1.0):
             # what borders the region on this side of its intensity (darker, brighter), beyond noise
@@ -296,7 +309,9 @@ class RegionGrowth:
             if not beyond.any():
                 continue
             c_out, weight = _local_mean(smooth, beyond, radius_px, weights=True)
-            distinct = weight > MIN_WEIGHT
+            # a side is a tissue where it makes up a good share of the ring, not where a few
+            # pixels of the inside's own noise tail (or of a smooth bias) are beyond the spread
+            distinct = (weight > MIN_WEIGHT) & (weight >= SIDE_SHARE * ring_weight)
             speed = (2.0 * smooth - c_in - c_out) / np.where(distinct, c_in - c_out, 1.0)
             accept &= ~distinct | (speed >= CLEAR_INSIDE)
             decided |= distinct
@@ -306,8 +321,7 @@ class RegionGrowth:
         # nothing is distinct yet: the contrast found around the first region) is a mixture of
         # two other tissues (the rim of a bone in soft tissue passes through the organ's
         # value): left to the level set
-        footprint = np.ones((3,) * smooth.ndim, dtype=bool)
-        spread = ndimage.maximum_filter(smooth, footprint=footprint) - ndimage.minimum_filter(smooth, footprint=footprint)
+        spread = ndimage.maximum_filter(smooth, size=3) - ndimage.minimum_filter(smooth, size=3)
         steep = spread > 2.0 * np.where(np.isfinite(weakest), weakest, self.contrast) + 2.0 * MIXTURE * noise
         return accept & ~steep
 
@@ -323,8 +337,12 @@ class RegionGrowth:
         ring = (depth_out > rim) & (depth_out <= rim + self.ring_mm)
         return core, ring
 
-    def _choose_smoothing(self, box: tuple[slice, ...], region: NDArray[np.bool_]) -> None:
+    def _choose_smoothing(self) -> None:
         """The least smoothing at which a quarter of the contrast around the first region spans MARGIN noise deviations."""
+        if self.model == "window":
+            return
+        box = self._box()
+        region = self.inside[box]
         smooth = self._smoothed_image(FIRST_SMOOTHING, box)
         core, ring = self._core_and_ring(region, FIRST_SMOOTHING)
         self.contrast = abs(float(np.median(smooth[ring])) - float(np.median(smooth[core]))) if ring.any() else 0.0
@@ -340,11 +358,27 @@ def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px
     """Gaussian-weighted mean of ``values`` over ``mask`` around every pixel (normalised convolution).
 
     Where the mask has no weight nearby the mean of the whole mask stands in.
-    With ``weights`` the normalising weight is returned too.
+    With ``weights`` the normalising weight is returned too. For radii of
+    several pixels the two Gaussian sums are taken on a grid of blocks
+    (about a third of the radius a side) and interpolated back: they are
+    smooth on that scale, and the passes over a 1024² image cost a quarter.
     """
     m = mask.astype(float)
-    w = ndimage.gaussian_filter(m, radius_px, mode="constant")
-    s = ndimage.gaussian_filter(values * m, radius_px, mode="constant")
+    radius = np.asarray(radius_px, dtype=float)
+    block = max(1, int(np.min(radius) // 3))
+    if block > 1 and min(values.shape) >= 4 * block:
+        from engine.coarse_start import block_mean
+
+        small_w = ndimage.gaussian_filter(block_mean(m, block), radius / block, mode="constant")
+        small_s = ndimage.gaussian_filter(block_mean(values * m, block), radius / block, mode="constant")
+        grid = np.meshgrid(*[(np.arange(n) - 0.5 * (block - 1)) / block for n in values.shape], indexing="ij",
+                           sparse=True)
+        coords = [np.broadcast_to(g, values.shape) for g in grid]
+        w = ndimage.map_coordinates(small_w, coords, order=1, mode="nearest")
+        s = ndimage.map_coordinates(small_s, coords, order=1, mode="nearest")
+    else:
+        w = ndimage.gaussian_filter(m, radius, mode="constant")
+        s = ndimage.gaussian_filter(values * m, radius, mode="constant")
     fallback = float(values[mask].mean()) if mask.any() else float(values.mean())
     mean = np.where(w > 1e-6, s / np.maximum(w, 1e-12), fallback)
     return (mean, w) if weights else mean

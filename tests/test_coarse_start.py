@@ -48,20 +48,23 @@ def test_upsampling_reproduces_a_quadratic_exactly() -> None:
     np.testing.assert_allclose(to_coarse(np.array([[1.5, 5.5]]), factor), [[0.0, 1.0]])
 
 
-def test_block_size_follows_the_structure() -> None:
+def test_block_size_follows_the_structure_and_the_image() -> None:
     # The largest disk inside a disk of radius R is the disk itself (common
     # geometry): R = 33 px holds 4 blocks of 8 px, R = 20 of 4 px, R = 9 of
-    # 2 px, R = 6 none; a 2 px × 300 px strip none.
-    rr, cc = np.indices((128, 128), dtype=float)
+    # 2 px, R = 6 none; a 2 px × 300 px strip none. The block mean keeps
+    # 96 px a side: 768² allows blocks of 8, 256² of 2, 160² none.
+    rr, cc = np.indices((768, 768), dtype=float)
     for radius, factor in ((33.0, 8), (20.0, 4), (9.0, 2), (6.0, 1)):
         disk = np.hypot(rr - 64.2, cc - 63.7) < radius
         assert resolvable_factor(disk, np.ones(2), 8) == factor
         assert resolvable_factor(disk, np.ones(2), 2) == min(2, factor)
-    strip = np.zeros((20, 300), dtype=bool)
-    strip[9:11] = True
+        assert resolvable_factor(disk[:256, :256], np.ones(2), 8) == min(2, factor)
+        assert resolvable_factor(disk[:160, :160], np.ones(2), 8) == 1
+    strip = np.zeros((200, 300), dtype=bool)
+    strip[99:101, :] = True
     assert resolvable_factor(strip, np.ones(2), 8) == 1
     # distances in pixels of the coarsest axis: 0.5 × 1 mm pixels see the disk half as wide
-    disk = np.hypot((rr - 64.2) / 2.0, cc - 63.7) < 20.0
+    disk = np.hypot((rr - 164.2) / 2.0, cc - 63.7) < 20.0
     assert resolvable_factor(disk, np.array([0.5, 1.0]), 8) == 4
     seeds = np.array([[256.0, 256.0, 30.0]])
     np.testing.assert_allclose(coarse_seeds(seeds, 4), [[(256 - 1.5) / 4, (256 - 1.5) / 4, 7.5]])
@@ -118,14 +121,14 @@ def _noisy_disks(shape: tuple[int, int], disks: list[tuple[float, float, float]]
 
 @pytest.mark.slow
 def test_a_small_seed_floods_then_goes_coarse_at_the_block_size_asked_for() -> None:
-    # A 3 px click on a 256² image: the flood takes the front out to the disk
-    # (radius 70 px, far more than 4 blocks of 4 px), the coarse stage runs
+    # A 3 px click on a 512² image: the flood takes the front out to the disk
+    # (radius 140 px, far more than 4 blocks of 4 px), the coarse stage runs
     # at the block size asked for, and the result agrees with a run at full
     # resolution throughout.
-    image = _noisy_disks((256, 256), [(126.3, 131.7, 70.0)], seed=3)
+    image = _noisy_disks((512, 512), [(252.3, 261.7, 140.0)], seed=3)
     rr, cc = np.indices(image.shape)
-    truth = np.hypot(rr - 126.3, cc - 131.7) < 70.0
-    seed = (128.0, 128.0, 3.0)
+    truth = np.hypot(rr - 252.3, cc - 261.7) < 140.0
+    seed = (256.0, 256.0, 3.0)
     result = segment(image, [seed], model="region", coarse=4)
     assert result.params["coarse"] == 4 and "coarse_requested" not in result.params
     assert result.timings["coarse_steps"] > 0
