@@ -180,7 +180,12 @@ class RegionGrowth:
         if not self.inside.any():
             raise ValueError("seeds: no pixel centre lies inside the seed disks")
         self._seed_mask = self.inside.copy()
-        self.noise = noise_level(self.image, self.seeds[:, :-1])
+        # white noise from the finest wavelet coefficients; noise correlated between pixels
+        # (a CT reconstruction kernel, lossy compression) hides from them, not from the spread
+        # of the seed's own pixels
+        seeded = self.image[self._seed_mask]
+        spread = 1.4826 * float(np.median(np.abs(seeded - np.median(seeded)))) if seeded.size >= 9 else 0.0
+        self.noise = max(noise_level(self.image, self.seeds[:, :-1]), spread)
         if self.model == "window":
             self.smoothing = self.window_sigma_mm / float(np.min(self.spacing))
 
@@ -293,6 +298,11 @@ class RegionGrowth:
         smooth = self._smoothed_image(smoothing, box)
         noise = max(self.noise * smoothing_factor(self._sigma_px(smoothing)), 1e-12)
         core, ring = self._core_and_ring(region, smoothing)
+        if core.sum() >= 50:
+            # what the region already holds varies this much (noise correlated between pixels
+            # falls less under smoothing than white noise; texture; a bias field)
+            values = smooth[core]
+            noise = max(noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
         radius_px = self.local_radius_mm / self.spacing
         c_in = _local_mean(smooth, core, radius_px)
         outside_mean = float(smooth[~region].mean()) if (~region).any() else float(smooth.mean())

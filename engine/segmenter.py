@@ -47,6 +47,9 @@ STAGES = ("growing", "coarse", "fine", "done")
 BLOCK_SIZES = (1, 2, 4, 8)
 #: The fine front starts this far (pixel spacings) beyond the outermost flooded pixel centres.
 START_BEYOND = 0.1
+#: The fine front's nodes within this many pixels of the flood's outline get Newton closest-point
+#: distances; those farther keep the distance between pixel centres.
+EXACT_WITHIN = 2.5
 #: Lattice nodes per pixel for a structure with a thin part (:func:`engine.thickness.thin_length`).
 THIN_DETAIL = 2
 #: Default step budget (flood passes, coarse and fine steps together).
@@ -247,6 +250,46 @@ class Segmenter:
         depth = ndimage.distance_transform_edt(inside, sampling=self._spacing)
         return np.where(inside, -(depth - 1.0 + beyond), outside - beyond)
 
+    def _grown_start(self) -> Callable | None:
+        """φ (mm) at points (mm) for the fine front from the flood: a signed distance, or None.
+
+        The distance to the flooded pixels (as :meth:`_grown_phi`, on the
+        flood's bounding box widened by the band) read by cubic B-spline:
+        |∇φ| ≈ 1 away from its zero set, so the band takes it as it is
+        beyond EXACT_WITHIN pixels and only the nodes nearer get Newton
+        closest points (all of them was most of the hand-over, 0.56 of
+        0.8 s for 31 000 nodes on a 512² star). Smoothing it instead lost a
+        strip two pixels wide; without any Newton a 3 px disk rested at
+        1.06 of its area instead of 1.04.
+        """
+        if self._growth is None or self._growth.unbounded or self._growth.inside.all():
+            return None
+        inside = self._growth.inside
+        band = FrontParams(model=self._model, **self._params).band_width * float(np.max(self._spacing))
+        pad = np.ceil((band + 4.0 * float(np.max(self._spacing))) / self._spacing).astype(int) + 3
+        nz = [np.flatnonzero(np.any(inside, axis=tuple(j for j in range(inside.ndim) if j != i)))
+              for i in range(inside.ndim)]
+        lo = np.array([max(int(a[0]) - p, 0) for a, p in zip(nz, pad)])
+        hi = np.array([min(int(a[-1]) + p + 1, n) for a, p, n in zip(nz, pad, inside.shape)])
+        box = tuple(slice(a, b) for a, b in zip(lo, hi))
+        part = inside[box]
+        beyond = START_BEYOND * float(np.min(self._spacing))
+        outside = ndimage.distance_transform_edt(~part, sampling=self._spacing)
+        depth = ndimage.distance_transform_edt(part, sampling=self._spacing)
+        phi = np.where(part, -(depth - 1.0 + beyond), outside - beyond)
+        coeffs = ndimage.spline_filter(phi, order=3, mode="nearest")
+        sp = self._spacing
+        far = 2.0 * band
+
+        def values(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
+            px = np.asarray(points_mm, dtype=float) / sp - lo
+            out = ndimage.map_coordinates(coeffs, px.T, order=3, mode="nearest", prefilter=False)
+            off = np.any((px < 0) | (px > hi - lo - 1), axis=1)
+            out[off] = far  # beyond the flood's box: far outside
+            return out
+
+        return values
+
     def _start_coarse(self) -> None:
         f = self._factor
         small = block_mean(self._image, f)
@@ -282,10 +325,12 @@ class Segmenter:
                                         model=self._model, detail=self._detail, signed_distance=True,
                                         window_from=seed_disks(self._image.shape, self._seeds), **params)
         else:
-            phi = self._grown_phi() if self._coarse is None else None
-            if phi is not None:
-                front = Front.from_pixel_phi(self._image, phi, spacing=self._spacing, model=self._model,
-                                             detail=self._detail, **layout, **params)
+            grown = self._grown_start() if self._coarse is None else None
+            if grown is not None:
+                front = Front.from_function(grown, self._image.shape, image=self._image, spacing=self._spacing,
+                                            model=self._model, detail=self._detail, signed_distance=True,
+                                            exact_within=EXACT_WITHIN * float(np.max(self._spacing)),
+                                            **layout, **params)
             else:
                 front = Front.from_seeds(self._image, self._seeds, spacing=self._spacing, model=self._model,
                                          detail=self._detail, **layout, **params)
