@@ -12,23 +12,28 @@ calls inside:
 
 - where the pixels just outside the present region (beyond a rim, within a
   ring: the region model's local outside statistics) differ distinctly from
-  the inside, a pixel joins when the region speed of Chan & Vese there,
-  S = (2I − c_in − c_out) / (c_in − c_out), is at least ``CLEAR_INSIDE``: it
-  lies at least three quarters of the way from the outside to the inside
-  intensity (a pixel more than three quarters covered by the structure);
+  the inside, darker or brighter, a pixel joins when the region speed of
+  Chan & Vese against each such side, S = (2I − c_in − c_out) / (c_in −
+  c_out), is at least ``CLEAR_INSIDE``: it lies at least three quarters of
+  the way from that outside to the inside intensity (a pixel more than
+  three quarters covered by the structure);
 - elsewhere (the region is still surrounded by its own tissue) a pixel
   joins when it is within ``HOMOGENEITY`` noise deviations of the local
   inside mean (seeded region growing, Adams & Bischof 1994).
 
 Means are local (Gaussian-weighted, the radius of the region model's local
-statistics), so a smooth bias field does not stop the flood. Pixels connect
-through faces only (a one-pixel diagonal gap is not a path). Noise is
-estimated near the seeds from the finest diagonal wavelet coefficients
-(Donoho & Johnstone 1994); the image is smoothed just enough that a quarter
-of the contrast found around the first region is ``MARGIN`` noise
-deviations (no smoothing at high SNR, so strips two pixels wide stay
-connected). The intensity-window model floods the pixels whose smoothed
-intensity lies in the inner half of its window.
+statistics); a smooth bias field slows the flood (the local mean lags
+behind it) and the level set finishes. Pixels connect through faces only (a
+one-pixel diagonal gap is not a path), and a pixel on an edge much steeper
+than the region's own contrast is a mixture of two other tissues and waits
+for the level set. Noise is the larger of the estimate from the finest
+diagonal wavelet coefficients near the seeds (Donoho & Johnstone 1994) and
+the spread of the seed's pixels and of what the region holds (noise
+correlated between pixels hides from the finest coefficients); the image is
+smoothed just enough that a quarter of the contrast found around the first
+region is ``MARGIN`` noise deviations (no smoothing at high SNR, so strips
+two pixels wide stay connected). The intensity-window model floods the
+pixels whose smoothed intensity lies in the inner half of its window.
 
 The flood only ever adds pixels the model would add, and stops short of any
 boundary it is unsure of, so it never has to be undone: the level set only
@@ -79,7 +84,8 @@ MIN_WEIGHT = 0.05
 #: Noise deviations of the spread of a pixel's 3 × 3 neighbourhood above which (beyond twice the
 #: weakest local contrast) the pixel counts as a mixture on a steep edge.
 MIXTURE = 3.0
-#: Passes at most.
+#: Passes at most that stay inside their box (passes that reach the side of their box widen it and
+#: do not count: a channel 2 800 px long takes a few dozen).
 MAX_PASSES = 12
 #: A pass that adds fewer pixels than this fraction of the region ends the flood.
 SETTLED = 0.002
@@ -166,6 +172,8 @@ class RegionGrowth:
     smoothing: float = field(init=False, default=FIRST_SMOOTHING)
     contrast: float = field(init=False, default=0.0)
     _first: bool = field(init=False, default=True, repr=False)  # still flooding with the first smoothing
+    _widen: bool = field(init=False, default=False, repr=False)  # the last pass reached the side of its box
+    _settling: int = field(init=False, default=0, repr=False)  # passes that stayed inside their box
     _smoothed: dict = field(init=False, default_factory=dict, repr=False)
 
     def __post_init__(self) -> None:
@@ -216,7 +224,7 @@ class RegionGrowth:
         added = int(grown.sum()) - before
         self.inside = grown
         if reached_box:
-            pass
+            self._widen = True  # the next box reaches twice as far around the region
         elif self._first:
             # the first smoothing has found the structure's surroundings: choose the smoothing
             self._first = False
@@ -225,7 +233,10 @@ class RegionGrowth:
                 self.finished = True
         elif added <= SETTLED * before:
             self.finished = True
-        if self.passes >= MAX_PASSES:
+        if not reached_box:
+            self._settling += 1
+            self._widen = False
+        if self._settling >= MAX_PASSES:
             self.finished = True
         if self.inside.sum() > UNBOUNDED * self.inside.size:
             # no boundary anywhere: the flood found nothing to stop at; give the seeds back
@@ -267,6 +278,8 @@ class RegionGrowth:
         nz = [np.flatnonzero(np.any(self.inside, axis=tuple(j for j in range(self.image.ndim) if j != i)))
               for i in range(self.image.ndim)]
         pad = np.maximum(np.ceil(BOX_RADII * self.local_radius_mm / self.spacing), BOX_PAD).astype(int)
+        if self._widen:  # the last pass reached its box: as far again as the region reaches
+            pad = np.maximum(pad, np.array([int(a[-1]) - int(a[0]) + 1 for a in nz]))
         return tuple(slice(max(int(a[0]) - p, 0), min(int(a[-1]) + p + 1, n))
                      for a, p, n in zip(nz, pad, self.image.shape))
 
@@ -381,17 +394,26 @@ def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px
 
         small_w = ndimage.gaussian_filter(block_mean(m, block), radius / block, mode="constant")
         small_s = ndimage.gaussian_filter(block_mean(values * m, block), radius / block, mode="constant")
-        grid = np.meshgrid(*[(np.arange(n) - 0.5 * (block - 1)) / block for n in values.shape], indexing="ij",
-                           sparse=True)
-        coords = [np.broadcast_to(g, values.shape) for g in grid]
-        w = ndimage.map_coordinates(small_w, coords, order=1, mode="nearest")
-        s = ndimage.map_coordinates(small_s, coords, order=1, mode="nearest")
+        w = _upsample_linear(small_w, block, values.shape)
+        s = _upsample_linear(small_s, block, values.shape)
     else:
         w = ndimage.gaussian_filter(m, radius, mode="constant")
         s = ndimage.gaussian_filter(values * m, radius, mode="constant")
     fallback = float(values[mask].mean()) if mask.any() else float(values.mean())
     mean = np.where(w > 1e-6, s / np.maximum(w, 1e-12), fallback)
     return (mean, w) if weights else mean
+
+
+def _upsample_linear(small: NDArray[np.floating], block: int, shape: tuple[int, ...]) -> NDArray[np.floating]:
+    """Values of a block grid (block i centred on pixel block·i + (block − 1)/2) at every pixel, linearly, axis by axis."""
+    out = small
+    for axis, n in enumerate(shape):
+        position = np.clip((np.arange(n) - 0.5 * (block - 1)) / block, 0.0, out.shape[axis] - 1.0)
+        low = np.floor(position).astype(np.int64)
+        high = np.minimum(low + 1, out.shape[axis] - 1)
+        weight = (position - low).reshape([-1 if j == axis else 1 for j in range(out.ndim)])
+        out = np.take(out, low, axis=axis) * (1.0 - weight) + np.take(out, high, axis=axis) * weight
+    return out
 
 
 def _fill_small_holes(inside: NDArray[np.bool_], limit: int) -> NDArray[np.bool_]:

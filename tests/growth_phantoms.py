@@ -89,7 +89,7 @@ def star(side: int = 256, *, noise: float = 0.05, seed: int = 0, seed_radius: fl
     c = (side - 1) / 2.0 + 0.31
     inside = polar_shape((c, c), star_radius(0.275 * side, 0.42, 5, 0.3))
     image = render((side, side), (inside, 1.0)) + np.random.default_rng(seed).normal(0, noise, (side, side))
-    return Case(f"star {side}", image, truth_of((side, side), inside), (c, c, seed_radius))
+    return Case(f"star {side}", image, truth_of((side, side), inside), (c, c, seed_radius), info={"inside": inside})
 
 
 def annulus(side: int = 256, *, noise: float = 0.05, seed: int = 0, seed_radius: float = 4.0) -> Case:
@@ -102,7 +102,8 @@ def annulus(side: int = 256, *, noise: float = 0.05, seed: int = 0, seed_radius:
         return (rad > r1) & (rad < r2)
 
     image = render((side, side), (inside, 1.0)) + np.random.default_rng(seed).normal(0, noise, (side, side))
-    return Case(f"annulus {side}", image, truth_of((side, side), inside), (c, c + 0.5 * (r1 + r2), seed_radius))
+    return Case(f"annulus {side}", image, truth_of((side, side), inside), (c, c + 0.5 * (r1 + r2), seed_radius),
+                info={"inside": inside})
 
 
 def channel_path(side: int) -> np.ndarray:
@@ -127,7 +128,7 @@ def channel(side: int = 256, *, width: float | None = None, noise: float = 0.05,
     length = float(np.sum(np.hypot(*np.diff(path, axis=0).T)))
     start = path[int(0.02 * len(path))]
     return Case(f"channel {side}", image, truth_of((side, side), inside), (start[0], start[1], seed_radius),
-                info={"length_px": length, "width_px": w, "end": tuple(path[-1])})
+                info={"length_px": length, "width_px": w, "end": tuple(path[-1]), "inside": inside})
 
 
 def ellipse(side: int = 256, *, noise: float = 0.125, seed: int = 0, seed_radius: float = 4.0,
@@ -140,7 +141,8 @@ def ellipse(side: int = 256, *, noise: float = 0.125, seed: int = 0, seed_radius
         return ((rows - c) / a) ** 2 + ((cols - c) / b) ** 2 < 1.0
 
     image = render((side, side), (inside, 1.0)) + np.random.default_rng(seed).normal(0, noise, (side, side))
-    return Case(f"ellipse {side}", image, truth_of((side, side), inside), (c + 0.2 * a, c, seed_radius), spacing)
+    return Case(f"ellipse {side}", image, truth_of((side, side), inside), (c + 0.2 * a, c, seed_radius), spacing,
+                info={"inside": inside})
 
 
 def convoluted(side: int = 256, *, noise: float = 0.05, seed: int = 0, seed_radius: float = 4.0) -> Case:
@@ -160,7 +162,7 @@ def convoluted(side: int = 256, *, noise: float = 0.05, seed: int = 0, seed_radi
     image = render((side, side), (inside, 1.0)) + np.random.default_rng(seed).normal(0, noise, (side, side))
     truth = truth_of((side, side), inside)
     r, col = deepest_point(truth)
-    return Case(f"convoluted {side}", image, truth, (r, col, seed_radius))
+    return Case(f"convoluted {side}", image, truth, (r, col, seed_radius), info={"inside": inside})
 
 
 def strip(width: float, *, side: int = 256, length: float = 200.0, angle: float = 0.0, noise: float = 0.05,
@@ -183,7 +185,7 @@ def strip(width: float, *, side: int = 256, length: float = 200.0, angle: float 
     image = render((side, side), (inside, 1.0)) + np.random.default_rng(seed).normal(0, noise, (side, side))
     far_end = (cy + length * d[0], cx + length * d[1])
     return Case(f"strip {width:g} px at {angle:g}°", image, truth_of((side, side), inside), (cy, cx, 4.0),
-                info={"far_end": far_end, "direction": tuple(d)})
+                info={"far_end": far_end, "direction": tuple(d), "inside": inside})
 
 
 # ---------------------------------------------------------------- hazard families
@@ -332,3 +334,36 @@ def family(name: str, count: int = 10, seed: int = 2024) -> list[Case]:
     """``count`` cases of one hazard family, each from its own seeded generator."""
     make = FAMILIES[name]
     return [make(np.random.default_rng([seed, i])) for i in range(count)]
+
+
+# ---------------------------------------------------------------- a real slice
+#: pydicom's test file: an axial CT of a head at the skull base, 512², 0.431 mm pixels
+#: (pydicom.data.get_testdata_file, JPEG 2000 compressed).
+CT_HEAD_FILE = "J2K_pixelrep_mismatch.dcm"
+#: A click in the posterior fossa of that slice (row, col, radius px at 512²).
+CT_HEAD_SEED = (330.0, 256.0, 4.0)
+
+
+def ct_head(side: int = 512) -> Case:
+    """The CT slice in Hounsfield units, at ``side``² (block mean for 256, cubic spline zoom for 1024).
+
+    No truth: the brain's outline against the skull base, the petrous bones
+    and the mastoid air is long and convoluted, and nobody has drawn it.
+    """
+    import pydicom
+    from pydicom.data import get_testdata_file
+
+    ds = pydicom.dcmread(get_testdata_file(CT_HEAD_FILE))
+    hu = ds.pixel_array.astype(float) * float(ds.RescaleSlope) + float(ds.RescaleIntercept)
+    spacing = float(ds.PixelSpacing[0])
+    factor = side / hu.shape[0]
+    if factor < 1:
+        step = int(round(1 / factor))
+        hu = hu[: hu.shape[0] // step * step, : hu.shape[1] // step * step]
+        hu = hu.reshape(hu.shape[0] // step, step, hu.shape[1] // step, step).mean(axis=(1, 3))
+    elif factor > 1:
+        hu = ndimage.zoom(hu, factor, order=3)
+    r, c, radius = CT_HEAD_SEED
+    seed = ((r + 0.5) * factor - 0.5, (c + 0.5) * factor - 0.5, radius)
+    return Case(f"CT head {side}", hu, np.zeros(hu.shape, dtype=bool), seed,
+                (spacing / factor, spacing / factor), info={"source": f"pydicom test data {CT_HEAD_FILE}"})
