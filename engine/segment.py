@@ -3,12 +3,28 @@
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
 
-from numpy.typing import ArrayLike
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
 
-from engine.segmenter import STAGES, Segmentation, Segmenter
+from engine.segmenter import STAGES, Segmenter
 
 __all__ = ["STAGES", "Segmentation", "Segmenter", "segment"]
+
+
+@dataclass(frozen=True)
+class Segmentation:
+    """Result of :func:`segment` (and of :meth:`engine.segmenter.Segmenter.result`)."""
+
+    mask: NDArray[np.bool_]
+    contours: list[NDArray[np.floating]]  # 2-D: (k, 2) pixel (row, col); 3-D: empty
+    steps: int
+    converged: bool
+    params: dict
+    timings: dict = field(default_factory=dict)
+    time: float = 0.0  # evolution time reached
+    area_mm2: float = 0.0  # 2-D area (3-D: volume in mm³)
 
 
 def segment(

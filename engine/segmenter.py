@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -41,6 +41,9 @@ from engine.image_features import compute_features
 from engine.speeds import FrontParams
 from engine.thickness import THIN_LENGTH, thin_length
 
+if TYPE_CHECKING:
+    from engine.segment import Segmentation
+
 #: Stages in order.
 STAGES = ("growing", "coarse", "fine", "done")
 #: Block sizes a coarse stage may use.
@@ -54,20 +57,6 @@ EXACT_WITHIN = 2.5
 THIN_DETAIL = 2
 #: Default step budget (flood passes, coarse and fine steps together).
 DEFAULT_MAX_STEPS = 20000
-
-
-@dataclass(frozen=True)
-class Segmentation:
-    """Result of :func:`engine.segment.segment` (and :meth:`Segmenter.result`)."""
-
-    mask: NDArray[np.bool_]
-    contours: list[NDArray[np.floating]]  # 2-D: (k, 2) pixel (row, col); 3-D: empty
-    steps: int
-    converged: bool
-    params: dict
-    timings: dict = field(default_factory=dict)
-    time: float = 0.0  # evolution time reached
-    area_mm2: float = 0.0  # 2-D area (3-D: volume in mm³)
 
 
 class Segmenter:
@@ -165,14 +154,24 @@ class Segmenter:
         """Advance the current stage by ``n`` steps (flood passes or front steps); a hand-over counts as one."""
         if n < 0:
             raise ValueError(f"n must be >= 0, got {n}")
+        self._resume()
         for _ in range(int(n)):
             if self.finished:
                 return
             self._advance()
 
+    def _resume(self) -> None:
+        """Back to the fine stage when the finished front was changed (an edit, pins) and has steps left."""
+        front = self._fine
+        if (self.stage == "done" and front is not None and not front.converged and not front.vanished
+                and self.steps < self._budget):
+            self.stage = "fine"
+            self._kept_parts = False
+
     def run(self, *, cancel: Callable[[], bool] | None = None,
             progress: Callable[[int, float], None] | None = None) -> None:
         """Step until finished, or until ``cancel()`` returns True; ``progress(steps, time)`` after every step."""
+        self._resume()
         while not self.finished:
             if cancel is not None and cancel():
                 return
@@ -419,8 +418,10 @@ class Segmenter:
         return float(sum(polyline_length(c * self._spacing) for c in self.contours()))
 
     # ------------------------------------------------------------------ result
-    def result(self) -> Segmentation:
+    def result(self) -> "Segmentation":
         """What :func:`engine.segment.segment` returns (the full-resolution front is made if not there yet)."""
+        from engine.segment import Segmentation
+
         front = self.front()
         t0 = time.perf_counter()
         contours = front.contours() if front.ndim == 2 else []

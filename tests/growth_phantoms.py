@@ -1,4 +1,4 @@
-"""Invented slices for growth from a click: shapes, seeded random hazard families, and a real CT slice.
+"""Invented slices for growth from a click: shapes, seeded random hazard families, and a real MR slice.
 
 Every image is rendered with partial volume (each pixel holds the fraction
 of it inside the shape, from sub-samples; ``tests/partial_volume.py``); the
@@ -337,33 +337,31 @@ def family(name: str, count: int = 10, seed: int = 2024) -> list[Case]:
 
 
 # ---------------------------------------------------------------- a real slice
-#: pydicom's test file: an axial CT of a head at the skull base, 512², 0.431 mm pixels
-#: (pydicom.data.get_testdata_file, JPEG 2000 compressed).
-CT_HEAD_FILE = "J2K_pixelrep_mismatch.dcm"
-#: A click in the posterior fossa of that slice (row, col, radius px at 512²).
-CT_HEAD_SEED = (330.0, 256.0, 4.0)
+#: pydicom's test file: an axial MR of an abdomen (300 × 484, 0.723 mm pixels), read with
+#: pydicom.data.get_testdata_file; the liver lies in its left half.
+MR_ABDOMEN_FILE = "examples_overlay.dcm"
+#: The 256² crop around the liver (first row and column) and a click in the liver (row, col, radius px).
+MR_LIVER_CROP = (20, 20)
+MR_LIVER_SEED = (130.0, 70.0, 4.0)
 
 
-def ct_head(side: int = 512) -> Case:
-    """The CT slice in Hounsfield units, at ``side``² (block mean for 256, cubic spline zoom for 1024).
+def mr_liver(side: int = 256) -> Case:
+    """The liver of that MR slice: a 256² crop, at ``side``² (cubic spline zoom beyond 256).
 
-    No truth: the brain's outline against the skull base, the petrous bones
-    and the mastoid air is long and convoluted, and nobody has drawn it.
+    No truth: nobody has drawn this liver's outline (its lower edge meets a
+    large lesion and the right kidney).
     """
     import pydicom
     from pydicom.data import get_testdata_file
 
-    ds = pydicom.dcmread(get_testdata_file(CT_HEAD_FILE))
-    hu = ds.pixel_array.astype(float) * float(ds.RescaleSlope) + float(ds.RescaleIntercept)
+    ds = pydicom.dcmread(get_testdata_file(MR_ABDOMEN_FILE))
+    r0, c0 = MR_LIVER_CROP
+    image = ds.pixel_array.astype(float)[r0:r0 + 256, c0:c0 + 256]
     spacing = float(ds.PixelSpacing[0])
-    factor = side / hu.shape[0]
-    if factor < 1:
-        step = int(round(1 / factor))
-        hu = hu[: hu.shape[0] // step * step, : hu.shape[1] // step * step]
-        hu = hu.reshape(hu.shape[0] // step, step, hu.shape[1] // step, step).mean(axis=(1, 3))
-    elif factor > 1:
-        hu = ndimage.zoom(hu, factor, order=3)
-    r, c, radius = CT_HEAD_SEED
+    factor = side / 256.0
+    if factor != 1:
+        image = ndimage.zoom(image, factor, order=3)
+    r, c, radius = MR_LIVER_SEED
     seed = ((r + 0.5) * factor - 0.5, (c + 0.5) * factor - 0.5, radius)
-    return Case(f"CT head {side}", hu, np.zeros(hu.shape, dtype=bool), seed,
-                (spacing / factor, spacing / factor), info={"source": f"pydicom test data {CT_HEAD_FILE}"})
+    return Case(f"MR liver {side}", image, np.zeros(image.shape, dtype=bool), seed,
+                (spacing / factor, spacing / factor), info={"source": f"pydicom test data {MR_ABDOMEN_FILE}"})

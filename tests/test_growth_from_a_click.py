@@ -165,3 +165,20 @@ def test_segmenter_hands_over_cancels_and_takes_new_settings() -> None:
     assert runner.finished and runner.result().params["smoothness"] == 0.5
     with pytest.raises(ValueError, match="smoothness"):
         runner.set_params(smoothness=-1.0)
+
+
+def test_segmenter_settles_again_after_an_edit_of_its_front() -> None:
+    # A finished segmenter whose front is edited (here: a stroke outside the
+    # structure) is no longer at rest: run() takes it up again until its
+    # outline stops, and the stroke's area, outside the structure, is pulled back.
+    case = gp.family("dark_on_bright", 4)[3]
+    runner = Segmenter(case.image, [case.seed])
+    runner.run()
+    before = runner.mask()
+    rows, cols = np.nonzero(case.truth)
+    stroke = np.array([[rows.min() - 6.0, cols.min() - 6.0], [rows.min() - 6.0, cols.min() + 6.0]])
+    runner.front().extend((stroke, 3.0))
+    assert not runner.front().converged
+    runner.run()
+    assert runner.finished and runner.converged
+    assert dice(runner.mask(), before) >= 0.99
