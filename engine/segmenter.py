@@ -8,7 +8,7 @@
 ``"coarse"``
     a front on the image averaged over f × f blocks, only when a block size
     is asked for (``coarse``); lowered to what the structure found by the
-    flood resolves (:func:`resolvable_factor`);
+    flood resolves (:func:`engine.coarse_start.resolvable_factor`);
 ``"fine"``
     the front at full resolution, started from the flood's (or the coarse
     front's) outline, until its outline stops moving (:mod:`engine.convergence`);
@@ -77,6 +77,8 @@ class Segmenter:
         self._seeds = validate_seeds(seeds, img.shape)
         if nodes not in ("lattice", "scattered"):
             raise ValueError(f"nodes must be 'lattice' or 'scattered', got {nodes!r}")
+        if detail not in (1, 2, 4):
+            raise ValueError(f"detail must be 1, 2 or 4, got {detail!r}")
         if nodes == "scattered" and coarse not in (None, 1):
             raise ValueError(f"coarse start is for lattice nodes; use coarse=1 with nodes='scattered', got {coarse!r}")
         if coarse is not None and not (isinstance(coarse, (int, np.integer)) and int(coarse) in BLOCK_SIZES):
