@@ -61,7 +61,6 @@ References
 from __future__ import annotations
 
 import time as _time
-from collections import deque
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -75,6 +74,7 @@ from scipy.spatial import cKDTree
 
 from engine.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
 from engine.closest_point import closest_points
+from engine.convergence import OutlineMotion
 from engine.front_geometry import (
     crossing_points,
     dilate_nodes,
@@ -91,6 +91,7 @@ from engine.node_set import ScatteredNodeSet, operator_labels
 from engine.outline_averaging import average_along_outline
 from engine.rbffd import assemble
 from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
+from engine.thickness import half_width
 from engine.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
 
 try:  # the band's small dense products run far slower with threaded BLAS
@@ -147,6 +148,10 @@ RING_PIXELS = 3.0
 #: taken in some partial-volume pixels; taken as the outside it would make
 #: the whole uniform structure look like outside and turn the front back.
 LOCAL_CONTRAST = 0.1
+#: Share of the local ring (Gaussian weights) that the pixels beyond the noise on one side of the
+#: inside mean must make up to count as a neighbouring tissue: a ring still in the structure has
+#: 0.1 % of its pixels three noise deviations out on either side, and a smooth bias field a few per cent.
+SIDE_SHARE = 0.25
 #: Difference between the centred and the upwind |∇φ| beyond which a node is
 #: taken to sit on a kink of φ, where curvature motion uses the upwind value.
 KINK_GRADIENT = 0.1
@@ -189,7 +194,7 @@ class FrontSnapshot:
     time: float
     steps: int
     converged: bool
-    motion: tuple[float, ...]
+    motion: tuple  # checkpoints of the convergence monitor (engine.convergence)
     params: FrontParams
     pins: NDArray[np.bool_] | None
     barrier: NDArray[np.bool_] | None
@@ -197,6 +202,8 @@ class FrontSnapshot:
     since_reinit: int = 0
     rebuild_drift: float = 1.0
     layer: tuple[NDArray, ...] = ()  # layer, source, edge_source and layer_phi of the last refresh
+    thickness: NDArray[np.floating] | None = None  # half-width behind each layer node at the last refresh
+    rest_reinitialised: bool = False  # reinitialised once already at the present rest
 
     @property
     def nbytes(self) -> int:
@@ -238,6 +245,7 @@ class _Band:
     layer_operators: tuple[NDArray[np.int64], NDArray[np.floating] | None] | None = None  # see _layer_derivatives
     layer_parts: tuple[NDArray[np.int64], int] | None = None  # see _layer_parts
     layer_pairs: NDArray[np.int64] | None = None  # see _layer_pairs
+    thickness: NDArray[np.floating] | None = None  # half-width (mm) of the inside behind each layer node
 
 
 @dataclass
@@ -263,7 +271,7 @@ class Front:
     _band: _Band = field(default=None, repr=False)  # type: ignore[assignment]
     _inside: NDArray[np.bool_] = field(default=None, repr=False)  # type: ignore[assignment]
     _sums: list = field(default_factory=lambda: [0.0, 0.0, 0.0, 0.0], repr=False)
-    _motion: deque = field(default_factory=deque, repr=False)
+    _outline: OutlineMotion | None = field(default=None, repr=False)
     _pins: NDArray[np.bool_] | None = field(default=None, repr=False)
     _barrier: NDArray[np.bool_] | None = field(default=None, repr=False)
     _coeffs: NDArray[np.floating] | None = field(default=None, repr=False)
@@ -339,6 +347,7 @@ class Front:
     def from_function(cls, phi: Callable[[NDArray[np.floating]], ArrayLike], shape: Sequence[int], *,
                       spacing: ArrayLike | None = None, model: str = "curvature", detail: int = 1,
                       image: ArrayLike | None = None, signed_distance: bool = False,
+                      exact_within: float | None = None,
                       window_from: ArrayLike | None = None, nodes: str = "lattice", finest: float | None = None,
                       coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
                       **params: object) -> "Front":
@@ -349,6 +358,11 @@ class Front:
         otherwise the band is reinitialised by Newton closest points. With the
         ``window`` model and no ``window`` given, the window is estimated from
         the pixels of the boolean ``window_from`` (default: the initial inside).
+        With ``exact_within`` (mm; with ``signed_distance``) only the nodes
+        whose value lies farther than that from zero are taken as they are;
+        those nearer are reinitialised by Newton closest points (an
+        approximate distance, such as one between pixel centres, then gives
+        an exact zero set at a fraction of the cost).
 
         Every constructor takes ``nodes``: ``"lattice"`` (default; ``detail``
         lattice nodes per pixel) or ``"scattered"`` (2-D or 3-D, detail 1; in 3-D the front must not
@@ -375,7 +389,10 @@ class Front:
                 raise ValueError("phi must return one finite value per point")
             return values
 
-        front._initialise(oracle, signed_distance=signed_distance, window_from=window_from if estimate else None,
+        if exact_within is not None and not (np.isfinite(exact_within) and exact_within >= 0):
+            raise ValueError(f"exact_within must be >= 0 mm, got {exact_within!r}")
+        front._initialise(oracle, signed_distance=signed_distance, exact_within=exact_within,
+                          window_from=window_from if estimate else None,
                           estimate_window=estimate)
         return front
 
@@ -531,8 +548,8 @@ class Front:
         return self.stencil.spectral_radius if self.node_set is None else self._band.spectral
 
     def _initialise(self, oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], *,
-                    signed_distance: bool = False, window_from: ArrayLike | None = None,
-                    estimate_window: bool = False) -> None:
+                    signed_distance: bool = False, exact_within: float | None = None,
+                    window_from: ArrayLike | None = None, estimate_window: bool = False) -> None:
         """Band around the zero set of ``oracle`` (values at points in mm); optionally estimate the window."""
         sp = self.features.spacing
         pixel_values = _pixel_values(oracle, self.shape, sp)
@@ -555,7 +572,9 @@ class Front:
 
         if signed_distance:
             nodes = self._candidate_nodes(starts, self.band_half_width)
-            self._build_band(starts, values_at, nodes=nodes, trusted=np.ones(len(nodes), dtype=bool))
+            trusted = (np.ones(len(nodes), dtype=bool) if exact_within is None
+                       else np.abs(values_at(nodes)) > exact_within)
+            self._build_band(starts, values_at, nodes=nodes, trusted=trusted)
         else:
             self._build_band(starts, values_at)
 
@@ -715,8 +734,7 @@ class Front:
         self._coeffs = None
         self._band.layer_phi = phi[active[layer]]
         self._sync_inside()
-        if self.params.model == "region":
-            self._update_local_statistics()
+        self._update_layer_statistics()
 
     def _install_scattered_band(self, ids: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
         """The band on scattered node ``ids`` (global ids of the front's node set).
@@ -789,8 +807,7 @@ class Front:
         self._coeffs = None
         self._band.layer_phi = phi[active[layer]]
         self._sync_inside()
-        if self.params.model == "region":
-            self._update_local_statistics()
+        self._update_layer_statistics()
 
     def _scattered_interpolant(self, ids: NDArray[np.int64], values: NDArray[np.floating],
                                owners_mask: NDArray[np.bool_] | None = None
@@ -851,8 +868,27 @@ class Front:
         c_out = s_out / n_out if n_out > 0 else 0.0
         return c_in, c_out
 
+    def _update_layer_statistics(self) -> None:
+        """What the layer's speeds read between refreshes: local region statistics, the structure's half-width."""
+        if self.params.model == "region":
+            self._update_local_statistics()
+        if self.params.model in ("region", "window"):
+            self._update_thickness()
+
+    def _update_thickness(self) -> None:
+        """Half-width of the inside behind each layer node (:mod:`engine.thickness`), for the smoothness scale."""
+        b = self._band
+        act = b.active[b.layer]
+        grad = self._layer_derivatives(self._phi, hessian=False)[0]
+        g2 = np.sum(grad * grad, axis=0)
+        trusted = g2 >= 0.25
+        normal = (grad / np.sqrt(np.maximum(g2, 1e-12))).T
+        closest = b.positions[act] - np.where(trusted, self._phi[act] / np.sqrt(np.maximum(g2, 1e-12)), 0.0)[:, None] * normal
+        b.thickness = half_width(self._inside, self.features.spacing, closest, normal,
+                                 SMALL_STRUCTURE * (self.ndim - 1))
+
     def _update_local_statistics(self) -> None:
-        """Region statistics at the front's layer nodes: global inside mean, local outside mean.
+        """Region statistics at the front's layer nodes: global inside mean, local outside means.
 
         The inside mean is the global mean inside the front (the structure
         being outlined). The outside mean is the Gaussian-weighted mean of the
@@ -863,12 +899,15 @@ class Front:
         blurred rim of the edge (RIM_PIXELS plus two smoothing scales, so
         partial volume does not pull the mean toward the inside) and within
         RING_PIXELS more (so the tissue that actually borders the front
-        outweighs tissues further away). Where the local outside is still the same tissue
-        (within three noise standard deviations of the inside mean, as while
-        the front grows from a seed; on the far side of the inside mean from
-        the global outside mean, within LOCAL_CONTRAST of the global
-        contrast) or there is too little of it, the global outside mean is
-        used (Chan & Vese 2001). Refreshed at every band rebuild and with the
+        outweighs tissues further away). The ring's pixels darker and brighter
+        than the inside mean (beyond three noise standard deviations; on the
+        far side of the inside mean from the global outside mean, beyond
+        LOCAL_CONTRAST of the global contrast) give one mean each, where they
+        make up enough of the ring: the speed is the smaller of the two
+        sides' (``local_out`` holds both, the second NaN where that side is
+        absent). Where neither side is there (the ring is still the same
+        tissue, as while the front grows from a seed) the global outside
+        mean is used (Chan & Vese 2001). Refreshed at every band rebuild and with the
         layer (``LAYER_DRIFT``, ``LAYER_IDLE_STEPS``). Computed on the
         bounding box of the front plus three radii at every band rebuild;
         between rebuilds the front moves less than the statistics' radius.
@@ -887,18 +926,37 @@ class Front:
         coarse = float(np.max(self.features.spacing))
         rim = RIM_PIXELS * coarse + 2.0 * self.features.sigma_mm  # mm
         depth = ndimage.distance_transform_edt(~self._inside[box], sampling=self.features.spacing)
-        outside = ((depth > rim) & (depth <= rim + RING_PIXELS * coarse)).astype(float)
-        w_out = ndimage.gaussian_filter(outside, radius_px, mode="nearest")
-        s_out = ndimage.gaussian_filter(img * outside, radius_px, mode="nearest")
+        ring = (depth > rim) & (depth <= rim + RING_PIXELS * coarse)
         local = (px - lo).T
-        weight = ndimage.map_coordinates(w_out, local, order=1, mode="nearest")
-        mean = ndimage.map_coordinates(s_out, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
-        gap = mean - c_in
-        far_side = np.sign(gap) != np.sign(c_out - c_in)
-        need = np.where(far_side, max(3.0 * noise, LOCAL_CONTRAST * abs(c_in - c_out)), 3.0 * noise)
-        distinct = (weight > 0.05) & (np.abs(gap) > need)
         b.local_in = np.full(len(px), c_in)
-        b.local_out = np.where(distinct, mean, c_out)
+        # ring pixels are told apart from the inside by the inside mean near them (the inside
+        # without its rim, Gaussian weights; the global mean where there is too little of it):
+        # a smooth bias field across a large structure is not taken for a neighbouring tissue
+        core = (ndimage.distance_transform_edt(self._inside[box], sampling=self.features.spacing) > rim).astype(float)
+        w_core = ndimage.gaussian_filter(core, radius_px, mode="nearest")
+        near_in = np.where(w_core > 0.05, ndimage.gaussian_filter(img * core, radius_px, mode="nearest")
+                           / np.maximum(w_core, 1e-12), c_in)
+        # the outside on each side of the inside mean (darker, brighter), beyond noise:
+        # a structure between a darker and a brighter tissue (an organ on bone in CT) is
+        # held by both, where their mixed mean could lie on the inside's own side
+        w_ring = ndimage.map_coordinates(ndimage.gaussian_filter(ring.astype(float), radius_px, mode="nearest"),
+                                         local, order=1, mode="nearest")
+        sides = []
+        for side in (-1.0, 1.0):
+            far = np.sign(c_out - c_in) != side
+            need = max(3.0 * noise, LOCAL_CONTRAST * abs(c_in - c_out)) if far else 3.0 * noise
+            beyond = (ring & (side * (img - near_in) > need)).astype(float)
+            w_side = ndimage.gaussian_filter(beyond, radius_px, mode="nearest")
+            s_side = ndimage.gaussian_filter(img * beyond, radius_px, mode="nearest")
+            weight = ndimage.map_coordinates(w_side, local, order=1, mode="nearest")
+            mean = ndimage.map_coordinates(s_side, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
+            # a side is a tissue where it makes up a good share of the ring, not where a few
+            # pixels of the inside's own noise tail (or of a smooth bias) are beyond `need`
+            distinct = (weight > 0.05) & (weight >= SIDE_SHARE * w_ring)
+            sides.append(np.where(distinct, mean, np.nan))
+        first = np.where(np.isnan(sides[0]), sides[1], sides[0])
+        other = np.where(np.isnan(sides[0]), np.nan, sides[1])
+        b.local_out = np.stack([np.where(np.isnan(first), c_out, first), other])
 
     # --------------------------------------------------------------- stepping
     def _layer_derivatives(self, phi: NDArray[np.floating], *, hessian: bool = True
@@ -1027,7 +1085,7 @@ class Front:
             averaged = average_along_outline(np.column_stack([speed, slope]), b.positions[act],
                                              self._layer_pairs(), trusted, self.params.outline_averaging)
             speed, slope = averaged[:, 0], averaged[:, 1]
-        return NodeSpeeds(speed, a * self._part_scales(closest_mm, normal), slope=slope)
+        return NodeSpeeds(speed, a * self._part_scales(closest_mm, normal, b.positions[act], g2 >= 0.25), slope=slope)
 
     @property
     def smoothness_scale(self) -> float:
@@ -1092,34 +1150,48 @@ class Front:
             b.layer_parts = (labels.astype(np.int64), int(count))
         return b.layer_parts
 
-    def _part_scales(self, closest_mm: NDArray[np.floating], normal: NDArray[np.floating]
-                     ) -> NDArray[np.floating] | float:
+    def _part_scales(self, closest_mm: NDArray[np.floating], normal: NDArray[np.floating],
+                     nodes_mm: NDArray[np.floating], trusted: NDArray[np.bool_]) -> NDArray[np.floating] | float:
         """Smoothness scale per layer node: :attr:`smoothness_scale` for each part of the front on its own.
 
         One structure: the whole front's scale (:meth:`_whole_scale`). Several (seeds
         grown apart, a structure with a hole): each part's mean radius by the
         divergence theorem, ρ = d·V/S = mean over its outline of (y − ȳ)·n
         (y the closest points, ȳ their mean, n the outward normals; negative
-        for a hole), so a small part keeps its size beside a large one. A
-        part that reaches the image border is not closed: it takes the
+        for a hole), so a small part keeps its size beside a large one. Only
+        ``trusted`` nodes count (|∇φ| ≥ ½: where φ has flattened, the closest
+        point y = x − φ∇φ/|∇φ|² lands far off). A part whose layer nodes
+        (``nodes_mm``) reach the image border is not closed: it takes the
         whole front's scale.
         """
         if self.params.model not in ("region", "window"):
             return 1.0
         labels, count = self._layer_parts()
         whole = self._whole_scale()
+        b = self._band
+        thin = (None if b.thickness is None or len(b.thickness) != len(labels)
+                else np.asarray(self._scale_for_radius(b.thickness), dtype=float))
         if count == 1:
-            self._applied_scale = whole
-            return whole
-        weights = np.bincount(labels, minlength=count).astype(float)
-        centre = np.stack([np.bincount(labels, closest_mm[:, i], count) for i in range(self.ndim)], axis=1)
+            if thin is None or np.all(thin >= whole):
+                self._applied_scale = whole
+                return whole
+            per_node = np.minimum(whole, thin)
+            self._applied_scale = float(np.min(per_node))
+            return per_node
+        use = trusted.astype(float)
+        weights = np.bincount(labels, use, minlength=count)
+        if np.any(weights == 0):  # a part with no trusted node: all of its nodes count
+            use = np.where(weights[labels] == 0, 1.0, use)
+            weights = np.bincount(labels, use, minlength=count)
+        centre = np.stack([np.bincount(labels, use * closest_mm[:, i], count) for i in range(self.ndim)], axis=1)
         centre /= weights[:, None]
-        radius = np.bincount(labels, np.sum((closest_mm - centre[labels]) * normal, axis=1), count) / weights
+        radius = np.bincount(labels, use * np.sum((closest_mm - centre[labels]) * normal, axis=1), count) / weights
         scale = np.asarray(self._scale_for_radius(radius), dtype=float)
-        border = np.any((closest_mm < self.h) | (closest_mm > self._extent_mm - self.h), axis=1)
+        border = np.any((nodes_mm < 2.0 * self.h) | (nodes_mm > self._extent_mm - 2.0 * self.h), axis=1)
         scale[np.unique(labels[border])] = whole
-        self._applied_scale = float(np.min(scale))
-        return scale[labels]
+        per_node = scale[labels] if thin is None else np.minimum(scale[labels], thin)
+        self._applied_scale = float(np.min(per_node))
+        return per_node
 
     @property
     def _extent_mm(self) -> NDArray[np.floating]:
@@ -1278,11 +1350,11 @@ class Front:
                 new[b.frozen] = phi0[b.frozen]
             if np.any(b.barrier):
                 new[b.barrier] = np.maximum(new[b.barrier], phi0[b.barrier])
-            self._record_motion(phi0, new)
             self._phi = new
             self._coeffs = None
             self.time += dt
             self.steps += 1
+            self._record_motion()
             self.timings["evaluations"] = self.timings.get("evaluations", 0) + stages
             self._sync_inside()
             if np.min(new) >= 0.0 or np.max(new) < 0.0:  # no zero crossing left
@@ -1335,8 +1407,7 @@ class Front:
             return
         b.layer_phi = self._phi[b.active[b.layer]]
         b.layer_operators = b.layer_parts = b.layer_pairs = None
-        if self.params.model == "region":
-            self._update_local_statistics()
+        self._update_layer_statistics()
 
     @property
     def vanished(self) -> bool:
@@ -1353,19 +1424,44 @@ class Front:
         self._vanished = True
         self.converged = False
 
-    def _record_motion(self, before: NDArray[np.floating], after: NDArray[np.floating]) -> None:
-        """Mean displacement of the front this step, from the change of a smoothed Heaviside."""
-        h = self.h
-        h_before = np.clip(0.5 - before / (2 * h), 0.0, 1.0)
-        h_after = np.clip(0.5 - after / (2 * h), 0.0, 1.0)
-        near = np.abs(before) < h
-        surface = max(float(near.sum()) / 2.0, 1.0)  # nodes per unit front, in node spacings
-        moved = float(np.abs(h_after - h_before).sum()) / surface
-        self._motion.append(moved)
-        while len(self._motion) > self.params.convergence_window:
-            self._motion.popleft()
-        self.converged = (len(self._motion) == self.params.convergence_window
-                          and max(self._motion) < self.params.convergence_tol)
+    def _record_motion(self) -> None:
+        """Track the outline's motion (:mod:`engine.convergence`) after a step; set ``converged`` when it stopped."""
+        monitor = self._motion_monitor()
+        crossings = None
+        if monitor.due(self.steps):
+            b = self._band
+            crossings = self._crossings(b.indices, self._phi, b.lookup)
+        self.converged = monitor.update(self.steps, crossings)
+        if self.converged and not self._rest_reinitialised and not self._vanished and (
+                self._layer_drift(self._phi) > self._rebuild_drift + REINIT_DRIFT):
+            # φ next to the outline is no longer a distance: its speeds were read at
+            # the wrong closest points, and the resting place may be a false one (a
+            # 3 px disk grown from a flood rested at 86 % of its area, 95 % once
+            # reinitialised); reinitialise and watch the outline again (once: where φ
+            # cannot stay a distance, as in a strip two nodes wide, the next rest counts)
+            self._rest_reinitialised = True
+            try:
+                self.rebuild(reinitialise=True)
+            except FrontVanished:
+                self._vanish()
+                return
+            monitor.clear()
+            self.converged = False
+
+    def _restart_convergence(self) -> None:
+        """Forget the outline's recent motion (after an edit, pins or new settings)."""
+        self._motion_monitor().clear()
+        self._rest_reinitialised = False
+
+    _rest_reinitialised: bool = False
+
+    def _motion_monitor(self) -> OutlineMotion:
+        """The convergence monitor, made for the present settings (tolerance in mm, window in steps)."""
+        tol = self.params.convergence_tol * float(np.min(self.features.spacing))
+        if self._outline is None or (self._outline.tolerance_mm, self._outline.window) != (
+                tol, self.params.convergence_window):
+            self._outline = OutlineMotion(self.params.convergence_window, tol)
+        return self._outline
 
     def _needs_rebuild(self) -> bool:
         """True once the front reaches nodes that were more than the safe distance from it."""
@@ -1645,7 +1741,7 @@ class Front:
         self._apply_to_pixels(combine)
         self._build_band(starts, values_at)
         self.converged = False
-        self._motion.clear()
+        self._restart_convergence()
 
     def _apply_to_pixels(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating],
                                                   NDArray[np.floating]], NDArray[np.floating]]) -> None:
@@ -1772,7 +1868,7 @@ class Front:
         b.barrier = self._barrier[near] if self._barrier is not None else np.zeros(len(b.indices), bool)
         b.held = None
         self.converged = False
-        self._motion.clear()
+        self._restart_convergence()
 
     def set_params(self, **changes: object) -> None:
         """Change settings between steps without restarting (band settings trigger a rebuild)."""
@@ -1789,10 +1885,10 @@ class Front:
         if rebuild or features:
             # new stencils do not fit the old band: reinitialise instead of measuring drift with them
             self.rebuild(reinitialise=True if rebuild else None)
-        elif new.model == "region":
-            self._update_local_statistics()
+        else:
+            self._update_layer_statistics()
         self.converged = False
-        self._motion.clear()
+        self._restart_convergence()
 
     def _new_stencils(self, params: FrontParams) -> None:
         """Stencils for changed stencil settings (scattered: the same nodes with new per-node operators)."""
@@ -1814,10 +1910,11 @@ class Front:
         b = self._band
         return FrontSnapshot(b.indices.copy(), self._phi.copy(), self._phi_at_rebuild.copy(),
                              np.packbits(self._inside.reshape(-1)), tuple(self._sums), self.time, self.steps,
-                             self.converged, tuple(self._motion), self.params, self._pins, self._barrier,
+                             self.converged, self._motion_monitor().state(), self.params, self._pins, self._barrier,
                              None if b.local_out is None else b.local_out.copy(), self._since_reinit,
                              self._rebuild_drift,
-                             (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()))
+                             (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()),
+                             None if b.thickness is None else b.thickness.copy(), self._rest_reinitialised)
 
     def restore(self, snap: FrontSnapshot) -> None:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
@@ -1844,11 +1941,13 @@ class Front:
             self._band.layer_operators = self._band.layer_parts = self._band.layer_pairs = None
         if snap.local_out is not None:
             self._band.local_out = snap.local_out.copy()
+        self._band.thickness = None if snap.thickness is None else snap.thickness.copy()
+        self._rest_reinitialised = snap.rest_reinitialised
         self._since_reinit = snap.since_reinit
         self._rebuild_drift = snap.rebuild_drift
         self._vanished = False
         self.time, self.steps, self.converged = snap.time, snap.steps, snap.converged
-        self._motion = deque(snap.motion)
+        self._motion_monitor().restore(snap.motion)
 
 
 # ---------------------------------------------------------------- helpers

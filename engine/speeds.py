@@ -66,7 +66,7 @@ class FrontParams:
     phs: int = 5
     cfl: float = 0.25
     integrator: str = "rkl2"  # "rkl2": super time steps; "ssp_rk3": three-stage steps within every stability limit
-    convergence_tol: float = 0.001  # mean front displacement per step, in node spacings
+    convergence_tol: float = 0.05  # largest outline displacement over the window, in pixel spacings
     convergence_window: int = 20  # steps
     extra: dict = field(default_factory=dict, compare=False)
 
@@ -217,7 +217,12 @@ def node_speeds(
     """Speed terms of ``params.model`` at ``count`` nodes from image features at their closest points.
 
     ``normal`` is the unit outward normal (needed by the edge model's
-    attraction term −∇g · n).
+    attraction term −∇g · n). For the region model ``c_out`` may hold two
+    rows, the local outside means on the darker and the brighter side of the
+    inside (the second NaN where that side is absent): the speed is then the
+    smaller of the two sides' speeds, so the structure is held by whatever
+    borders it on either side (region competition among more than two
+    tissues; Zhu & Yuille, IEEE Trans. PAMI 18(9) (1996) 884-900).
     """
     a = params.curvature_weight
     model = params.model
@@ -229,7 +234,14 @@ def node_speeds(
         low, high = params.window  # type: ignore[misc]
         return NodeSpeeds(params.drive * window_speed(intensity, low, high), a)
     if model == "region":
-        s = region_speed(intensity, c_in, c_out)
+        if np.ndim(c_out) == 2:
+            # local outside means on both sides of the inside (second row NaN where absent)
+            s = region_speed(intensity, c_in, c_out[0])
+            other = np.isfinite(c_out[1])
+            if np.any(other):
+                s = np.where(other, np.minimum(s, region_speed(intensity, c_in, np.where(other, c_out[1], c_out[0]))), s)
+        else:
+            s = region_speed(intensity, c_in, c_out)
         if params.edge_weight > 0:
             s = s * (1.0 - params.edge_weight + params.edge_weight * edge)
         return NodeSpeeds(params.drive * s, a)

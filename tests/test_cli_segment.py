@@ -279,10 +279,10 @@ def test_progress_bar_is_throttled_and_erased():
 
 
 def test_progress_flag_draws_on_stderr(tmp_path, png, capsys):
-    rc = main(["segment", str(png), "--seed", "48,44,5", "--max-steps", "30", "--progress",
+    rc = main(["segment", str(png), "--seed", "48,44,5", "--max-steps", "8", "--progress",
                "--out", str(tmp_path / "m.png")])
     captured = capsys.readouterr()
     assert rc == 0
-    assert "\r" in captured.err and "/30 steps" in captured.err
-    assert printed(captured.out, "steps") == "30"
+    assert "\r" in captured.err and "/8 steps" in captured.err
+    assert printed(captured.out, "steps") == "8"
     assert printed(captured.out, "converged").startswith("no")

@@ -7,7 +7,7 @@ import pytest
 from skimage.transform import downscale_local_mean
 
 from engine.contours import signed_area
-from engine.coarse_start import block_mean, coarse_factor, coarse_seeds, to_coarse, upsample_phi
+from engine.coarse_start import block_mean, coarse_seeds, resolvable_factor, to_coarse, upsample_phi
 from engine.front import Front
 from engine.metrics import dice
 from engine.segment import segment
@@ -48,14 +48,25 @@ def test_upsampling_reproduces_a_quadratic_exactly() -> None:
     np.testing.assert_allclose(to_coarse(np.array([[1.5, 5.5]]), factor), [[0.0, 1.0]])
 
 
-def test_block_size_follows_image_and_seed_sizes() -> None:
+def test_block_size_follows_the_structure_and_the_image() -> None:
+    # The largest disk inside a disk of radius R is the disk itself (common
+    # geometry): R = 33 px holds 4 blocks of 8 px, R = 20 of 4 px, R = 9 of
+    # 2 px, R = 6 none; a 2 px × 300 px strip none. The block mean keeps
+    # 96 px a side: 768² allows blocks of 8, 256² of 2, 160² none.
+    rr, cc = np.indices((768, 768), dtype=float)
+    for radius, factor in ((33.0, 8), (20.0, 4), (9.0, 2), (6.0, 1)):
+        disk = np.hypot(rr - 64.2, cc - 63.7) < radius
+        assert resolvable_factor(disk, np.ones(2), 8) == factor
+        assert resolvable_factor(disk, np.ones(2), 2) == min(2, factor)
+        assert resolvable_factor(disk[:256, :256], np.ones(2), 8) == min(2, factor)
+        assert resolvable_factor(disk[:160, :160], np.ones(2), 8) == 1
+    strip = np.zeros((200, 300), dtype=bool)
+    strip[99:101, :] = True
+    assert resolvable_factor(strip, np.ones(2), 8) == 1
+    # distances in pixels of the coarsest axis: 0.5 × 1 mm pixels see the disk half as wide
+    disk = np.hypot((rr - 164.2) / 2.0, cc - 63.7) < 20.0
+    assert resolvable_factor(disk, np.array([0.5, 1.0]), 8) == 4
     seeds = np.array([[256.0, 256.0, 30.0]])
-    assert coarse_factor((512, 512), seeds, "region") == 4
-    assert coarse_factor((1024, 1024), seeds * [2, 2, 2], "window") == 8
-    assert coarse_factor((256, 256), np.array([[128.0, 128.0, 3.0]]), "region") == 1  # seed too small
-    assert coarse_factor((512, 512), seeds, "edge") == 1
-    assert coarse_factor((512, 512), seeds, "curvature") == 1
-    assert coarse_factor((64, 512, 512), np.array([[32.0, 256, 256, 30]]), "region") == 1
     np.testing.assert_allclose(coarse_seeds(seeds, 4), [[(256 - 1.5) / 4, (256 - 1.5) / 4, 7.5]])
 
 
@@ -83,9 +94,9 @@ def test_keep_parts_drops_the_part_without_a_seed() -> None:
 @pytest.mark.slow
 def test_coarse_start_does_not_leak_through_a_narrow_gap() -> None:
     # The narrow-gap phantom of test_front_robustness at twice the size: the
-    # 1.5 px gap is narrower than the 2 × 2 blocks of the coarse start.
+    # 1.5 px gap is narrower than the 2 × 2 blocks of the coarse stage asked for.
     image, a = narrow_gap_phantom(scale=2)
-    result = segment(image, [(100, 90, 16)], model="region")
+    result = segment(image, [(100, 90, 16)], model="region", coarse=2)
     assert result.params["coarse"] == 2
     assert dice(result.mask, a > 0.5) >= 0.97
     assert result.mask[:, 141:].sum() == 0
@@ -109,30 +120,44 @@ def _noisy_disks(shape: tuple[int, int], disks: list[tuple[float, float, float]]
 
 
 @pytest.mark.slow
-def test_a_small_seed_grows_at_full_resolution_then_goes_coarse() -> None:
-    # A 3 px click on a 256² image (too small for the 2 × 2 blocks the image
-    # allows): it grows at full resolution until a disk of 4 blocks fits
-    # around it, then the coarse start takes over; the result agrees with a
-    # run at full resolution throughout.
-    image = _noisy_disks((256, 256), [(126.3, 131.7, 70.0)], seed=3)
+def test_a_small_seed_floods_then_goes_coarse_at_the_block_size_asked_for() -> None:
+    # A 3 px click on a 512² image: the flood takes the front out to the disk
+    # (radius 140 px, far more than 4 blocks of 4 px), the coarse stage runs
+    # at the block size asked for, and the result agrees with a run at full
+    # resolution throughout.
+    image = _noisy_disks((512, 512), [(252.3, 261.7, 140.0)], seed=3)
     rr, cc = np.indices(image.shape)
-    truth = np.hypot(rr - 126.3, cc - 131.7) < 70.0
-    seed = (128.0, 128.0, 3.0)
-    assert coarse_factor(image.shape, np.array([seed]), "region") == 1
-    result = segment(image, [seed], model="region")
-    assert result.params["coarse"] == 2
+    truth = np.hypot(rr - 252.3, cc - 261.7) < 140.0
+    seed = (256.0, 256.0, 3.0)
+    result = segment(image, [seed], model="region", coarse=4)
+    assert result.params["coarse"] == 4 and "coarse_requested" not in result.params
+    assert result.timings["coarse_steps"] > 0
     assert result.converged
     full = segment(image, [seed], model="region", coarse=1)
     assert dice(result.mask, full.mask) >= 0.995
     assert dice(result.mask, truth) >= 0.97
 
 
+@pytest.mark.parametrize("asked", [2, 4, 8])
+def test_a_block_size_the_structure_cannot_hold_is_lowered(asked: int) -> None:
+    # A disk of radius 6 px cannot keep a core of 4 blocks of 2 px or more:
+    # any block size asked for is lowered to 1 (full resolution), and the
+    # lowering is recorded with the settings.
+    image = _noisy_disks((256, 256), [(100.4, 140.6, 6.0)], seed=4)
+    result = segment(image, [(100.0, 141.0, 2.0)], model="region", coarse=asked)
+    assert result.params["coarse"] == 1 and result.params["coarse_requested"] == asked
+    assert result.timings["coarse_steps"] == 0
+    assert result.converged
+    rr, cc = np.indices(image.shape)
+    assert dice(result.mask, np.hypot(rr - 100.4, cc - 140.6) < 6.0) >= 0.95
+
+
 def test_a_small_structure_stays_at_full_resolution() -> None:
-    # A structure smaller than the coarse start needs (radius 6 px, 4 blocks
-    # of 2 px would be 8) converges while it grows: no coarse start.
+    # By default there is no coarse stage: the flood brings the front to the
+    # boundary and it finishes at full resolution.
     image = _noisy_disks((256, 256), [(100.4, 140.6, 6.0)], seed=4)
     result = segment(image, [(100.0, 141.0, 2.0)], model="region")
-    assert result.params["coarse"] == 1
+    assert result.params["coarse"] == 1 and "coarse_requested" not in result.params
     assert result.converged
     rr, cc = np.indices(image.shape)
     assert dice(result.mask, np.hypot(rr - 100.4, cc - 140.6) < 6.0) >= 0.95
@@ -142,15 +167,15 @@ def test_a_small_structure_stays_at_full_resolution() -> None:
 def test_a_volume_starts_coarse_and_matches_its_truth() -> None:
     # A 100³ volume allows 2 × 2 × 2 blocks (a 50³ block mean); a ball of
     # radius 22 voxels with noise σ = 0.2 on contrast 1 (common practice for
-    # a noisy phantom). The coarse start must be taken and the result must
-    # match the ball (Dice 0.99) and the block mean must match scikit-image's.
+    # a noisy phantom). The coarse stage asked for must be taken and the
+    # result must match the ball (Dice 0.99) and the block mean must match
+    # scikit-image's.
     n, centre, radius = 100, np.array([50.3, 49.8, 50.1]), 22.0
     grid = np.indices((n, n, n), dtype=float)
     truth = np.sqrt(sum((g - c) ** 2 for g, c in zip(grid, centre))) < radius
     image = truth + np.random.default_rng(9).normal(0.0, 0.2, truth.shape)
     np.testing.assert_allclose(block_mean(image, 2), downscale_local_mean(image, (2, 2, 2)), rtol=0, atol=1e-12)
     seed = (50.0, 50.0, 50.0, 8.0)
-    assert coarse_factor(image.shape, np.array([seed]), "region") == 2
-    result = segment(image, [seed], model="region")
+    result = segment(image, [seed], model="region", coarse=2)
     assert result.params["coarse"] == 2 and result.converged
     assert dice(result.mask, truth) >= 0.99

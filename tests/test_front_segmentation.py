@@ -17,12 +17,15 @@ PHANTOM = shepp_logan_phantom()
 NOISY = PHANTOM + np.random.default_rng(1974).normal(0.0, 0.05, PHANTOM.shape)
 # Three ellipses of the phantom: the two large dark ones (0.0 in brain at
 # 0.2) and the upper grey one (0.3), with the intensity range that counts as
-# the structure: the grey ellipse carries a small brighter (0.4) ellipse on
-# its lower edge, which a region model rightly keeps with it.
+# the structure. The grey ellipse carries a small brighter (0.4) ellipse on
+# its lower edge: a tissue of its own, which the region model holds outside
+# as it holds bone outside an organ in CT (local outside means on both
+# sides of the inside). With noise σ = 0.05 against its contrast 0.1 the
+# front may also take it in (122 of about 6 100 pixels).
 ELLIPSES = {
     "left dark ellipse": ((200, 150, 8), (-1e-3, 1e-3)),
     "right dark ellipse": ((200, 243, 6), (-1e-3, 1e-3)),
-    "upper grey ellipse": ((128, 200, 8), (0.29, 0.5)),
+    "upper grey ellipse": ((128, 200, 8), (0.29, 0.31)),
 }
 
 

@@ -26,7 +26,10 @@ Output
     sidecar is written.
 
 The command prints the steps taken, the evolution time reached, the wall
-time, the area in mm² and whether the front converged. With ``--progress``,
+time, the area in mm² and whether the front converged; when the block size
+of ``--coarse`` is more than the outlined structure can hold, the block
+size it was lowered to (also in the sidecar's parameters as ``coarse`` and
+``coarse_requested``, and in its notes). With ``--progress``,
 or whenever stderr is a terminal, a one-line text bar on stderr shows the
 files loaded, then the steps taken out of the step limit (fronts usually
 converge long before it).
@@ -101,6 +104,16 @@ def write_png_mask(path: str | os.PathLike[str], mask: np.ndarray, *,
     return target
 
 
+def coarse_note(seg: "Segmentation") -> str:
+    """What became of a block size the structure could not hold ("" when the one asked for was used)."""
+    asked = seg.params.get("coarse_requested")
+    if asked is None:
+        return ""
+    used = seg.params.get("coarse", 1)
+    return (f"block size {asked} lowered to {used} (the outlined structure is too small for blocks of "
+            f"{asked} pixels{'; finished at full resolution' if used == 1 else ''})")
+
+
 def seconds(timings: dict) -> dict[str, float]:
     """The timing entries in seconds (keys ending in ``_s``), as plain floats."""
     return {k: float(v) for k, v in timings.items() if k.endswith("_s") and math.isfinite(float(v))}
@@ -137,11 +150,14 @@ def provenance(
     timings = seconds(dict(seg.timings))
     timings.update({k: float(v) for k, v in (extra_timings or {}).items()})
     parameters = dict(seg.params)
-    parameters["detail"] = settings.detail
+    parameters.setdefault("detail", settings.detail)  # the detail used (raised for thin structures)
     state = ("converged" if seg.converged else outline_failure(seg) or
              "stopped at the step limit without converging")
     notes = (f"{state} after {seg.steps} steps (evolution time {seg.time:.6g}); "
              f"band nodes {seg.timings.get('nodes', 'n/a')}, band rebuilds {seg.timings.get('rebuilds', 'n/a')}")
+    lowered = coarse_note(seg)
+    if lowered:
+        notes += f"; {lowered}"
     details = {
         "command": command,
         "image": recorded_path(settings.image, Path(os.path.abspath(settings.out)).parent),
@@ -386,6 +402,9 @@ def _run(settings: Settings) -> int:
     for note in [*volume.warnings, *notes]:
         print(f"note: {note}")
     print(f"steps: {seg.steps}")
+    lowered = coarse_note(seg)
+    if lowered:
+        print(f"coarse start: {lowered}")
     print(f"evolution time: {seg.time:.4g} (front time; {seg.timings.get('evolve_s', 0.0):.2f} s evolving)")
     print(f"wall time: {wall:.2f} s")
     print(f"area: {seg.area_mm2:.1f} mm² ({int(np.count_nonzero(seg.mask))} pixels of {pixel_area:.4g} mm²)")

@@ -1,0 +1,429 @@
+"""Growth from a click: a pixel-level flood from the seeds, bounded by the speed model.
+
+A level-set front moves at most ``cfl`` node spacings a step, so a seed of a
+few pixels needs hundreds of steps to cross a large structure and thousands
+to follow a long thin one. The flood takes the front most of the way in a
+few passes over the pixels, each a handful of whole-array operations; the
+level set then finishes from its outline to sub-pixel accuracy (and decides
+every pixel the flood left open).
+
+Each pass keeps the pixels connected to the seeds that the model clearly
+calls inside:
+
+- where the pixels just outside the present region (beyond a rim, within a
+  ring: the region model's local outside statistics) differ distinctly from
+  the inside, darker or brighter, a pixel joins when the region speed of
+  Chan & Vese against each such side, S = (2I − c_in − c_out) / (c_in −
+  c_out), is at least ``CLEAR_INSIDE``: it lies at least three quarters of
+  the way from that outside to the inside intensity (a pixel more than
+  three quarters covered by the structure);
+- elsewhere (the region is still surrounded by its own tissue) a pixel
+  joins when it is within ``HOMOGENEITY`` noise deviations of the local
+  inside mean (seeded region growing, Adams & Bischof 1994).
+
+Means are local (Gaussian-weighted, the radius of the region model's local
+statistics); a smooth bias field slows the flood (the local mean lags
+behind it) and the level set finishes. Pixels connect through faces only (a
+one-pixel diagonal gap is not a path), and a pixel on an edge much steeper
+than the region's own contrast is a mixture of two other tissues and waits
+for the level set. Noise is the larger of the estimate from the finest
+diagonal wavelet coefficients near the seeds (Donoho & Johnstone 1994) and
+the spread of the seed's pixels and of what the region holds (noise
+correlated between pixels hides from the finest coefficients); the image is
+smoothed just enough that a quarter of the contrast found around the first
+region is ``MARGIN`` noise deviations (no smoothing at high SNR, so strips
+two pixels wide stay connected). The intensity-window model floods the
+pixels whose smoothed intensity lies in the inner half of its window.
+
+The flood only ever adds pixels the model would add, and stops short of any
+boundary it is unsure of, so it never has to be undone: the level set only
+moves the last pixel or so.
+
+References
+----------
+.. [1] R. Adams, L. Bischof, "Seeded region growing", IEEE Trans. Pattern
+   Anal. Mach. Intell. 16(6) (1994) 641-647.
+.. [2] D. L. Donoho, I. M. Johnstone, "Ideal spatial adaptation by wavelet
+   shrinkage", Biometrika 81(3) (1994) 425-455 (noise σ = MAD / 0.6745 of
+   the finest detail coefficients).
+.. [3] T. F. Chan, L. A. Vese, "Active contours without edges", IEEE Trans.
+   Image Process. 10(2) (2001) 266-277.
+.. [4] S. Lankton, A. Tannenbaum, "Localizing region-based active
+   contours", IEEE Trans. Image Process. 17(11) (2008) 2029-2039.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import ndimage
+
+from engine.front import SIDE_SHARE
+from engine.front_geometry import seed_disks
+
+#: Models the flood serves (it follows their inside test).
+GROWTH_MODELS = ("region", "window")
+#: Region speed a pixel needs to join where the local outside is distinct.
+CLEAR_INSIDE = 0.5
+#: Noise deviations (of the smoothed image) from the local inside mean within
+#: which a pixel joins where the local outside is not distinct.
+HOMOGENEITY = 2.5
+#: Noise deviations a quarter of the contrast must span for the chosen smoothing.
+MARGIN = 3.0
+#: Smoothings tried (Gaussian σ in units of the smallest pixel spacing), smallest first.
+SMOOTHINGS = (0.0, 0.5, 1.0, 1.5, 2.0, 3.0)
+#: Smoothing of the first pass (before the contrast is known).
+FIRST_SMOOTHING = 1.0
+#: Ring pixels beyond the inside mean on the far side from the image's outside mean count only
+#: beyond this fraction of the difference of the two (noise-free images: partial-volume traces).
+FAR_SIDE = 0.05
+#: Least Gaussian weight of one side's ring pixels around a pixel for its local mean to count.
+MIN_WEIGHT = 0.05
+#: Noise deviations of the spread of a pixel's 3 × 3 neighbourhood above which (beyond twice the
+#: weakest local contrast) the pixel counts as a mixture on a steep edge.
+MIXTURE = 3.0
+#: Passes at most that stay inside their box (passes that reach the side of their box widen it and
+#: do not count: a channel 2 800 px long takes a few dozen).
+MAX_PASSES = 12
+#: A pass that adds fewer pixels than this fraction of the region ends the flood.
+SETTLED = 0.002
+#: Half-side (pixels) of the box around each seed whose wavelet coefficients give the noise.
+NOISE_BOX = 32
+#: Holes of the region smaller than this (in pixels, 2-D; voxels in 3-D ×4) are filled.
+SMALL_HOLE = 16
+#: Box around the region in which a pass works: this many local radii beyond it (at least BOX_PAD pixels).
+BOX_RADII = 4.0
+BOX_PAD = 48
+#: A region covering more than this fraction of the image has found no boundary.
+UNBOUNDED = 0.9
+
+
+def noise_level(image: NDArray[np.floating], centres: ArrayLike, *, half: int = NOISE_BOX) -> float:
+    """Noise standard deviation of ``image`` near ``centres`` (pixel coordinates).
+
+    The median absolute value of the finest diagonal Haar coefficients
+    within ``half`` pixels of each centre, divided by 0.6745 (Donoho &
+    Johnstone 1994): edges and smooth shading hardly touch these
+    coefficients, so the figure is that of white noise. The median over the
+    centres is returned.
+    """
+    img = np.asarray(image, dtype=float)
+    figures = []
+    for centre in np.atleast_2d(np.asarray(centres, dtype=float)):
+        box = tuple(slice(max(int(c) - half, 0), min(int(c) + half, n)) for c, n in zip(centre, img.shape))
+        block = img[box]
+        block = block[tuple(slice(0, (n // 2) * 2) for n in block.shape)]
+        if min(block.shape) < 2:
+            continue
+        detail = np.zeros([n // 2 for n in block.shape])
+        for corner in np.ndindex(*(2,) * img.ndim):
+            sign = -1.0 if sum(corner) % 2 else 1.0
+            detail += sign * block[tuple(slice(c, None, 2) for c in corner)]
+        detail /= 2.0 ** (img.ndim / 2.0)
+        figures.append(float(np.median(np.abs(detail))) / 0.6745)
+    return float(np.median(figures)) if figures else 0.0
+
+
+def smoothing_factor(sigma_px: NDArray[np.floating]) -> float:
+    """Factor by which a Gaussian of σ (pixels, per axis) lowers the standard deviation of white noise.
+
+    Σ w² of a sampled Gaussian ≈ Π 1/(2√π σ_i) (σ_i ≳ 0.5); 1 without smoothing.
+    """
+    s = np.asarray(sigma_px, dtype=float)
+    if np.all(s <= 0):
+        return 1.0
+    return float(np.prod(1.0 / np.sqrt(2.0 * np.sqrt(np.pi) * np.maximum(s, 0.5))))
+
+
+@dataclass
+class RegionGrowth:
+    """The flood from the seeds (see module docstring); one :meth:`step` is one pass.
+
+    Parameters
+    ----------
+    image : 2-D or 3-D intensities.
+    seeds : ``(..., radius_px)`` disks.
+    spacing : pixel spacing in mm per axis.
+    model : ``"region"`` or ``"window"``.
+    window : ``(low, high)`` of the window model (its inner half is flooded).
+    window_sigma_mm : smoothing of the window model's image (its Edge scale σ).
+    local_radius_mm : radius of the local means (the region model's).
+    rim_mm, ring_mm : outside pixels nearer the region than ``rim_mm`` are
+        its blurred rim and do not count toward the local outside mean; only
+        those within ``ring_mm`` more do.
+    """
+
+    image: NDArray[np.floating]
+    seeds: NDArray[np.floating]
+    spacing: NDArray[np.floating]
+    model: str = "region"
+    window: tuple[float, float] | None = None
+    window_sigma_mm: float = 1.0
+    local_radius_mm: float = 6.0
+    rim_mm: float = 1.5
+    ring_mm: float = 3.0
+    inside: NDArray[np.bool_] = field(init=False, repr=False)
+    passes: int = field(init=False, default=0)
+    finished: bool = field(init=False, default=False)
+    unbounded: bool = field(init=False, default=False)
+    noise: float = field(init=False, default=0.0)
+    smoothing: float = field(init=False, default=FIRST_SMOOTHING)
+    contrast: float = field(init=False, default=0.0)
+    _first: bool = field(init=False, default=True, repr=False)  # still flooding with the first smoothing
+    _widen: bool = field(init=False, default=False, repr=False)  # the last pass reached the side of its box
+    _settling: int = field(init=False, default=0, repr=False)  # passes that stayed inside their box
+    _smoothed: dict = field(init=False, default_factory=dict, repr=False)
+
+    def __post_init__(self) -> None:
+        self.image = np.asarray(self.image, dtype=float)
+        self.seeds = np.atleast_2d(np.asarray(self.seeds, dtype=float))
+        self.spacing = np.asarray(self.spacing, dtype=float).reshape(-1)
+        if self.model not in GROWTH_MODELS:
+            raise ValueError(f"model: the flood serves {', '.join(GROWTH_MODELS)}, got {self.model!r}")
+        if self.model == "window" and self.window is None:
+            raise ValueError("window: the window model's flood needs its (low, high)")
+        self.inside = seed_disks(self.image.shape, self.seeds)
+        if not self.inside.any():
+            raise ValueError("seeds: no pixel centre lies inside the seed disks")
+        self._seed_mask = self.inside.copy()
+        # white noise from the finest wavelet coefficients; noise correlated between pixels
+        # (a CT reconstruction kernel, lossy compression) hides from them, not from the spread
+        # of the seed's own pixels
+        seeded = self.image[self._seed_mask]
+        spread = 1.4826 * float(np.median(np.abs(seeded - np.median(seeded)))) if seeded.size >= 9 else 0.0
+        self.noise = max(noise_level(self.image, self.seeds[:, :-1]), spread)
+        if self.model == "window":
+            self.smoothing = self.window_sigma_mm / float(np.min(self.spacing))
+
+    # ------------------------------------------------------------------ state
+    @property
+    def record(self) -> dict:
+        """What the flood did, for provenance records."""
+        out = {"method": "flood", "passes": self.passes, "pixels": int(self.inside.sum()),
+               "noise": round(float(self.noise), 6), "smoothing_px": self.smoothing}
+        if self.model == "region":
+            out["contrast"] = round(float(self.contrast), 6)
+        if self.unbounded:
+            out["unbounded"] = True
+        return out
+
+    def step(self) -> bool:
+        """One pass of the flood; returns True while it still grows (False once finished).
+
+        A pass works on a box around the present region; a pass whose flood
+        reaches the side of its box leaves the rest to the next pass (on a
+        wider box), so no pass takes long on a large image.
+        """
+        if self.finished:
+            return False
+        before = int(self.inside.sum())
+        grown, reached_box = self._pass()
+        self.passes += 1
+        added = int(grown.sum()) - before
+        self.inside = grown
+        if reached_box:
+            self._widen = True  # the next box reaches twice as far around the region
+        elif self._first:
+            # the first smoothing has found the structure's surroundings: choose the smoothing
+            self._first = False
+            self._choose_smoothing()
+            if self.model == "window":
+                self.finished = True
+        elif added <= SETTLED * before:
+            self.finished = True
+        if not reached_box:
+            self._settling += 1
+            self._widen = False
+        if self._settling >= MAX_PASSES:
+            self.finished = True
+        if self.inside.sum() > UNBOUNDED * self.inside.size:
+            # no boundary anywhere: the flood found nothing to stop at; give the seeds back
+            self.inside = self._seed_mask.copy()
+            self.unbounded = True
+            self.finished = True
+        if self.finished:
+            self.inside = _fill_small_holes(self.inside, SMALL_HOLE * (4 if self.image.ndim == 3 else 1))
+        return not self.finished
+
+    def run(self) -> NDArray[np.bool_]:
+        """All passes; the flooded region."""
+        while not self.finished:
+            self.step()
+        return self.inside
+
+    # ------------------------------------------------------------------ passes
+    def _sigma_px(self, smoothing: float) -> NDArray[np.floating]:
+        return smoothing * float(np.min(self.spacing)) / self.spacing
+
+    def _smoothed_image(self, smoothing: float, box: tuple[slice, ...]) -> NDArray[np.floating]:
+        """The image smoothed by ``smoothing`` on ``box`` (filtered on the box widened by four σ, then cut)."""
+        key = (smoothing, tuple((s.start, s.stop) for s in box))
+        if key not in self._smoothed:
+            self._smoothed.clear()  # one smoothing and box are in use at a time
+            if smoothing <= 0:
+                self._smoothed[key] = self.image[box]
+            else:
+                sigma = self._sigma_px(smoothing)
+                reach = np.ceil(4.0 * sigma).astype(int)
+                wide = tuple(slice(max(s.start - r, 0), min(s.stop + r, n))
+                             for s, r, n in zip(box, reach, self.image.shape))
+                cut = tuple(slice(s.start - w.start, s.stop - w.start) for s, w in zip(box, wide))
+                self._smoothed[key] = ndimage.gaussian_filter(self.image[wide], sigma, mode="nearest")[cut]
+        return self._smoothed[key]
+
+    def _box(self) -> tuple[slice, ...]:
+        """The part of the image a pass works on: the region's bounding box widened by BOX_RADII local radii."""
+        nz = [np.flatnonzero(np.any(self.inside, axis=tuple(j for j in range(self.image.ndim) if j != i)))
+              for i in range(self.image.ndim)]
+        pad = np.maximum(np.ceil(BOX_RADII * self.local_radius_mm / self.spacing), BOX_PAD).astype(int)
+        if self._widen:  # the last pass reached its box: as far again as the region reaches
+            pad = np.maximum(pad, np.array([int(a[-1]) - int(a[0]) + 1 for a in nz]))
+        return tuple(slice(max(int(a[0]) - p, 0), min(int(a[-1]) + p + 1, n))
+                     for a, p, n in zip(nz, pad, self.image.shape))
+
+    def _pass(self) -> tuple[NDArray[np.bool_], bool]:
+        """The region after one pass, and whether its flood reached the side of the pass's box."""
+        box = self._box()
+        region = self.inside[box]
+        accept = self._accept(box, region)
+        structure = ndimage.generate_binary_structure(self.image.ndim, 1)
+        labels, _ = ndimage.label(accept | region, structure)
+        held = np.unique(labels[self._seed_mask[box] | region])
+        held = held[held > 0]
+        grown_box = np.isin(labels, held)
+        touches = [(s.start > 0 and grown_box.take(0, axis=i).any())
+                   or (s.stop < n and grown_box.take(-1, axis=i).any())
+                   for i, (s, n) in enumerate(zip(box, self.image.shape))]
+        grown = self.inside.copy()
+        grown[box] = grown_box
+        return grown, any(touches)
+
+    def _accept(self, box: tuple[slice, ...], region: NDArray[np.bool_]) -> NDArray[np.bool_]:
+        """Pixels of ``box`` the model clearly calls inside, given the present ``region``."""
+        if self.model == "window":
+            low, high = self.window  # type: ignore[misc]
+            smooth = self._smoothed_image(self.smoothing, box)
+            centre, half = 0.5 * (low + high), 0.5 * (high - low)
+            return (half - np.abs(smooth - centre)) / half >= CLEAR_INSIDE
+        smoothing = FIRST_SMOOTHING if self._first else self.smoothing
+        smooth = self._smoothed_image(smoothing, box)
+        noise = max(self.noise * smoothing_factor(self._sigma_px(smoothing)), 1e-12)
+        core, ring = self._core_and_ring(region, smoothing)
+        if core.sum() >= 50:
+            # what the region already holds varies this much (noise correlated between pixels
+            # falls less under smoothing than white noise; texture; a bias field)
+            values = smooth[core]
+            noise = max(noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
+        radius_px = self.local_radius_mm / self.spacing
+        c_in = _local_mean(smooth, core, radius_px)
+        outside_mean = float(smooth[~region].mean()) if (~region).any() else float(smooth.mean())
+        inside_mean = float(smooth[core].mean())
+        accept = np.ones(smooth.shape, dtype=bool)
+        decided = np.zeros(smooth.shape, dtype=bool)
+        ring_weight = _local_mean(smooth, ring, radius_px, weights=True)[1]
+        weakest = np.full(smooth.shape, np.inf)  # the least contrast to a distinct side
+        for side in (-1.0, 1.0):
+            # what borders the region on this side of its intensity (darker, brighter), beyond noise
+            far = np.sign(outside_mean - inside_mean) != side
+            spread = max(3.0 * noise, FAR_SIDE * abs(inside_mean - outside_mean)) if far else 3.0 * noise
+            beyond = ring & (side * (smooth - c_in) > spread)
+            if not beyond.any():
+                continue
+            c_out, weight = _local_mean(smooth, beyond, radius_px, weights=True)
+            # a side is a tissue where it makes up a good share of the ring, not where a few
+            # pixels of the inside's own noise tail (or of a smooth bias) are beyond the spread
+            distinct = (weight > MIN_WEIGHT) & (weight >= SIDE_SHARE * ring_weight)
+            speed = (2.0 * smooth - c_in - c_out) / np.where(distinct, c_in - c_out, 1.0)
+            accept &= ~distinct | (speed >= CLEAR_INSIDE)
+            decided |= distinct
+            weakest = np.where(distinct, np.minimum(weakest, np.abs(c_in - c_out)), weakest)
+        accept = np.where(decided, accept, np.abs(smooth - c_in) < HOMOGENEITY * noise)
+        # a pixel on an edge steeper than twice the weakest contrast around the region (where
+        # nothing is distinct yet: the contrast found around the first region) is a mixture of
+        # two other tissues (the rim of a bone in soft tissue passes through the organ's
+        # value): left to the level set
+        spread = ndimage.maximum_filter(smooth, size=3) - ndimage.minimum_filter(smooth, size=3)
+        steep = spread > 2.0 * np.where(np.isfinite(weakest), weakest, self.contrast) + 2.0 * MIXTURE * noise
+        return accept & ~steep
+
+    def _core_and_ring(self, region: NDArray[np.bool_], smoothing: float
+                       ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+        """The region without its rim, and the ring of outside pixels beyond the rim (as the local statistics)."""
+        rim = self.rim_mm + 2.0 * smoothing * float(np.min(self.spacing))
+        depth_in = ndimage.distance_transform_edt(region, sampling=self.spacing)
+        core = region & (depth_in > rim)
+        if not core.any():
+            core = region
+        depth_out = ndimage.distance_transform_edt(~region, sampling=self.spacing)
+        ring = (depth_out > rim) & (depth_out <= rim + self.ring_mm)
+        return core, ring
+
+    def _choose_smoothing(self) -> None:
+        """The least smoothing at which a quarter of the contrast around the first region spans MARGIN noise deviations."""
+        if self.model == "window":
+            return
+        box = self._box()
+        region = self.inside[box]
+        smooth = self._smoothed_image(FIRST_SMOOTHING, box)
+        core, ring = self._core_and_ring(region, FIRST_SMOOTHING)
+        self.contrast = abs(float(np.median(smooth[ring])) - float(np.median(smooth[core]))) if ring.any() else 0.0
+        self.smoothing = SMOOTHINGS[-1]
+        for s in SMOOTHINGS:
+            if self.noise * smoothing_factor(self._sigma_px(s)) * MARGIN <= 0.25 * self.contrast:
+                self.smoothing = s
+                break
+
+
+def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px: NDArray[np.floating], *,
+                weights: bool = False):
+    """Gaussian-weighted mean of ``values`` over ``mask`` around every pixel (normalised convolution).
+
+    Where the mask has no weight nearby the mean of the whole mask stands in.
+    With ``weights`` the normalising weight is returned too. For radii of
+    several pixels the two Gaussian sums are taken on a grid of blocks
+    (about a third of the radius a side) and interpolated back: they are
+    smooth on that scale, and the passes over a 1024² image cost a quarter.
+    """
+    m = mask.astype(float)
+    radius = np.asarray(radius_px, dtype=float)
+    block = max(1, int(np.min(radius) // 3))
+    if block > 1 and min(values.shape) >= 4 * block:
+        from engine.coarse_start import block_mean
+
+        small_w = ndimage.gaussian_filter(block_mean(m, block), radius / block, mode="constant")
+        small_s = ndimage.gaussian_filter(block_mean(values * m, block), radius / block, mode="constant")
+        w = _upsample_linear(small_w, block, values.shape)
+        s = _upsample_linear(small_s, block, values.shape)
+    else:
+        w = ndimage.gaussian_filter(m, radius, mode="constant")
+        s = ndimage.gaussian_filter(values * m, radius, mode="constant")
+    fallback = float(values[mask].mean()) if mask.any() else float(values.mean())
+    mean = np.where(w > 1e-6, s / np.maximum(w, 1e-12), fallback)
+    return (mean, w) if weights else mean
+
+
+def _upsample_linear(small: NDArray[np.floating], block: int, shape: tuple[int, ...]) -> NDArray[np.floating]:
+    """Values of a block grid (block i centred on pixel block·i + (block − 1)/2) at every pixel, linearly, axis by axis."""
+    out = small
+    for axis, n in enumerate(shape):
+        position = np.clip((np.arange(n) - 0.5 * (block - 1)) / block, 0.0, out.shape[axis] - 1.0)
+        low = np.floor(position).astype(np.int64)
+        high = np.minimum(low + 1, out.shape[axis] - 1)
+        weight = (position - low).reshape([-1 if j == axis else 1 for j in range(out.ndim)])
+        out = np.take(out, low, axis=axis) * (1.0 - weight) + np.take(out, high, axis=axis) * weight
+    return out
+
+
+def _fill_small_holes(inside: NDArray[np.bool_], limit: int) -> NDArray[np.bool_]:
+    """``inside`` with its holes (enclosed outside components) smaller than ``limit`` pixels filled."""
+    filled = ndimage.binary_fill_holes(inside)
+    holes = filled & ~inside
+    if not holes.any():
+        return inside
+    labels, count = ndimage.label(holes)
+    sizes = np.bincount(labels.ravel(), minlength=count + 1)
+    small = sizes < limit
+    small[0] = False
+    return inside | small[labels]
