@@ -153,6 +153,7 @@ class RegionGrowth:
     rim_mm, ring_mm : outside pixels nearer the region than ``rim_mm`` are
         its blurred rim and do not count toward the local outside mean; only
         those within ``ring_mm`` more do.
+    barrier : pixels never flooded (other labels' locked outlines), or None.
     """
 
     image: NDArray[np.floating]
@@ -164,6 +165,7 @@ class RegionGrowth:
     local_radius_mm: float = 6.0
     rim_mm: float = 1.5
     ring_mm: float = 3.0
+    barrier: NDArray[np.bool_] | None = None
     inside: NDArray[np.bool_] = field(init=False, repr=False)
     passes: int = field(init=False, default=0)
     finished: bool = field(init=False, default=False)
@@ -185,6 +187,11 @@ class RegionGrowth:
         if self.model == "window" and self.window is None:
             raise ValueError("window: the window model's flood needs its (low, high)")
         self.inside = seed_disks(self.image.shape, self.seeds)
+        if self.barrier is not None:
+            self.barrier = np.asarray(self.barrier, dtype=bool)
+            if self.barrier.shape != self.image.shape:
+                raise ValueError(f"barrier: expected shape {self.image.shape}, got {self.barrier.shape}")
+            self.inside &= ~self.barrier
         if not self.inside.any():
             raise ValueError("seeds: no pixel centre lies inside the seed disks")
         self._seed_mask = self.inside.copy()
@@ -245,6 +252,8 @@ class RegionGrowth:
             self.finished = True
         if self.finished:
             self.inside = _fill_small_holes(self.inside, SMALL_HOLE * (4 if self.image.ndim == 3 else 1))
+            if self.barrier is not None:
+                self.inside &= ~self.barrier
         return not self.finished
 
     def run(self) -> NDArray[np.bool_]:
@@ -288,6 +297,8 @@ class RegionGrowth:
         box = self._box()
         region = self.inside[box]
         accept = self._accept(box, region)
+        if self.barrier is not None:
+            accept = accept & ~self.barrier[box]
         structure = ndimage.generate_binary_structure(self.image.ndim, 1)
         labels, _ = ndimage.label(accept | region, structure)
         held = np.unique(labels[self._seed_mask[box] | region])

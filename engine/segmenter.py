@@ -78,13 +78,15 @@ class Segmenter:
     """Image and seeds to an outline, step by step (see module docstring).
 
     Built like :func:`engine.segment.segment` (same arguments, without
-    ``progress``). Attributes: ``stage``, ``finished``, ``steps``, ``time``,
+    ``progress``), plus ``barrier``: a mask of pixels no stage enters (other
+    labels' locked outlines; the flood never takes them and every front
+    holds them). Attributes: ``stage``, ``finished``, ``steps``, ``time``,
     ``converged``, ``vanished``.
     """
 
     def __init__(self, image: ArrayLike, seeds: Sequence[Sequence[float]], *, spacing: ArrayLike | None = None,
                  model: str = "region", max_steps: int | None = None, detail: int = 1, coarse: int | None = None,
-                 nodes: str = "lattice", **params: object) -> None:
+                 nodes: str = "lattice", barrier: ArrayLike | None = None, **params: object) -> None:
         t0 = time.perf_counter()
         check_names(params)
         if max_steps is not None and (isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer))
@@ -108,6 +110,14 @@ class Segmenter:
         check_limits(img.shape, sp, params)
         settings = FrontParams(model=model, **params)  # validates every setting once, here
         self._image, self._spacing, self._model, self._detail, self._nodes = img, sp, model, detail, nodes
+        self._barrier = None
+        if barrier is not None:
+            self._barrier = np.asarray(barrier, dtype=bool)
+            if self._barrier.shape != img.shape:
+                raise ValueError(f"barrier: expected a mask of the image's shape {img.shape}, "
+                                 f"got {self._barrier.shape}")
+            if not self._barrier.any():
+                self._barrier = None
         self._budget = DEFAULT_MAX_STEPS if max_steps is None else int(max_steps)
         self._params = dict(params)
         if model == "window" and settings.window is None:
@@ -128,7 +138,8 @@ class Segmenter:
             coarsest = float(np.max(sp))
             self._growth = RegionGrowth(img, self._seeds, sp, model=model, window=self._params.get("window"),
                                         window_sigma_mm=settings.edge_sigma, local_radius_mm=radius,
-                                        rim_mm=RIM_PIXELS * coarsest, ring_mm=RING_PIXELS * coarsest)
+                                        rim_mm=RIM_PIXELS * coarsest, ring_mm=RING_PIXELS * coarsest,
+                                        barrier=self._barrier)
             self.stage = "growing"
         else:
             self.stage = "fine"
@@ -324,6 +335,8 @@ class Segmenter:
         else:
             self._coarse = Front.from_pixel_phi(small, block_mean(phi, f), spacing=self._spacing * f,
                                                 model=self._model, detail=1, **params)
+        if self._barrier is not None:
+            self._coarse.set_barrier(block_mean(self._barrier.astype(float), f) >= 0.5)
         self.stage = "coarse"
 
     def _leave_coarse(self) -> None:
@@ -357,6 +370,8 @@ class Segmenter:
                                          detail=self._detail, **layout, **params)
         front.time = coarse_time
         front.steps = self._extra_steps
+        if self._barrier is not None:
+            front.set_barrier(self._barrier)
         self._fine = front
         self.stage = "fine"
 

@@ -1,5 +1,10 @@
 """Starting and rebuilding a session's live front: from seeds, an outline, a stroke or a snapshot.
 
+Seeds grow as :func:`engine.segment.segment` grows them (:func:`grow_from_seeds`:
+the pixel flood of :mod:`engine.growth`, then the front from its outline), so
+the window, a batch and the command line give the same outline for the same
+seeds and settings.
+
 The session keeps a few front objects alive (keyed by an id carried in its
 states), so undo and redo restore a snapshot into the very object that took
 it and stepping afterwards reproduces φ bit for bit. A state whose object is
@@ -19,10 +24,11 @@ from numpy.typing import NDArray
 
 from engine.front import Front, FrontSnapshot
 from engine.front_geometry import stroke_distance
+from engine.segmenter import Segmenter
 from engine.session.outline import Outline
 from engine.session.settings import FrontSettings
 
-__all__ = ["FrontCache", "stroke_mask", "stroke_points_mm", "start_from_seeds", "start_from_outline",
+__all__ = ["FrontCache", "stroke_mask", "stroke_points_mm", "grow_from_seeds", "start_from_seeds", "start_from_outline",
            "start_from_stroke", "window_for_mask"]
 
 _ids = itertools.count(1)
@@ -64,6 +70,14 @@ def start_from_seeds(image: NDArray[np.floating], seeds: Sequence[Sequence[float
                      settings: FrontSettings) -> Front:
     """A front grown from seed disks ``(row, col, radius_px)`` with ``settings``."""
     return Front.from_seeds(image, [tuple(s) for s in seeds], spacing=spacing, **_front_kwargs(settings))
+
+
+def grow_from_seeds(image: NDArray[np.floating], seeds: Sequence[Sequence[float]], spacing: Sequence[float],
+                    settings: FrontSettings, barrier: NDArray[np.bool_] | None = None) -> Segmenter:
+    """A :class:`engine.segmenter.Segmenter` from seed disks ``(row, col, radius_px)``: the flood first
+    (region and window models), then the front from its outline, as :func:`engine.segment.segment` does."""
+    return Segmenter(image, [tuple(s) for s in seeds], spacing=spacing, max_steps=settings.max_steps,
+                     barrier=barrier, **_front_kwargs(settings))
 
 
 def start_from_outline(image: NDArray[np.floating], outline: Outline, spacing: Sequence[float],

@@ -33,6 +33,7 @@ from numpy.typing import ArrayLike, NDArray
 from engine.front import Front
 from engine.io.sidecar import OKABE_ITO, utc_now
 from engine.io.volume import Volume
+from engine.segmenter import Segmenter
 from engine.session import fronts
 from engine.session.outline import Outline, frozen_array, outline_from_front
 from engine.session.settings import FrontSettings
@@ -82,6 +83,7 @@ class Session:
         self._fronts = fronts.FrontCache()
         self._front: Front | None = None
         self._front_id: int | None = None
+        self._grower: Segmenter | None = None  # seeds flooding at pixel level before the front takes over
         self._running = False
         self._revision = 0
         self._frame = Frame(0)
@@ -462,9 +464,9 @@ class Session:
             if live.snapshot is None:
                 if not live.seeds:
                     raise ValueError("the front vanished and has no seeds to start again from")
-                front = fronts.start_from_seeds(self.image(live.slice), live.seeds, self.spacing,
-                                                self.settings(live.label))
-                self._adopt(front, before, live.label, live.slice)
+                self._grower = fronts.grow_from_seeds(self.image(live.slice), live.seeds, self.spacing,
+                                                      self.settings(live.label),
+                                                      barrier=self._barrier(before, live.label, live.slice))
             self._run_settings = self.settings(live.label)
             self._running = True
             t0 = time.perf_counter()
@@ -472,12 +474,19 @@ class Session:
         try:
             while not stop() and (steps is None or taken < steps):
                 with self._lock:
-                    front = self._front
-                    if front.vanished or (steps is None and front.converged):
-                        break
-                    if front.steps >= self._run_settings.max_steps and steps is None:
-                        break
-                    front.step(1)
+                    grower = self._grower
+                    if grower is not None and grower.stage != "growing":
+                        self._adopt_grown(before)  # the flood is done and the front built from it
+                        continue
+                    if grower is not None:
+                        grower.step(1)  # one flood pass (or the hand-over to the front)
+                    else:
+                        front = self._front
+                        if front.vanished or (steps is None and front.converged):
+                            break
+                        if front.steps >= self._run_settings.max_steps and steps is None:
+                            break
+                        front.step(1)
                     taken += 1
                     now = time.perf_counter()
                     if now >= due:
@@ -489,6 +498,9 @@ class Session:
                             on_frame(self._frame)
         finally:
             with self._lock:
+                if self._grower is not None and taken:
+                    self._adopt_grown(before)  # paused during the flood: the front starts from what it took
+                self._grower = None
                 self._running = False
                 settings, self._run_settings = self._run_settings, None
                 if taken:
@@ -498,6 +510,12 @@ class Session:
         if on_frame is not None:
             on_frame(self._frame)
         return self._frame
+
+    def _adopt_grown(self, state: SessionState) -> None:
+        """Make the grower's full-resolution front the live front (building it from the flood if needed)."""
+        grower, self._grower = self._grower, None
+        live = state.live
+        self._adopt(grower.front(), state, live.label, live.slice)
 
     def _finish_run(self, before: SessionState, taken: int, seconds: float) -> None:
         """Push the run as one command (``before``: the state it started from, with the settings it ended with)."""
@@ -557,6 +575,8 @@ class Session:
                        label=label, details={"changes": changed, "settings": new.as_record()})
 
     def _apply_settings(self, old: FrontSettings, new: FrontSettings) -> None:
+        if self._front is None and self._grower is not None:
+            self._adopt_grown(self._stack.state)  # new settings during the flood: the front takes over now
         front = self._front
         if new.detail != old.detail:
             live = self.live
@@ -720,6 +740,9 @@ class Session:
         base = dict(revision=self._revision, label=live.label, slice=live.slice, seeds=live.seeds,
                     vanished=live.vanished, running=running, undo_index=self._stack.index,
                     steps_per_s=self._frame.steps_per_s if rate is None else rate)
+        if front is None and self._grower is not None:
+            self._frame = self._growth_frame(base, running)
+            return
         if front is None:
             self._frame = Frame(**base, stage="seeds" if not live.vanished else "vanished",
                                 message="the front vanished" if live.vanished else "")
@@ -738,6 +761,19 @@ class Session:
                             curvature=curvature, pins=pins, steps=int(front.steps), time=float(front.time),
                             area_mm2=area, perimeter_mm=perimeter, converged=bool(front.converged),
                             stage="evolving" if running else "paused")
+
+    def _growth_frame(self, base: dict[str, Any], running: bool) -> Frame:
+        """A frame of the flood (the pixels it has taken, outlined along their edges)."""
+        from engine.contours import polyline_length, signed_area
+
+        grower = self._grower
+        contours = tuple(frozen_array(c, float) for c in grower.contours())
+        sp = np.asarray(self.spacing)
+        area = float(sum(signed_area(c * sp) for c in contours))
+        perimeter = float(sum(polyline_length(c * sp) for c in contours))
+        return Frame(**base, contours=contours, steps=int(grower.steps), time=0.0, area_mm2=area,
+                     perimeter_mm=perimeter, converged=False,
+                     stage=("growing" if grower.stage == "growing" else "evolving") if running else "paused")
 
     def refresh(self) -> Frame:
         """Publish a new frame now (after changing :attr:`curvature_colours`, say)."""

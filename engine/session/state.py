@@ -206,6 +206,6 @@ class Frame:
     converged: bool = False
     vanished: bool = False
     running: bool = False
-    stage: str = ""
+    stage: str = ""  # "seeds", "growing" (the pixel flood), "evolving", "paused" or "vanished"
     undo_index: int = 0
     message: str = ""

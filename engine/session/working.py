@@ -152,6 +152,10 @@ def _encode_snapshot(snap: FrontSnapshot, arrays: _Arrays) -> dict[str, Any]:
         value = getattr(snap, f.name)
         if value is None:
             out[f.name] = None
+        elif f.name == "motion":  # convergence checkpoints (step, crossings) and the last displacement
+            *marks, last = value if value else (float("inf"),)
+            out[f.name] = {"motion": {"marks": [[int(k), arrays.put("s", p)] for k, p in marks],
+                                      "displacement": None if not np.isfinite(last) else float(last)}}
         elif isinstance(value, np.ndarray):
             out[f.name] = {"array": arrays.put("s", value)}
         elif isinstance(value, FrontParams):
@@ -171,6 +175,10 @@ def _decode_snapshot(record: Mapping[str, Any], arrays: _Arrays) -> FrontSnapsho
         item = record.get(f.name)
         if item is None:
             values[f.name] = None if f.name in ("pins", "barrier", "local_out") else f.default
+        elif "motion" in item:
+            marks = tuple((int(k), arrays.get(key, readonly=False)) for k, key in item["motion"]["marks"])
+            last = item["motion"]["displacement"]
+            values[f.name] = marks + (float("inf") if last is None else float(last),)
         elif "array" in item:
             values[f.name] = arrays.get(item["array"], readonly=f.name in ("pins", "barrier"))
         elif "params" in item:

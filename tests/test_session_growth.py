@@ -1,0 +1,92 @@
+"""A Session grows seeds as segment() does: the flood, then the front; live frames of the flood; locked labels."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import growth_phantoms as gp
+from engine.metrics import dice
+from engine.segment import segment
+from engine.session import Session
+
+
+def _session(case: gp.Case) -> tuple[Session, int]:
+    s = Session.from_array(case.image, spacing=case.spacing)
+    return s, s.add_label("structure").index
+
+
+@pytest.mark.parametrize("make", [gp.star, gp.annulus], ids=["star", "annulus"])
+def test_a_click_in_the_session_outlines_what_segment_outlines(make) -> None:
+    # The invented star and ring of the growth tests (partial-volume renderings,
+    # truth at pixel centres), one 4 px seed: the session's outline after a full
+    # evolve agrees with the truth (Dice >= 0.99, the growth tests' figure for
+    # these shapes) and with segment() from the same seed (Dice >= 0.998: the
+    # same flood and front; segment() also drops parts holding no seed).
+    case = make()
+    s, lab = _session(case)
+    s.seed(*case.seed, label=lab, slice=0)
+    frames = []
+    s.evolve(on_frame=frames.append, frame_interval=0.0)
+    assert s.frame().converged
+    outline = s.commit()
+    reference = segment(case.image, [case.seed], spacing=case.spacing)
+    assert dice(outline.mask, case.truth) >= 0.99
+    assert dice(outline.mask, reference.mask) >= 0.998
+    growing = [f for f in frames if f.stage == "growing"]
+    assert growing, "the flood gave no frame to draw"
+    # the flood's frames grow, and each is closed (a viewer draws them as they are)
+    areas = [f.area_mm2 for f in growing]
+    assert areas == sorted(areas) and areas[0] > 4 * np.pi * case.seed[2] ** 2
+    for f in growing:
+        for c in f.contours:
+            assert np.allclose(c[0], c[-1])
+    steps = [f.steps for f in frames]
+    assert steps[-1] >= 1 and frames[-1].stage != "growing"
+
+
+def test_a_pause_during_the_flood_leaves_a_front_to_edit_and_undo_restores_the_seeds() -> None:
+    case = gp.star()
+    s, lab = _session(case)
+    s.seed(*case.seed, label=lab, slice=0)
+    s.evolve(steps=2)  # two flood passes, then paused
+    live = s.live
+    assert live is not None and live.snapshot is not None
+    area = s.frame().area_mm2
+    assert area > np.pi * case.seed[2] ** 2  # it grew beyond the seed disk
+    s.trim([[case.seed[0], case.seed[1]]], 2.0, label=lab, slice=0)
+    s.undo()
+    assert abs(s.frame().area_mm2 - area) < 1e-9
+    s.undo()  # the evolve run
+    assert s.live.snapshot is None and s.frame().stage == "seeds"
+    s.evolve()
+    assert dice(s.commit().mask, case.truth) >= 0.99
+
+
+def test_the_flood_never_enters_a_locked_label() -> None:
+    # Two touching squares of the same intensity (nothing in the image between
+    # them): the left one is committed and locked; a seed in the right one must
+    # stay out of it, at the flood and at the front (no pixel of the locked
+    # outline taken), and still fill its own square (Dice >= 0.97).
+    rng = np.random.default_rng(5)
+    image = np.zeros((120, 160))
+    image[30:90, 20:80] = 100.0
+    image[30:90, 80:140] = 100.0
+    image += rng.normal(0.0, 5.0, image.shape)
+    left = np.zeros(image.shape, bool)
+    left[30:90, 20:80] = True
+    right = np.zeros(image.shape, bool)
+    right[30:90, 80:140] = True
+    s = Session.from_array(image)
+    lab_left = s.add_label("left").index
+    s.extend(np.array([[r, c] for r in np.arange(31.5, 89.0, 4.0) for c in np.arange(21.5, 79.0, 4.0)]), 2.9,
+             label=lab_left, slice=0)
+    locked = s.commit().mask
+    assert dice(locked, left) >= 0.95  # the left square drawn with the Extend brush
+    s.set_label_locked(lab_left, True)
+    lab_right = s.add_label("right").index
+    s.seed(60.0, 110.0, 4.0, label=lab_right, slice=0)
+    s.evolve()
+    mask = s.commit().mask
+    assert not np.any(mask & locked)
+    assert dice(mask, right & ~locked) >= 0.97
