@@ -124,7 +124,9 @@ def test_png_in_result_out_with_provenance(tmp_path, png, capsys, monkeypatch):
     assert record["Seeds"] == [[48.0, 44.0, 5.0], [50.0, 40.0, 3.0]]
     assert record["Steps"] == int(printed(captured.out, "steps"))
     assert {"evolve_s", "wall_s", "load_s"} <= set(record["TimingsS"])
-    (entry,) = block["History"]
+    # saved through a Session: the label's creation, then the outline grown by the command
+    added, entry = block["History"]
+    assert added["Action"] == "label_add" and added["Details"]["name"] == "bright disk"
     assert entry["Action"] == "segment" and entry["Label"] == 1 and entry["Slice"] == 0
     assert entry["Details"]["settings"] == {"smoothness": 0.3, "outline_averaging": 2.5}
     assert entry["Details"]["coarse"] == "auto"

@@ -9,7 +9,7 @@ each of two structures, and writes into the folder ``DIR`` (default
 
 - ``image.png``: the slice as a 16-bit grey PNG (the stored intensities);
 - ``abdomen_dseg.nii.gz``, ``abdomen_dseg.tsv``, ``abdomen_dseg.json``: both
-  outlines as one labelled result (:func:`engine.io.save_result`; label 1 and
+  outlines as one labelled result, saved through a :class:`engine.session.Session` (label 1 and
   2 in the order of :data:`STRUCTURES`), with provenance;
 - ``overlay.png``: the slice (twice enlarged) with each outline drawn in its
   label colour (Okabe-Ito orange and sky blue) and a legend;
@@ -281,10 +281,11 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
         Steps, times, areas and Dice per structure, and the files written.
     """
     from engine.commands import interrupts
-    from engine.io import SaveError, load, save_result
+    from engine.io import SaveError, load
     from engine.io.atomic import commit_files
     from engine.metrics import dice
-    from engine.segment import segment
+    from engine.segmenter import Segmenter
+    from engine.session import Session
 
     wall0 = time.perf_counter()
     folder = Path(os.fspath(out))
@@ -300,10 +301,8 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
     image = volume.array[0]
     truth = phantom.truth[0]
     pixel_mm2 = spacing[0] * spacing[1]
-    labels = np.zeros(image.shape, dtype=np.uint8)
+    session = Session(volume, operator=operator)
     results: list[StructureResult] = []
-    records: list[dict] = []
-    history: list[dict] = []
     outlines: list[tuple[list[NDArray[np.floating]], str, str]] = []
     for index, structure in enumerate(STRUCTURES, start=1):
         bar = TextProgress(20000, stream=progress_stream, label=structure.name) if progress_stream else None
@@ -314,15 +313,17 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
                 bar(steps, t)
 
         t0 = time.perf_counter()
+        label = session.add_label(structure.name, structure.color)
         try:
-            seg = segment(image, [structure.seed], spacing=spacing, model=model, progress=on_step)
+            runner = Segmenter(image, [structure.seed], spacing=spacing, model=model)
+            runner.run(progress=on_step)
+            seg = runner.result()
         finally:
             if bar is not None:
                 bar.close()
         elapsed = time.perf_counter() - t0
         reference = truth == structure.truth_label
         score = float(dice(seg.mask, reference))
-        labels[seg.mask & (labels == 0)] = index
         result = StructureResult(
             name=structure.name, label=index, seed=structure.seed, steps=int(seg.steps),
             converged=bool(seg.converged), evolution_time=float(seg.time), seconds=elapsed,
@@ -330,27 +331,18 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
             dice=score,
         )
         results.append(result)
-        records.append({"index": index, "slices": [{
-            "slice": 0, "model": model, "parameters": dict(seg.params), "seeds": [list(structure.seed)],
-            "steps": int(seg.steps), "timings": seconds(dict(seg.timings)),
-            "notes": f"{'converged' if seg.converged else 'not converged'}; Dice {score:.4f} against the "
-                     f"phantom's truth label {structure.truth_label}",
-        }]})
-        history.append({"action": "segment", "label": index, "slice": 0, "details": {
-            "command": PROG, "seeds": [list(structure.seed)], "model": model, "steps": int(seg.steps),
-            "converged": bool(seg.converged)}})
+        if not seg.vanished and seg.mask.any():  # a front that vanished leaves the label without an outline
+            session.add_outline(runner.front(), label=label.index, slice=0, record={
+                "model": model, "parameters": dict(seg.params), "seeds": [list(structure.seed)],
+                "steps": int(seg.steps), "timings": seconds(dict(seg.timings)),
+                "notes": f"{'converged' if seg.converged else 'not converged'}; Dice {score:.4f} against the "
+                         f"phantom's truth label {structure.truth_label}",
+            }, details={"command": PROG, "seeds": [list(structure.seed)], "model": model, "steps": int(seg.steps),
+                        "converged": bool(seg.converged)})
         outlines.append((seg.contours, structure.color, f"{structure.name}  Dice {score:.3f}"))
-    table = [{"index": i, "name": s.name, "color": s.color} for i, s in enumerate(STRUCTURES, start=1)]
-    provenance = {
-        "operator": operator,
-        "description": f"{PROG}: two outlines on an invented abdomen phantom slice (no patient).",
-        "manual": False,
-        "labels": records,
-        "history": history,
-    }
     interrupts.check()
-    paths = save_result(folder / "abdomen", labels, volume, label_table=table, provenance=provenance,
-                        checkpoint=interrupts.check)
+    paths = session.save(str(folder / "abdomen"), checkpoint=interrupts.check,
+                         description=f"{PROG}: two outlines on an invented abdomen phantom slice (no patient).")
     overlay_path = folder / "overlay.png"
     summary_path = folder / "summary.json"
     wall = time.perf_counter() - wall0

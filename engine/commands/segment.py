@@ -61,8 +61,12 @@ from engine.commands.segment_options import PROG, Settings, UsageError, parse_se
 from engine.commands.segment_options import add_arguments, one_line_errors  # noqa: F401 - the verb's interface
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
+    from engine.front import Front
     from engine.io import Volume
     from engine.segment import Segmentation
+    from engine.segmenter import Segmenter
     from engine.setting_limits import SettingLimitError
 
 HELP = "grow a front from seed disks on one slice and save the outline"
@@ -295,18 +299,36 @@ def run(args: argparse.Namespace) -> int:
         return fail(_one_line(exc))
 
 
-def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
-            path: str) -> tuple["Segmentation", list[str]]:
-    """:func:`engine.segment.segment` with a bar, Ctrl-C taken at the end of a step, and CLI messages.
+def save_through_session(settings: Settings, volume: "Volume", front: "Front", prov: dict, *, slice_index: int,
+                         checkpoint: Callable[[], None] | None = None) -> dict[str, Path]:
+    """Save the outline as the window and a batch do: one label of a :class:`engine.session.Session`,
+    the outline committed as a ``segment`` command whose details are the run's, the record built there."""
+    from engine.io.sidecar import OKABE_ITO
+    from engine.session import Session
 
-    Returns the result and the library's warnings as notes (one line each);
+    session = Session(volume, operator=settings.operator)
+    label = session.add_label(settings.label, OKABE_ITO[0])
+    (record,) = prov["labels"][0]["slices"]
+    (entry,) = prov["history"]
+    session.add_outline(front, label=label.index, slice=slice_index,
+                        record={k: v for k, v in record.items() if k != "slice"}, details=entry["details"])
+    return session.save(settings.out, dicom_seg=settings.dicom_seg, new_version=settings.new_version,
+                        description=prov["description"], checkpoint=checkpoint)
+
+
+def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
+            path: str) -> tuple["Segmentation", "Segmenter", list[str]]:
+    """:func:`engine.segment.segment`'s loop with a bar, Ctrl-C taken at the end of a step, and CLI messages.
+
+    Returns the result, the runner (whose front the session commits) and the
+    library's warnings as notes (one line each);
     that open contours leave the band is expected where the outline meets
     the image's border, and left out there.
     """
     from engine.commands import interrupts
     from engine.contours import BandCutWarning
     from engine.front import FrontVanished
-    from engine.segment import segment
+    from engine.segmenter import Segmenter
     from engine.setting_limits import SettingLimitError
 
     bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr) if wants_progress(
@@ -320,9 +342,11 @@ def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            seg = segment(image, list(settings.seeds), spacing=spacing, model=settings.model,
-                          max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse,
-                          nodes=settings.nodes, progress=on_step, **settings.params)
+            runner = Segmenter(image, list(settings.seeds), spacing=spacing, model=settings.model,
+                               max_steps=settings.max_steps, detail=settings.detail, coarse=settings.coarse,
+                               nodes=settings.nodes, **settings.params)
+            runner.run(progress=on_step)
+            seg = runner.result()
     except SettingLimitError as exc:
         raise UsageError(_limit_message(exc, path)) from None
     except FrontVanished as exc:
@@ -340,7 +364,7 @@ def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
         text = " ".join(str(w.message).split())
         if not (at_border and issubclass(w.category, BandCutWarning)) and text not in notes:
             notes.append(text)
-    return seg, notes
+    return seg, runner, notes
 
 
 def _run(settings: Settings) -> int:
@@ -377,7 +401,7 @@ def _run(settings: Settings) -> int:
     if not settings.png:  # refuse before a long run what the save would refuse after it
         check_replaceable(settings.out, new_version=settings.new_version)
     spacing = (float(volume.spacing[1]), float(volume.spacing[2]))
-    seg, notes = _evolve(settings, image, spacing, path)
+    seg, runner, notes = _evolve(settings, image, spacing, path)
     failure = outline_failure(seg)
     if failure and not settings.save_anyway:
         note = _border_seed_note(settings.seeds, image.shape)
@@ -389,12 +413,16 @@ def _run(settings: Settings) -> int:
     if settings.png:
         written.append(write_png_mask(settings.out, seg.mask, checkpoint=interrupts.check))
     else:
-        table = [{"index": 1, "name": settings.label, "abbreviation": settings.label, "color": OKABE_ITO[0]}]
         extra = {"load_s": load_s, "wall_s": time.perf_counter() - wall0}
         prov = provenance(settings, seg, slice_index=k, extra_timings=extra)
-        paths = save_result(settings.out, seg.mask.astype(np.uint8), volume, label_table=table, provenance=prov,
-                            dicom_seg=settings.dicom_seg, slice_index=k, new_version=settings.new_version,
-                            checkpoint=interrupts.check)
+        if failure:  # --save-anyway: there is no outline to commit, only the mask as it ended
+            table = [{"index": 1, "name": settings.label, "abbreviation": settings.label, "color": OKABE_ITO[0]}]
+            paths = save_result(settings.out, seg.mask.astype(np.uint8), volume, label_table=table,
+                                provenance=prov, dicom_seg=settings.dicom_seg, slice_index=k,
+                                new_version=settings.new_version, checkpoint=interrupts.check)
+        else:
+            paths = save_through_session(settings, volume, runner.front(), prov, slice_index=k,
+                                         checkpoint=interrupts.check)
         written.extend(paths.values())
     wall = time.perf_counter() - wall0
     n = volume.shape[0]

@@ -85,13 +85,15 @@ def provenance_record(session: "Session", *, operator: str | None = None,
 def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: bool = False,
                  operator: str | None = None, new_version: bool = False,
                  include_patient_identifiers: bool = False, description: str | None = None,
-                 now: str | None = None, history_entry: Mapping[str, Any] | None = None) -> dict[str, Path]:
+                 now: str | None = None, history_entry: Mapping[str, Any] | None = None,
+                 checkpoint: Callable[[], None] | None = None) -> dict[str, Path]:
     """Save the session's committed outlines as the result ``out`` (= ``DIR/NAME``).
 
     The live front is not saved until it is committed. ``history_entry``
     (``{"action": ..., "details": {...}}``) is one more entry of the saved
     history, after the session's commands: how the session was driven (a
-    batch case records its settings and figures there). Returns the paths
+    batch case records its settings and figures there). ``checkpoint`` is
+    called at the save's safe points (the command line's Ctrl-C). Returns the paths
     written (see :func:`engine.io.save_result`, whose errors it raises).
     """
     from engine.io import save_result
@@ -107,7 +109,8 @@ def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: 
         prov["history"].append(dict(history_entry))
     paths = save_result(out, label_volume(session), session.volume, label_table=table, provenance=prov,
                         dicom_seg=dicom_seg, new_version=new_version,
-                        include_patient_identifiers=include_patient_identifiers, now=now)
+                        include_patient_identifiers=include_patient_identifiers, now=now,
+                        checkpoint=checkpoint)
     session.saved_index = session.undo_index
     return paths
 

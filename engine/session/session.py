@@ -674,6 +674,32 @@ class Session:
                                 "converged": bool(front.converged)})
             return outline
 
+    def add_outline(self, front: Front, *, label: int, slice: int,  # noqa: A002
+                    record: Mapping[str, Any] | None = None, details: Mapping[str, Any] | None = None,
+                    action: str = "segment", text: str = "Grow outline") -> Outline:
+        """Commit an outline grown outside the session (e.g. by a :class:`engine.segmenter.Segmenter`
+        run headless) as one command; it replaces the label's outline on that slice.
+
+        ``front`` is a 2-D front on the slice's image; ``record`` is the
+        outline's record in the saved result (model, parameters, seeds,
+        steps, timings, notes) and ``details`` those of the history entry.
+        """
+        with self._lock:
+            self._idle()
+            self._writable(label)
+            k = self._check_slice(slice)
+            if tuple(front.shape) != tuple(self.volume.shape[1:]):
+                raise ValueError(f"front: its image is {tuple(front.shape)}, the study's slices are "
+                                 f"{tuple(self.volume.shape[1:])}")
+            self._settle_live(label, k)
+            if record is None:
+                record = {"model": front.params.model, "parameters": dict(front.params.as_dict(), detail=front.detail),
+                          "steps": int(front.steps), "notes": _notes(front, "seeds")}
+            outline = outline_from_front(label, k, front, record=record)
+            after = self._stack.state.with_outlines({(label, k): outline})
+            self._push(text, action, after, label=label, slice_index=k, details=details)
+            return outline
+
     def carry(self, to_slice: int, *, label: int, from_slice: int | None = None) -> None:
         """Start a front on ``to_slice`` from the label's outline on a neighbouring slice.
 
