@@ -72,14 +72,17 @@ def test_zero_row_array_is_called_empty(tmp_path, capsys):
 
 
 def test_seed_at_the_corner_is_said_to_be_on_the_border(tmp_path, capsys):
-    path = tmp_path / "disk.png"
-    rr, cc = np.indices((96, 96))
-    Image.fromarray(np.where((rr - 48) ** 2 + (cc - 44) ** 2 < 400, 180, 60).astype(np.uint8)).save(path)
+    # Noise only: the flood finds no boundary and gives the seed back, whose
+    # disk is cut by the border. (Beside a structure, a corner click floods
+    # the background around it: an outline of what is there.)
+    path = tmp_path / "noise.png"
+    rng = np.random.default_rng(0)
+    Image.fromarray(np.clip(60 + rng.normal(0, 10, (96, 96)), 0, 255).astype(np.uint8)).save(path)
     rc = main(["segment", str(path), "--seed", "0,0,3", "--out", str(tmp_path / "o")])
     lines = capsys.readouterr().err.splitlines()
     assert rc in (2, 3) and len(lines) == 1
     assert "border" in lines[0] and "too small" not in lines[0]
-    assert not any(p.name.startswith("o") for p in tmp_path.iterdir())
+    assert not any(p.name.startswith("o") for p in tmp_path.iterdir() if p != path)
 
 
 def test_out_under_a_regular_file_says_so(tmp_path, capsys):

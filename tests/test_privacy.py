@@ -42,8 +42,8 @@ def test_sidecar_holds_no_absolute_path_login_or_platform(tmp_path, picture, mon
     assert platform.platform() not in text and "Platform" not in block["Software"]
     # Inputs relative to the result's folder, so verify still finds and checks them.
     assert [f["Path"] for f in block["Input"]["Files"]] == ["../patients/Doe^Jane 1961/slice.png"]
-    assert block["History"][0]["Details"]["image"] == "../patients/Doe^Jane 1961/slice.png"
-    assert block["History"][0]["Details"]["out"] == "liver"
+    assert block["History"][-1]["Details"]["image"] == "../patients/Doe^Jane 1961/slice.png"
+    assert block["History"][-1]["Details"]["out"] == "liver"
     report = eio.verify(prefix)
     assert report.ok and any("input file" in c for c in report.checked)
 

@@ -90,3 +90,21 @@ def test_the_flood_never_enters_a_locked_label() -> None:
     mask = s.commit().mask
     assert not np.any(mask & locked)
     assert dice(mask, right & ~locked) >= 0.97
+
+
+def test_a_setting_changed_during_the_flood_hands_over_to_the_front_at_once() -> None:
+    case = gp.star()
+    s, lab = _session(case)
+    s.seed(*case.seed, label=lab, slice=0)
+    changed = []
+
+    def on_frame(frame) -> None:
+        if frame.stage == "growing" and not changed:
+            s.set_params(smoothness=2.0)  # as the window's Front dock does while the front runs
+            changed.append(frame.steps)
+
+    s.evolve(on_frame=on_frame, frame_interval=0.0)
+    assert changed and s._front.params.curvature_weight == 2.0
+    run = s.history[-1]
+    assert run.action == "evolve" and run.details["settings"]["params"]["smoothness"] == 2.0
+    assert s.frame().converged and dice(s.commit().mask, case.truth) >= 0.98

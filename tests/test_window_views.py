@@ -131,11 +131,14 @@ def test_a_setting_changed_while_the_front_evolves_reaches_it_at_once(qtbot, tmp
     open_and_wait(qtbot, w, ABDOMEN / "dicom")
     s = w.controller.session
     w.views.set_slice(16)
-    click(qtbot, w.views.main, 106, 112)  # the liver: seconds to converge
+    # the edge model has no flood: its front crosses the liver step by step, for seconds
+    w.front.model.setCurrentIndex(w.front.model.findData("edge"))
+    qtbot.waitUntil(lambda: s.settings().model == "edge", timeout=5000)
+    click(qtbot, w.views.main, 106, 112)
     qtbot.waitUntil(lambda: s.running and s.frame().steps > 2, timeout=30000)
     commands = len(s.history)
     w.front.smoothness.setValue(2.5)
-    qtbot.waitUntil(lambda: s._front.params.curvature_weight == 2.5, timeout=5000)
+    qtbot.waitUntil(lambda: s._front is not None and s._front.params.curvature_weight == 2.5, timeout=5000)
     assert s.running and len(s.history) == commands  # the running front took it: no pause, no new command
     w.actions["evolve"].trigger()  # Pause
     wait_idle(qtbot, w)
