@@ -76,6 +76,10 @@ MARGIN = 3.0
 SMOOTHINGS = (0.0, 0.5, 1.0, 1.5, 2.0, 3.0)
 #: Smoothing of the first pass (before the contrast is known).
 FIRST_SMOOTHING = 1.0
+#: Least smoothing (σ in pixels) of the homogeneity test where no side is distinct: an edge weaker
+#: than three noise deviations at the pass's smoothing (a neighbour at a tenth of the contrast)
+#: stands out once the noise is averaged over a few pixels.
+CALM_SMOOTHING = 2.0
 #: Ring pixels beyond the inside mean on the far side from the image's outside mean count only
 #: beyond this fraction of the difference of the two (noise-free images: partial-volume traces).
 FAR_SIDE = 0.05
@@ -270,7 +274,8 @@ class RegionGrowth:
         """The image smoothed by ``smoothing`` on ``box`` (filtered on the box widened by four σ, then cut)."""
         key = (smoothing, tuple((s.start, s.stop) for s in box))
         if key not in self._smoothed:
-            self._smoothed.clear()  # one smoothing and box are in use at a time
+            if len(self._smoothed) >= 2:
+                self._smoothed.clear()  # two smoothings (the pass's and the calm one) on one box at a time
             if smoothing <= 0:
                 self._smoothed[key] = self.image[box]
             else:
@@ -350,7 +355,18 @@ class RegionGrowth:
             accept &= ~distinct | (speed >= CLEAR_INSIDE)
             decided |= distinct
             weakest = np.where(distinct, np.minimum(weakest, np.abs(c_in - c_out)), weakest)
-        accept = np.where(decided, accept, np.abs(smooth - c_in) < HOMOGENEITY * noise)
+        homogeneous = np.abs(smooth - c_in) < HOMOGENEITY * noise
+        if smoothing < CALM_SMOOTHING and not decided.all():
+            # also alike on a calmer scale: a weak edge hides in the pass's noise, not in the calm image's
+            calm = self._smoothed_image(CALM_SMOOTHING, box)
+            calm_noise = max(self.noise * smoothing_factor(self._sigma_px(CALM_SMOOTHING)), 1e-12)
+            if core.sum() >= 50:
+                values = calm[core]
+                calm_noise = max(calm_noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
+            # (never stricter than a twentieth of the contrast: a noise-free image has no noise to average)
+            tolerance = max(HOMOGENEITY * calm_noise, FAR_SIDE * abs(inside_mean - outside_mean))
+            homogeneous &= np.abs(calm - _local_mean(calm, core, radius_px)) < tolerance
+        accept = np.where(decided, accept, homogeneous)
         # a pixel on an edge steeper than twice the weakest contrast around the region (where
         # nothing is distinct yet: the contrast found around the first region) is a mixture of
         # two other tissues (the rim of a bone in soft tissue passes through the organ's

@@ -19,15 +19,19 @@ import growth_phantoms as gp
 from engine.metrics import dice
 from engine.segment import segment
 
-#: Cases per family.
+#: Cases per family and draw.
 COUNT = 10
+#: Draws of each family: the first was the one the flood was developed on; the second found a
+#: weak edge at a tenth of the contrast that leaked (Dice 0.51) until the homogeneity test also
+#: looked at a calmer scale.
+DRAWS = (2024, 7)
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", list(gp.FAMILIES))
 def test_defaults_hold_on_a_random_family(name: str) -> None:
     scores, converged = [], []
-    for case in gp.family(name, COUNT):
+    for case in [c for draw in DRAWS for c in gp.family(name, COUNT, seed=draw)]:
         result = segment(case.image, [case.seed], spacing=case.spacing, max_steps=3000)
         scores.append(dice(result.mask, case.truth))
         converged.append(result.converged)
