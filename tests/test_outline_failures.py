@@ -171,3 +171,15 @@ def test_area_is_the_part_inside_the_image_when_the_outline_touches_the_border(t
     chord = np.clip(np.minimum(centre[1] + half, 95.5) - np.maximum(centre[1] - half, -0.5), 0.0, None)
     exact = float(np.sum(chord) * (x[1] - x[0])) * 0.96
     assert seg.area_mm2 == pytest.approx(exact, rel=0.02)
+
+
+def test_an_outline_at_the_border_is_saved_without_stray_warnings(tmp_path, capfd):
+    # A bright half-plane along the top rows: its outline meets the image's border,
+    # where open contours are expected; the saved result reports no warning text.
+    path = tmp_path / "edge.png"
+    rr = np.indices((96, 96))[0]
+    Image.fromarray(np.where(rr < 40, 180, 60).astype(np.uint8)).save(path)
+    rc = main(["segment", str(path), "--seed", "20,48,4", "--out", str(tmp_path / "edge")])
+    out, err = capfd.readouterr()
+    assert rc == 0 and err == "", err
+    assert "Warning" not in out and "(3840 pixels" in out  # the 40 top rows exactly

@@ -303,6 +303,7 @@ def save_through_session(settings: Settings, volume: "Volume", front: "Front", p
                          checkpoint: Callable[[], None] | None = None) -> dict[str, Path]:
     """Save the outline as the window and a batch do: one label of a :class:`engine.session.Session`,
     the outline committed as a ``segment`` command whose details are the run's, the record built there."""
+    from engine.contours import BandCutWarning
     from engine.io.sidecar import OKABE_ITO
     from engine.session import Session
 
@@ -310,8 +311,11 @@ def save_through_session(settings: Settings, volume: "Volume", front: "Front", p
     label = session.add_label(settings.label, OKABE_ITO[0])
     (record,) = prov["labels"][0]["slices"]
     (entry,) = prov["history"]
-    session.add_outline(front, label=label.index, slice=slice_index,
-                        record={k: v for k, v in record.items() if k != "slice"}, details=entry["details"])
+    with warnings.catch_warnings():
+        # reading the outline again: an open contour at the image's border was noted (or left out) already
+        warnings.simplefilter("ignore", BandCutWarning)
+        session.add_outline(front, label=label.index, slice=slice_index,
+                            record={k: v for k, v in record.items() if k != "slice"}, details=entry["details"])
     return session.save(settings.out, dicom_seg=settings.dicom_seg, new_version=settings.new_version,
                         description=prov["description"], checkpoint=checkpoint)
 
