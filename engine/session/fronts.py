@@ -21,10 +21,11 @@ from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
+from scipy import ndimage
 
 from engine.front import Front, FrontSnapshot
 from engine.front_geometry import stroke_distance
-from engine.segmenter import Segmenter
+from engine.segmenter import EXACT_WITHIN, Segmenter
 from engine.session.outline import Outline
 from engine.session.settings import FrontSettings
 
@@ -83,11 +84,20 @@ def grow_from_seeds(image: NDArray[np.floating], seeds: Sequence[Sequence[float]
 def start_from_outline(image: NDArray[np.floating], outline: Outline, spacing: Sequence[float],
                        settings: FrontSettings) -> Front:
     """A front whose zero set is a committed outline (its stored φ), e.g. on the next slice when carried."""
-    far = 3.0 * float(np.max(spacing)) * 10
+    sp = np.asarray(spacing, dtype=float)
+    far = 3.0 * float(np.max(sp)) * 10
     kwargs = _front_kwargs(settings)
     if settings.model == "window" and "window" not in settings.front_params:
-        kwargs["window"] = window_for_mask(image, spacing, outline.mask)
-    return Front.from_pixel_phi(image, outline.pixel_phi(far), spacing=spacing, **kwargs)
+        kwargs["window"] = window_for_mask(image, sp, outline.mask)
+    values = outline.pixel_phi(far)
+
+    def phi(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
+        return ndimage.map_coordinates(values, (points_mm / sp).T, order=1, mode="nearest")
+
+    # the stored φ is the committed front's signed distance: only the nodes near its zero set
+    # need Newton closest points (all of them were most of a carry's time)
+    return Front.from_function(phi, image.shape, image=image, spacing=sp, signed_distance=True,
+                               exact_within=EXACT_WITHIN * float(np.max(sp)), **kwargs)
 
 
 def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floating], radius_mm: float,
