@@ -220,3 +220,18 @@ def test_bad_arguments_name_themselves(tmp_path):
         eio.load(tmp_path / "a.npy", spacing=(1.0,))
     with pytest.raises(ValueError, match="path"):
         eio.load(12)
+
+
+def test_an_unreadable_file_is_described_by_what_it_claims_to_be(tmp_path):
+    # The kind comes from the content; the name only sharpens the message.
+    (tmp_path / "empty.png").write_bytes(b"")
+    with pytest.raises(LoadError, match=r"empty\.png: the file is empty \(0 bytes\)"):
+        eio.load(tmp_path / "empty.png")
+    (tmp_path / "noise.png").write_bytes(RNG.bytes(300))
+    with pytest.raises(LoadError, match="named as a PNG image, but its content is not one"):
+        eio.load(tmp_path / "noise.png")
+    nib.save(nib.Nifti1Image(np.ones((8, 8, 2), np.float32), np.eye(4)), tmp_path / "whole.nii.gz")
+    data = (tmp_path / "whole.nii.gz").read_bytes()
+    (tmp_path / "cut.nii.gz").write_bytes(data[: len(data) // 2])
+    with pytest.raises(LoadError, match="gzip data is damaged or cut short"):
+        eio.load(tmp_path / "cut.nii.gz")

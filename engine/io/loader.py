@@ -29,6 +29,44 @@ _UNRECOGNISED = (
 )
 
 
+#: What a file's name says it is (the content decides; the name only sharpens the message).
+_NAMED = ((".nii.gz", "a gzipped NIfTI image"), (".nii", "a NIfTI image"), (".png", "a PNG image"),
+          (".tiff", "a TIFF image"), (".tif", "a TIFF image"), (".npy", "a NumPy array"),
+          (".dcm", "a DICOM file"), (".gz", "gzipped data"))
+
+
+def _unrecognised(path: str) -> str:
+    """Why ``path`` was not read: empty, damaged gzip, or not what its name says, and what is read."""
+    try:
+        size = os.path.getsize(path)
+        with open(path, "rb") as fh:
+            gzipped = fh.read(2) == b"\x1f\x8b"
+    except OSError:
+        size, gzipped = -1, False
+    if size == 0:
+        return "the file is empty (0 bytes)"
+    name = os.path.basename(path).lower()
+    claimed = next((what for suffix, what in _NAMED if name.endswith(suffix)), None)
+    if gzipped:
+        try:
+            with gzip.open(path, "rb") as gz:
+                while gz.read(1 << 20):
+                    pass
+            reason = "its gzipped content is not an image read here"
+        except (OSError, EOFError) as exc:
+            reason = f"its gzip data is damaged or cut short ({exc})"
+    elif claimed == "a DICOM file":
+        reason = ("it has no 128-byte preamble with the 'DICM' prefix (files without file meta "
+                  "information are not read)")
+    elif claimed is not None:
+        reason = "its content is not one"
+    else:
+        return _UNRECOGNISED
+    named = f"named as {claimed}, but " if claimed is not None else ""
+    return (f"unrecognised file: {named}{reason} (read are DICOM Part 10 with its preamble, NIfTI-1/2, "
+            "PNG, TIFF and NPY, recognised by content)")
+
+
 def _nifti_magic(head: bytes) -> bool:
     if len(head) >= 348:
         for endian in "<>":
@@ -197,7 +235,7 @@ def load(
         if kind == "dicom":
             volume = _load_dicom(p, series, spacing_t, max_bytes, reporter)
         elif kind == "unknown":
-            raise LoadError(p, _UNRECOGNISED)
+            raise LoadError(p, _unrecognised(p))
         else:
             _check_single_series(p, series)
             if kind == "nifti":
@@ -222,18 +260,37 @@ def _check_single_series(path: str, series: str | int | None) -> None:
 def _load_dicom(
     path: str, series: str | int | None, spacing: tuple[float, ...] | None, max_bytes: int, reporter: _Reporter
 ) -> Volume:
-    scan = scan_path(path, tick=reporter.scan_tick)
-    stack = choose_stack(scan, series)
-    reporter.start_reading(scan.files_scanned)
-    return load_stack(
-        stack,
-        scan,
-        path=path,
-        spacing=spacing,
-        max_bytes=max_bytes,
-        tick=reporter.tick,
-        on_total=reporter.on_total,
-    )
+    try:
+        scan = scan_path(path, tick=reporter.scan_tick)
+        stack = choose_stack(scan, series)
+        reporter.start_reading(scan.files_scanned)
+        return load_stack(
+            stack,
+            scan,
+            path=path,
+            spacing=spacing,
+            max_bytes=max_bytes,
+            tick=reporter.tick,
+            on_total=reporter.on_total,
+        )
+    except LoadError as exc:
+        raise _named_as_given(exc, path) from None
+
+
+def _named_as_given(exc: LoadError, given: str) -> LoadError:
+    """``exc`` naming its file as the user wrote the path (a file found in a folder: under that folder's name)."""
+    if exc.path is None or os.path.isabs(given):
+        return exc
+    root = os.path.abspath(given)
+    if exc.path == root:
+        named = given
+    elif exc.path.startswith(root + os.sep):
+        named = os.path.join(given, os.path.relpath(exc.path, root))
+    else:
+        return exc
+    exc.path = named
+    exc.args = (f"{named}: {exc.reason}",)
+    return exc
 
 
 def list_series(path: str | os.PathLike[str]) -> list[SeriesInfo]:
