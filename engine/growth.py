@@ -80,6 +80,8 @@ FIRST_SMOOTHING = 1.0
 #: than three noise deviations at the pass's smoothing (a neighbour at a tenth of the contrast)
 #: stands out once the noise is averaged over a few pixels.
 CALM_SMOOTHING = 2.0
+#: Share of a pixel's 5 × 5 neighbourhood alike at the pass's scale above which the calm test applies.
+WIDE_SHARE = 0.6
 #: Ring pixels beyond the inside mean on the far side from the image's outside mean count only
 #: beyond this fraction of the difference of the two (noise-free images: partial-volume traces).
 FAR_SIDE = 0.05
@@ -365,7 +367,10 @@ class RegionGrowth:
                 calm_noise = max(calm_noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
             # (never stricter than a twentieth of the contrast: a noise-free image has no noise to average)
             tolerance = max(HOMOGENEITY * calm_noise, FAR_SIDE * abs(inside_mean - outside_mean))
-            homogeneous &= np.abs(calm - _local_mean(calm, core, radius_px)) < tolerance
+            # only where most of the pixel's 5 × 5 neighbourhood is alike: the average of a strip a few
+            # pixels wide takes in its background, and the strip would stop at its first narrowing
+            wide = ndimage.uniform_filter(homogeneous.astype(float), size=5, mode="nearest") >= WIDE_SHARE
+            homogeneous &= ~wide | (np.abs(calm - _local_mean(calm, core, radius_px)) < tolerance)
         accept = np.where(decided, accept, homogeneous)
         # a pixel on an edge steeper than twice the weakest contrast around the region (where
         # nothing is distinct yet: the contrast found around the first region) is a mixture of
