@@ -21,6 +21,10 @@ calls inside:
   joins when it is within ``HOMOGENEITY`` noise deviations of the local
   inside mean (seeded region growing, Adams & Bischof 1994).
 
+Where most of a pixel's neighbourhood is alike, it must also be alike in
+the image averaged over ``CALM_SMOOTHING`` pixels: a neighbour a tenth of
+the contrast away hides in the noise of single pixels, not in that average.
+
 Means are local (Gaussian-weighted, the radius of the region model's local
 statistics); a smooth bias field slows the flood (the local mean lags
 behind it) and the level set finishes. Pixels connect through faces only (a
