@@ -3,9 +3,8 @@
 The cases are the demo studies' structures (sample_cases/*/seeds.json: 7 in
 the abdomen, 4 in the head), each seeded on its README slice (``--carry N``:
 and carried N slices either side), region model, a step limit of
-``--max-steps`` per slice (1500: the two kidneys leak through a weak edge
-with the default settings and would otherwise run to 20 000 steps), run
-with ``--force``.
+``--max-steps`` per slice (1500, a guard: every documented seed now
+converges in a few hundred steps at most), run with ``--force``.
 
 Printed:
 
