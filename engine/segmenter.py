@@ -3,15 +3,15 @@
 :class:`Segmenter` holds the stages of :func:`engine.segment.segment`:
 
 ``"growing"``
-    the flood of :mod:`engine.growth` (region and window models), one pass
+    the flood of :mod:`engine.image.growth` (region and window models), one pass
     a step: it takes the outline most of the way at pixel level;
 ``"coarse"``
     a front on the image averaged over f × f blocks, only when a block size
     is asked for (``coarse``); lowered to what the structure found by the
-    flood resolves (:func:`engine.coarse_start.resolvable_factor`);
+    flood resolves (:func:`engine.image.coarse_start.resolvable_factor`);
 ``"fine"``
     the front at full resolution, started from the flood's (or the coarse
-    front's) outline, until its outline stops moving (:mod:`engine.convergence`);
+    front's) outline, until its outline stops moving (:mod:`engine.front.convergence`);
 ``"done"``
     converged, vanished, or out of steps.
 
@@ -34,15 +34,15 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
-from engine.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds, resolvable_factor,
+from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds, resolvable_factor,
                                  upsample_phi)
-from engine.front import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS, Front, estimate_window, validate_seeds
-from engine.front_geometry import seed_disks
-from engine.growth import GROWTH_MODELS, RegionGrowth
-from engine.image_features import compute_features
-from engine.setting_limits import check_limits
-from engine.speeds import FrontParams
-from engine.thickness import THIN_LENGTH, thin_length
+from engine.front.core import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS, Front, estimate_window, validate_seeds
+from engine.front.geometry import seed_disks
+from engine.image.growth import GROWTH_MODELS, RegionGrowth
+from engine.image.features import compute_features
+from engine.validation.limits import check_limits
+from engine.front import FrontParams
+from engine.image.thickness import THIN_LENGTH, thin_length
 
 if TYPE_CHECKING:
     from engine.segment import Segmentation
@@ -56,11 +56,11 @@ START_BEYOND = 0.1
 #: The fine front's nodes within this many pixels of the flood's outline get Newton closest-point
 #: distances; those farther keep the distance between pixel centres.
 EXACT_WITHIN = 2.5
-#: Lattice nodes per pixel for a structure with a thin part (:func:`engine.thickness.thin_length`).
+#: Lattice nodes per pixel for a structure with a thin part (:func:`engine.image.thickness.thin_length`).
 THIN_DETAIL = 2
 #: Default step budget (flood passes, coarse and fine steps together).
 DEFAULT_MAX_STEPS = 20000
-#: Keyword arguments of :func:`engine.segment.segment` besides :class:`engine.speeds.FrontParams`' fields.
+#: Keyword arguments of :func:`engine.segment.segment` besides :class:`engine.front.speeds.FrontParams`' fields.
 LAYOUT_OPTIONS = ("finest", "coarsest", "node_set")
 
 
@@ -157,7 +157,7 @@ class Segmenter:
 
     @property
     def converged(self) -> bool:
-        """True once the full-resolution outline stopped moving (:mod:`engine.convergence`)."""
+        """True once the full-resolution outline stopped moving (:mod:`engine.front.convergence`)."""
         return self._fine is not None and self.stage == "done" and bool(self._fine.converged)
 
     @property
@@ -428,14 +428,14 @@ class Segmenter:
         if self._fine is not None:
             return self._fine.area_mm2()
         if self._image.ndim == 2:
-            from engine.contours import signed_area
+            from engine.analysis.contours import signed_area
 
             return float(sum(signed_area(c * self._spacing) for c in self.contours()))
         return float(self.mask().sum() * np.prod(self._spacing))
 
     def perimeter_mm(self) -> float:
         """Length of the outlines (2-D, mm)."""
-        from engine.contours import polyline_length
+        from engine.analysis.contours import polyline_length
 
         return float(sum(polyline_length(c * self._spacing) for c in self.contours()))
 

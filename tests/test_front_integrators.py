@@ -8,7 +8,7 @@ from test_front_analytic import circle_sd, mean_radius
 from test_front_segmentation import disk_image
 
 from engine.front import Front
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 
 
 def ssp_rk3_real_limit() -> float:

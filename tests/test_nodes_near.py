@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-import engine.front_geometry as front_geometry
-from engine.front_geometry import crossing_points, grid_crossing_points, nodes_near
+import engine.front.geometry as front_geometry
+from engine.front.geometry import crossing_points, grid_crossing_points, nodes_near
 
 
 def reference(centres: np.ndarray, step: np.ndarray, radius: float, upper: np.ndarray) -> np.ndarray:

@@ -119,7 +119,7 @@ def test_sigmas_beyond_the_image_are_refused_before_any_work(name):
 
 
 def test_pixels_far_from_square_are_refused():
-    from engine.setting_limits import MAX_ANISOTROPY
+    from engine.validation.limits import MAX_ANISOTROPY
 
     with pytest.raises(ValueError, match="spacing"):
         segment(disk_image(), [(32.0, 30.0, 4.0)], spacing=(1.0, 10.0))

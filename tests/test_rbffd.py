@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from scipy.interpolate import RBFInterpolator
 
-from engine.lattice import lattice_operators, symmetric_offsets
-from engine.polynomials import monomial_exponents
-from engine.rbffd import knn_stencils, operator_matrix, stencil_weights
+from engine.nodes.lattice import lattice_operators, symmetric_offsets
+from engine.numerics.polynomials import monomial_exponents
+from engine.numerics.rbffd import knn_stencils, operator_matrix, stencil_weights
 
 RNG_SEED = 20261201
 
@@ -238,7 +238,7 @@ def test_band_stencil_rescaled_from_the_unit_step_equals_a_direct_solve(step: tu
     # Polyharmonic-spline + polynomial RBF-FD weights are scale-covariant
     # (Flyer, Fornberg, Bayona & Barnett, J. Comput. Phys. 321 (2016) 21-38):
     # the rescaled stencil must equal the one solved on the step itself.
-    from engine.band_stencils import _make_band_stencil, band_stencil
+    from engine.nodes.band_stencils import _make_band_stencil, band_stencil
 
     direct = _make_band_stencil(step)
     scaled = band_stencil(step)

@@ -1,4 +1,4 @@
-"""Tests for engine.scattered_nodes.
+"""Tests for engine.nodes.scattered_nodes.
 
 External references used here:
 - Fornberg & Flyer, Comput. Math. Appl. 69 (2015) 531-544 (the 2-D algorithm;
@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-from engine.scattered_nodes import (
+from engine.nodes.scattered_nodes import (
     DENSITY_2D,
     DENSITY_3D,
     knn_stencils,

@@ -63,7 +63,7 @@ from engine.commands.segment_options import add_arguments, one_line_errors  # no
 if TYPE_CHECKING:
     from engine.io import Volume
     from engine.segment import Segmentation
-    from engine.setting_limits import SettingLimitError
+    from engine.validation.limits import SettingLimitError
 
 HELP = "grow a front from seed disks on one slice and save the outline"
 
@@ -304,10 +304,10 @@ def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
     the image's border, and left out there.
     """
     from engine.commands import interrupts
-    from engine.contours import BandCutWarning
+    from engine.analysis.contours import BandCutWarning
     from engine.front import FrontVanished
     from engine.segment import segment
-    from engine.setting_limits import SettingLimitError
+    from engine.validation.limits import SettingLimitError
 
     bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr) if wants_progress(
         settings.progress, sys.stderr) else None

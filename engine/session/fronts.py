@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from engine.front import Front, FrontSnapshot
-from engine.front_geometry import stroke_distance
+from engine.front.geometry import stroke_distance
 from engine.session.outline import Outline
 from engine.session.settings import FrontSettings
 
@@ -91,8 +91,8 @@ def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floatin
 def window_for_mask(image: NDArray[np.floating], spacing: Sequence[float], mask: NDArray[np.bool_]
                     ) -> tuple[float, float]:
     """The intensity window the window model estimates from the pixels of ``mask``."""
-    from engine.front import estimate_window_from_mask
-    from engine.image_features import compute_features
+    from engine.front.core import estimate_window_from_mask
+    from engine.image.features import compute_features
 
     feats = compute_features(np.asarray(image, dtype=float), np.asarray(spacing, dtype=float))
     return estimate_window_from_mask(feats.smoothed, np.asarray(mask, dtype=bool))

@@ -729,7 +729,7 @@ class Session:
         if self.curvature_colours and contours:
             curvature = tuple(frozen_array(front.curvature_at(c), float) for c in contours)
         sp = np.asarray(self.spacing)
-        from engine.contours import polyline_length, signed_area
+        from engine.analysis.contours import polyline_length, signed_area
 
         area = float(sum(signed_area(c * sp) for c in contours))
         perimeter = float(sum(polyline_length(c * sp) for c in contours))

@@ -9,7 +9,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import ndimage
 
-from engine.lattice import LatticeLookup
+from engine.nodes.lattice import LatticeLookup
 
 
 def ball_offsets(step: NDArray[np.floating], radius: float) -> NDArray[np.int64]:

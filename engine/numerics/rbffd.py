@@ -32,8 +32,8 @@ import scipy.sparse as sp
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
-from engine.kernels import check_phs, phs_derivative, phs_laplacian_power
-from engine.polynomials import (
+from engine.numerics.kernels import check_phs, phs_derivative, phs_laplacian_power
+from engine.numerics.polynomials import (
     Terms,
     apply_to_monomials,
     laplacian_power_terms,

@@ -42,7 +42,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 MODELS = ("region", "edge", "window", "curvature", "constant")
-#: Time integrators of a front step (:mod:`engine.time_stepping`).
+#: Time integrators of a front step (:mod:`engine.numerics.time_stepping`).
 INTEGRATORS = ("rkl2", "ssp_rk3")
 
 
@@ -115,7 +115,7 @@ class FrontParams:
         the symmetric 3-D lattice patterns jump from 57 to 81 nodes, and 57
         already resolves degree 4 with a well-behaved curvature operator.
         """
-        from engine.polynomials import monomial_count
+        from engine.numerics.polynomials import monomial_count
 
         if self.stencil_size is not None:
             return int(self.stencil_size)

@@ -6,7 +6,7 @@ negative inside) at them, the time, a pixel-resolution inside/outside image
 region statistics, pins and barriers, and the settings.
 
 One step is Runge–Kutta–Legendre super time stepping (RKL2, Meyer, Balsara &
-Aslam, J. Comput. Phys. 257 (2014) 594-626; see :mod:`engine.time_stepping`) of
+Aslam, J. Comput. Phys. 257 (2014) 594-626; see :mod:`engine.numerics.time_stepping`) of
 
     φ_t = −V |∇φ|_G + a κ |∇φ|
 
@@ -21,7 +21,7 @@ nodes at the band's edge, whose stencil is incomplete, take the rate of the
 node nearest to their closest point on the front; that node's stencil never
 reaches the edge, so there is no feedback loop, the whole band moves as one
 and no kink forms at its edge. The image speed at the layer is averaged
-along the outline (``outline_averaging``, :mod:`engine.outline_averaging`):
+along the outline (``outline_averaging``, :mod:`engine.numerics.outline_averaging`):
 noise is pooled along the boundary, not blurred across it.
 The time step lets the front move at most ``cfl`` node spacings and the
 number of RKL2 stages grows with √(dt / dt_Euler) to keep the stiff
@@ -35,7 +35,7 @@ interpolant (Saye 2014).
 
 With ``nodes="scattered"`` (2-D and 3-D) the band is a subset of one fixed,
 edge-adaptive scattered node set per image
-(:class:`engine.node_set.ScatteredNodeSet`): band nodes are global node ids,
+(:class:`engine.nodes.node_set.ScatteredNodeSet`): band nodes are global node ids,
 each node carries its own cached RBF-FD weights (same operator columns as the
 lattice stencil), zero crossings lie on the edges of the nodes' neighbour
 graph, the pixel inside image follows φ interpolated to pixel centres, the
@@ -72,10 +72,10 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
-from engine.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
-from engine.closest_point import closest_points
-from engine.convergence import OutlineMotion
-from engine.front_geometry import (
+from engine.nodes.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
+from engine.numerics.closest_point import closest_points
+from engine.front.convergence import OutlineMotion
+from engine.front.geometry import (
     crossing_points,
     dilate_nodes,
     grid_crossing_points,
@@ -84,15 +84,15 @@ from engine.front_geometry import (
     seed_function,
     stroke_distance,
 )
-from engine.image_features import ImageFeatures, compute_features
-from engine.interpolant import LocalInterpolant
-from engine.lattice import LatticeLookup, symmetric_offsets
-from engine.node_set import ScatteredNodeSet, operator_labels
-from engine.outline_averaging import average_along_outline
-from engine.rbffd import assemble
-from engine.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
-from engine.thickness import half_width
-from engine.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
+from engine.image.features import ImageFeatures, compute_features
+from engine.numerics.interpolant import LocalInterpolant
+from engine.nodes.lattice import LatticeLookup, symmetric_offsets
+from engine.nodes.node_set import ScatteredNodeSet, operator_labels
+from engine.numerics.outline_averaging import average_along_outline
+from engine.numerics.rbffd import assemble
+from engine.front.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
+from engine.image.thickness import half_width
+from engine.numerics.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
 
 try:  # the band's small dense products run far slower with threaded BLAS
     from threadpoolctl import ThreadpoolController
@@ -194,7 +194,7 @@ class FrontSnapshot:
     time: float
     steps: int
     converged: bool
-    motion: tuple  # checkpoints of the convergence monitor (engine.convergence)
+    motion: tuple  # checkpoints of the convergence monitor (engine.front.convergence)
     params: FrontParams
     pins: NDArray[np.bool_] | None
     barrier: NDArray[np.bool_] | None
@@ -367,7 +367,7 @@ class Front:
         Every constructor takes ``nodes``: ``"lattice"`` (default; ``detail``
         lattice nodes per pixel) or ``"scattered"`` (2-D or 3-D, detail 1; in 3-D the front must not
         cross the volume's border): nodes of an
-        edge-adaptive :class:`~engine.node_set.ScatteredNodeSet`, ``finest``
+        edge-adaptive :class:`~engine.nodes.node_set.ScatteredNodeSet`, ``finest``
         mm apart near strong edges and ``coarsest`` mm in flat areas (default
         half the smallest pixel spacing and the largest pixel spacing), or
         the ``node_set`` given (to share one set between fronts on the same
@@ -876,7 +876,7 @@ class Front:
             self._update_thickness()
 
     def _update_thickness(self) -> None:
-        """Half-width of the inside behind each layer node (:mod:`engine.thickness`), for the smoothness scale."""
+        """Half-width of the inside behind each layer node (:mod:`engine.image.thickness`), for the smoothness scale."""
         b = self._band
         act = b.active[b.layer]
         grad = self._layer_derivatives(self._phi, hessian=False)[0]
@@ -1276,7 +1276,7 @@ class Front:
         speed |V| + a|κ|); the stages make the RKL2 stability interval cover
         the curvature term's spectral radius (super time stepping), and the
         step is shortened to one stage fewer's stability limit where that
-        advances more time per evaluation (:func:`engine.time_stepping.rkl2_step`).
+        advances more time per evaluation (:func:`engine.numerics.time_stepping.rkl2_step`).
         SSP-RK3 instead shortens the step to forward Euler's limit for that
         spectral radius, 2/ρ (its own real-axis limit is about 2.51/ρ).
         """
@@ -1425,7 +1425,7 @@ class Front:
         self.converged = False
 
     def _record_motion(self) -> None:
-        """Track the outline's motion (:mod:`engine.convergence`) after a step; set ``converged`` when it stopped."""
+        """Track the outline's motion (:mod:`engine.front.convergence`) after a step; set ``converged`` when it stopped."""
         monitor = self._motion_monitor()
         crossings = None
         if monitor.due(self.steps):
@@ -1627,7 +1627,7 @@ class Front:
             raise ValueError("contours() is for 2-D fronts; use surface() in 3-D")
         if self.vanished:
             return []
-        from engine.contours import band_contours
+        from engine.analysis.contours import band_contours
 
         b = self._band
         if self.node_set is None:
@@ -1641,7 +1641,7 @@ class Front:
 
     def _contour_set(self) -> tuple[list[NDArray[np.floating]], NDArray[np.bool_]]:
         """Refined contours and which are closed (open ones end on the image's border, or where the band is cut)."""
-        from engine.contours import band_contour_set
+        from engine.analysis.contours import band_contour_set
 
         b = self._band
         if self.node_set is None:
@@ -1704,10 +1704,10 @@ class Front:
         """Area (2-D, from the refined contours) or volume (3-D, voxel count) inside the front, within the image.
 
         Where the outline runs off the image, the border closes it
-        (:func:`engine.clipped_area.area_in_image`).
+        (:func:`engine.analysis.clipped_area.area_in_image`).
         """
         if self.ndim == 2 and not self.vanished:
-            from engine.clipped_area import area_in_image
+            from engine.analysis.clipped_area import area_in_image
 
             lines, closed = self._contour_set()
             inside = self.mask()
@@ -1717,7 +1717,7 @@ class Front:
 
     def perimeter_mm(self) -> float:
         """Total length of the outlines (mm), 2-D only."""
-        from engine.contours import polyline_length
+        from engine.analysis.contours import polyline_length
 
         sp = self.features.spacing
         return float(sum(polyline_length(c * sp) for c in self.contours()))
