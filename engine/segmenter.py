@@ -66,7 +66,7 @@ LAYOUT_OPTIONS = ("finest", "coarsest", "node_set")
 
 def check_names(params: dict) -> None:
     """ValueError naming a keyword that is no setting (with the nearest setting's name)."""
-    known = {f.name for f in fields(FrontParams)} - {"model", "extra"} | set(LAYOUT_OPTIONS)
+    known = {f.name for f in fields(FrontParams)} - {"model"} | set(LAYOUT_OPTIONS)
     for name in params:
         if name not in known:
             close = difflib.get_close_matches(name, sorted(known), n=1)

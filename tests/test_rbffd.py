@@ -8,7 +8,8 @@ from scipy.interpolate import RBFInterpolator
 
 from engine.nodes.lattice import lattice_operators, symmetric_offsets
 from engine.numerics.polynomials import monomial_exponents
-from engine.numerics.rbffd import knn_stencils, operator_matrix, stencil_weights
+from engine.numerics.neighbours import knn_stencils
+from engine.numerics.rbffd import operator_matrix, stencil_weights
 
 RNG_SEED = 20261201
 
@@ -42,7 +43,7 @@ def test_derivative_weights_agree_with_treverhines_rbf(dim: int) -> None:
     n = 30 if dim == 2 else 40
     points = _random_points(400, dim, seed=3)
     centers = _random_points(25, dim, seed=5) * 0.6 + 0.2
-    stencils = knn_stencils(points, centers, n)
+    stencils = knn_stencils(points, centers, k=n)
     ops: list = []
     for axis in range(dim):
         ops.append(tuple(int(axis == k) for k in range(dim)))

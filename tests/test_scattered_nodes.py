@@ -21,11 +21,11 @@ from scipy.spatial import cKDTree
 from engine.nodes.scattered_nodes import (
     DENSITY_2D,
     DENSITY_3D,
-    knn_stencils,
     mask_region,
     scattered_nodes,
     spacing_quality,
 )
+from engine.numerics.neighbours import knn_stencils
 
 HEX_AREA_PER_NODE = math.sqrt(3.0) / 2.0  # times r^2 (common geometry, from memory)
 FCC_VOLUME_PER_NODE = 1.0 / math.sqrt(2.0)  # times r^3 (common geometry, from memory)

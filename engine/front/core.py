@@ -1567,11 +1567,6 @@ class Front:
         out.flags.writeable = False
         return out
 
-    @property
-    def node_pixels(self) -> NDArray[np.floating]:
-        """Pixel coordinates of the band nodes."""
-        return self._band.pixels
-
     def _to_mm(self, points_px: ArrayLike) -> NDArray[np.floating]:
         pts = np.asarray(points_px, dtype=float)
         if pts.ndim == 1:

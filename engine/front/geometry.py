@@ -12,15 +12,6 @@ from scipy import ndimage
 from engine.nodes.lattice import LatticeLookup
 
 
-def ball_offsets(step: NDArray[np.floating], radius: float) -> NDArray[np.int64]:
-    """Integer lattice offsets o with |o * step| <= radius (mm)."""
-    reach = np.floor(radius / step).astype(int)
-    axes = [np.arange(-r, r + 1) for r in reach]
-    grid = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(step))
-    keep = np.sum((grid * step) ** 2, axis=1) <= radius**2
-    return grid[keep].astype(np.int64)
-
-
 #: Largest grid (nodes) on which :func:`nodes_near` runs one distance
 #: transform; larger bounding boxes are cut into slabs along the first axis.
 DENSE_DISTANCE_LIMIT = 1 << 24
@@ -30,7 +21,7 @@ def nodes_near(centres: NDArray[np.int64], step: NDArray[np.floating], radius: f
                upper: NDArray[np.int64]) -> NDArray[np.int64]:
     """Lattice nodes within ``radius`` (mm) of any of the lattice nodes ``centres``, clipped to [0, upper].
 
-    The union of the balls :func:`ball_offsets` around every centre, in
+    The union of the balls of lattice offsets around every centre, in
     row-major order without duplicates, from exact Euclidean distance
     transforms (Maurer, Qi & Raghavan, IEEE Trans. PAMI 25(2) (2003) 265-270,
     as scipy implements it) rather than a ball of offsets per centre (in 3-D

@@ -36,7 +36,7 @@ Models
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields, replace
+from dataclasses import dataclass, fields, replace
 
 import numpy as np
 from numpy.typing import NDArray
@@ -68,7 +68,6 @@ class FrontParams:
     integrator: str = "rkl2"  # "rkl2": super time steps; "ssp_rk3": three-stage steps within every stability limit
     convergence_tol: float = 0.05  # largest outline displacement over the window, in pixel spacings
     convergence_window: int = 20  # steps
-    extra: dict = field(default_factory=dict, compare=False)
 
     def __post_init__(self) -> None:
         if self.model not in MODELS:
@@ -141,7 +140,7 @@ class FrontParams:
 
     def as_dict(self) -> dict:
         """Plain values for provenance records."""
-        out = {f.name: getattr(self, f.name) for f in fields(self) if f.name != "extra"}
+        out = {f.name: getattr(self, f.name) for f in fields(self)}
         out["smoothness"] = self.curvature_weight
         if self.window is not None:
             out["window"] = list(self.window)

@@ -4,6 +4,7 @@ Each module has one job; the names a caller needs are re-exported here.
 
 - ``polynomials``: monomial bases and their derivatives
 - ``kernels``: polyharmonic splines r^m and the operators applied to them
+- ``neighbours``: the k nearest nodes of each centre (stencils)
 - ``rbffd``: batched RBF-FD weights and sparse operator matrices
 - ``interpolant``: value, gradient and Hessian of φ at any point
 - ``closest_point``: Newton closest points on the zero set, signed distance
@@ -14,6 +15,7 @@ Each module has one job; the names a caller needs are re-exported here.
 from engine.numerics.closest_point import ClosestPoints, closest_points, signed_distance
 from engine.numerics.interpolant import LocalInterpolant
 from engine.numerics.kernels import check_phs, phs_derivative, phs_laplacian_power, phs_value
+from engine.numerics.neighbours import knn_stencils
 from engine.numerics.outline_averaging import average_along_outline
 from engine.numerics.polynomials import monomial_count, monomial_exponents, monomial_values
 from engine.numerics.rbffd import Operator, assemble, operator_matrix, parse_operator, stencil_weights
@@ -23,6 +25,7 @@ __all__ = [
     "ClosestPoints", "closest_points", "signed_distance",
     "LocalInterpolant",
     "check_phs", "phs_derivative", "phs_laplacian_power", "phs_value",
+    "knn_stencils",
     "average_along_outline",
     "monomial_count", "monomial_exponents", "monomial_values",
     "Operator", "assemble", "operator_matrix", "parse_operator", "stencil_weights",
