@@ -24,25 +24,24 @@ evolving state.
 
 from __future__ import annotations
 
-import difflib
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import fields
 from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
-from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds, resolvable_factor,
-                                 upsample_phi)
-from engine.front.core import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS, Front, estimate_window, validate_seeds
-from engine.front.geometry import seed_disks
-from engine.image.growth import GROWTH_MODELS, RegionGrowth
-from engine.image.features import compute_features
-from engine.validation.limits import check_limits
 from engine.front import FrontParams
+from engine.front.core import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS, Front, estimate_window
+from engine.front.geometry import seed_disks
+from engine.front.speeds import SETTING_NAMES
+from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds,
+                                       resolvable_factor, upsample_phi)
+from engine.image.features import compute_features
+from engine.image.growth import GROWTH_MODELS, RegionGrowth
 from engine.image.thickness import THIN_LENGTH, thin_length
+from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 
 if TYPE_CHECKING:
     from engine.segment import Segmentation
@@ -64,16 +63,6 @@ DEFAULT_MAX_STEPS = 20000
 LAYOUT_OPTIONS = ("finest", "coarsest", "node_set")
 
 
-def check_names(params: dict) -> None:
-    """ValueError naming a keyword that is no setting (with the nearest setting's name)."""
-    known = {f.name for f in fields(FrontParams)} - {"model"} | set(LAYOUT_OPTIONS)
-    for name in params:
-        if name not in known:
-            close = difflib.get_close_matches(name, sorted(known), n=1)
-            hint = f"; did you mean {close[0]}?" if close else ""
-            raise ValueError(f"{name}: not a setting of segment(){hint}")
-
-
 class Segmenter:
     """Image and seeds to an outline, step by step (see module docstring).
 
@@ -86,7 +75,7 @@ class Segmenter:
                  model: str = "region", max_steps: int | None = None, detail: int = 1, coarse: int | None = None,
                  nodes: str = "lattice", **params: object) -> None:
         t0 = time.perf_counter()
-        check_names(params)
+        check_names(params, SETTING_NAMES | set(LAYOUT_OPTIONS), "segment()")
         if max_steps is not None and (isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer))
                                       or max_steps < 1):
             raise ValueError(f"max_steps must be a whole number >= 1 (or None for 20 000), got {max_steps!r}")
@@ -102,9 +91,7 @@ class Segmenter:
             raise ValueError(f"coarse start is for lattice nodes; use coarse=1 with nodes='scattered', got {coarse!r}")
         if coarse is not None and not (isinstance(coarse, (int, np.integer)) and int(coarse) in BLOCK_SIZES):
             raise ValueError(f"coarse must be 1, 2, 4 or 8, got {coarse!r}")
-        sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
-        if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
-            raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+        sp = check_spacing(spacing, img.ndim)
         check_limits(img.shape, sp, params)
         settings = FrontParams(model=model, **params)  # validates every setting once, here
         self._image, self._spacing, self._model, self._detail, self._nodes = img, sp, model, detail, nodes

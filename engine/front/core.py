@@ -47,6 +47,18 @@ interpolant's zero set. In 3-D a scattered front must not cross the
 volume's border (refused: the scheme is not stable there yet). The coarse
 start of :func:`engine.segment.segment` stays lattice-only.
 
+Threads: one thread (a worker) owns the stepping and the edits; any other
+thread may call the read-outs (:meth:`Front.contours`, :meth:`Front.mask`,
+:meth:`Front.pixel_phi`, :meth:`Front.area_mm2`, :meth:`Front.perimeter_mm`,
+:meth:`Front.curvature_at`, :meth:`Front.phi_at`, :meth:`Front.snapshot`)
+at any time. Every public method holds the front's lock, and
+:meth:`Front.step` takes it once per step, so a reader sees whole steps only
+and waits at most one step. Read-outs never change the state (φ, band, inside
+image, sums, time, steps, pins, barrier); they may fill caches derived from
+it, such as the interpolant's coefficients, which depend on φ alone. Plain
+attributes (``steps``, ``time``, ``converged``) may be read without the lock;
+a consistent set of them comes from :meth:`Front.snapshot`.
+
 References
 ----------
 .. [1] D. Adalsteinsson, J. A. Sethian, "A fast level set method for
@@ -60,9 +72,11 @@ References
 
 from __future__ import annotations
 
+import threading
 import time as _time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+import functools
 from functools import lru_cache
 
 import numpy as np
@@ -72,8 +86,6 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
-from engine.nodes.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
-from engine.numerics.closest_point import closest_points
 from engine.front.convergence import OutlineMotion
 from engine.front.geometry import (
     crossing_points,
@@ -84,15 +96,18 @@ from engine.front.geometry import (
     seed_function,
     stroke_distance,
 )
+from engine.front.speeds import SETTING_NAMES, FrontParams, NodeSpeeds, needed_features, node_speeds
 from engine.image.features import ImageFeatures, compute_features
-from engine.numerics.interpolant import LocalInterpolant
+from engine.image.thickness import half_width
+from engine.nodes.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
 from engine.nodes.lattice import LatticeLookup, symmetric_offsets
 from engine.nodes.node_set import ScatteredNodeSet, operator_labels
+from engine.numerics.closest_point import closest_points
+from engine.numerics.interpolant import LocalInterpolant
 from engine.numerics.outline_averaging import average_along_outline
 from engine.numerics.rbffd import assemble
-from engine.front.speeds import FrontParams, NodeSpeeds, needed_features, node_speeds
-from engine.image.thickness import half_width
 from engine.numerics.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
+from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 
 try:  # the band's small dense products run far slower with threaded BLAS
     from threadpoolctl import ThreadpoolController
@@ -178,6 +193,17 @@ TREE_WORKERS = 2
 NODE_LAYOUTS = ("lattice", "scattered")
 
 
+def _locked(method: Callable) -> Callable:
+    """Run ``method`` holding the front's lock (see the module docstring's threading contract)."""
+
+    @functools.wraps(method)
+    def locked(self: "Front", *args: object, **kwargs: object) -> object:
+        with self._lock:
+            return method(self, *args, **kwargs)
+
+    return locked
+
+
 class FrontVanished(ValueError):
     """The zero set disappeared (the outline shrank to nothing or filled the image)."""
 
@@ -204,6 +230,7 @@ class FrontSnapshot:
     layer: tuple[NDArray, ...] = ()  # layer, source, edge_source and layer_phi of the last refresh
     thickness: NDArray[np.floating] | None = None  # half-width behind each layer node at the last refresh
     rest_reinitialised: bool = False  # reinitialised once already at the present rest
+    noise: float | None = None  # robust std of the smoothed intensities inside the initial front (region model)
 
     @property
     def nbytes(self) -> int:
@@ -248,7 +275,6 @@ class _Band:
     thickness: NDArray[np.floating] | None = None  # half-width (mm) of the inside behind each layer node
 
 
-@dataclass
 class Front:
     """A level-set front on one 2-D slice or one 3-D volume (see module docstring).
 
@@ -257,31 +283,45 @@ class Front:
     3-D); φ and distances are in mm.
     """
 
-    features: ImageFeatures
-    params: FrontParams
-    detail: int
-    step_mm: NDArray[np.floating]
-    stencil: BandStencil | None  # the lattice band stencil (None on scattered nodes: each node has its own weights)
-    time: float = 0.0
-    steps: int = 0
-    converged: bool = False
-    timings: dict = field(default_factory=lambda: {"step": 0.0, "rebuild": 0.0, "rebuilds": 0})
-    _phi: NDArray[np.floating] = field(default=None, repr=False)  # type: ignore[assignment]
-    _phi_at_rebuild: NDArray[np.floating] = field(default=None, repr=False)  # type: ignore[assignment]
-    _band: _Band = field(default=None, repr=False)  # type: ignore[assignment]
-    _inside: NDArray[np.bool_] = field(default=None, repr=False)  # type: ignore[assignment]
-    _sums: list = field(default_factory=lambda: [0.0, 0.0, 0.0, 0.0], repr=False)
-    _outline: OutlineMotion | None = field(default=None, repr=False)
-    _pins: NDArray[np.bool_] | None = field(default=None, repr=False)
-    _barrier: NDArray[np.bool_] | None = field(default=None, repr=False)
-    _coeffs: NDArray[np.floating] | None = field(default=None, repr=False)
-    node_set: ScatteredNodeSet | None = field(default=None, repr=False)  # scattered nodes (None: lattice)
-    _node_sets: dict = field(default_factory=dict, repr=False)  # node sets per (stencil size, degree, phs)
+    def __init__(self, features: ImageFeatures, params: FrontParams, detail: int, step_mm: NDArray[np.floating],
+                 stencil: BandStencil | None, *, node_set: ScatteredNodeSet | None = None) -> None:
+        self.features = features
+        self.params = params
+        self.detail = detail
+        self.step_mm = step_mm
+        self.stencil = stencil  # the lattice band stencil (None on scattered nodes: each node has its own weights)
+        self.node_set = node_set  # scattered nodes (None: lattice)
+        self.time = 0.0
+        self.steps = 0
+        self.converged = False
+        self.timings: dict = {"step": 0.0, "rebuild": 0.0, "rebuilds": 0}
+        self._phi: NDArray[np.floating] = None  # type: ignore[assignment]
+        self._phi_at_rebuild: NDArray[np.floating] = None  # type: ignore[assignment]
+        self._band: _Band = None  # type: ignore[assignment]
+        self._inside: NDArray[np.bool_] = None  # type: ignore[assignment]
+        self._sums: list = [0.0, 0.0, 0.0, 0.0]
+        self._outline: OutlineMotion | None = None
+        self._pins: NDArray[np.bool_] | None = None
+        self._barrier: NDArray[np.bool_] | None = None
+        self._coeffs: NDArray[np.floating] | None = None
+        self._node_sets: dict = {}  # node sets per (stencil size, degree, phs)
+        # held by every method that reads or changes the state (see the module docstring)
+        self._lock = threading.RLock()
+
+    def __repr__(self) -> str:
+        size = "×".join(str(s) for s in self.shape)
+        layout = f"lattice detail {self.detail}" if self.node_set is None else "scattered"
+        nodes = 0 if self._phi is None else len(self._phi)
+        status = "vanished" if self.vanished else "converged" if self.converged else "moving"
+        return (f"<Front {self.ndim}-D {size}, {self.params.model}, {layout}, {nodes} nodes, "
+                f"step {self.steps}, t={self.time:.4g}, {status}>")
 
     # ------------------------------------------------------------------ build
     @classmethod
     def _create(cls, image: ArrayLike | None, shape: Sequence[int] | None, spacing: ArrayLike | None,
-                model: str, detail: int, params: dict, layout: dict | None = None) -> "Front":
+                model: str, detail: int, params: dict, layout: dict | None = None, *,
+                where: str = "Front") -> "Front":
+        check_names(params, SETTING_NAMES, where)
         if image is None:
             if shape is None:
                 raise ValueError("shape is required when no image is given")
@@ -294,9 +334,8 @@ class Front:
             raise ValueError(f"image is too small: shape {img.shape}")
         if not np.all(np.isfinite(img)):
             raise ValueError("image contains NaN or infinite values")
-        sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
-        if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
-            raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+        sp = check_spacing(spacing, img.ndim)
+        check_limits(img.shape, sp, params)
         if detail not in (1, 2, 4):
             raise ValueError(f"detail must be 1, 2 or 4, got {detail!r}")
         layout = dict(layout or {})
@@ -381,7 +420,8 @@ class Front:
                 raise ValueError("the window model needs an image")
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(image, shape, spacing, model, detail, params,
-                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set})
+                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
+                            where="Front.from_function()")
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
             values = np.asarray(phi(points_mm), dtype=float).reshape(-1)
@@ -411,7 +451,8 @@ class Front:
         if estimate:  # placeholder until the smoothed image exists
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params,
-                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set})
+                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
+                            where="Front.from_seeds()")
         if estimate:
             front.params = front.params.updated(window=estimate_window(front.features.smoothed, seeds_arr))
         front._initialise(seed_function(seeds_arr, front.features.spacing))
@@ -432,9 +473,7 @@ class Front:
             raise ValueError(f"mask shape {m.shape} does not match image shape {img.shape}")
         if not m.any():
             raise ValueError("mask is empty: nothing to start a front from")
-        sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
-        if sp.shape != (img.ndim,):
-            raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+        sp = check_spacing(spacing, img.ndim)
         outside = ndimage.distance_transform_edt(~m, sampling=sp)
         inside = ndimage.distance_transform_edt(m, sampling=sp)
         half = 0.5 * float(np.min(sp))
@@ -467,7 +506,8 @@ class Front:
         if estimate:
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params,
-                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set})
+                            {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
+                            where="Front.from_pixel_phi()")
         sp = front.features.spacing
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
@@ -834,11 +874,7 @@ class Front:
     def _sync_inside(self) -> None:
         """Update the pixel inside image (and the region sums) at pixel-centre band nodes."""
         b = self._band
-        now = self._pixel_band_values() < 0
-        if self._barrier is not None and self.node_set is not None:
-            # scattered nodes: a pixel's φ is interpolated from nodes on both sides
-            # of a barrier's rim, so the barrier is also held on the pixels
-            now &= ~self._barrier[b.pixel_index]
+        now = self._band_pixels_inside()
         before = self._inside[b.pixel_index]
         changed = np.flatnonzero(now != before)
         if len(changed) == 0:
@@ -854,6 +890,15 @@ class Front:
         self._sums[3] -= delta_n
         self._inside[idx] = gained
 
+    def _band_pixels_inside(self) -> NDArray[np.bool_]:
+        """Which of the band's pixel centres (``_band.pixel_index``) lie inside."""
+        now = self._pixel_band_values() < 0
+        if self._barrier is not None and self.node_set is not None:
+            # scattered nodes: a pixel's φ is interpolated from nodes on both sides
+            # of a barrier's rim, so the barrier is also held on the pixels
+            now &= ~self._barrier[self._band.pixel_index]
+        return now
+
     def _pixel_band_values(self) -> NDArray[np.floating]:
         """φ at the band's pixel centres (``_band.pixel_index``)."""
         b = self._band
@@ -861,6 +906,7 @@ class Front:
             return self._phi[b.pixel_nodes]
         return b.pixel_matrix @ self._phi
 
+    @_locked
     def region_means(self) -> tuple[float, float]:
         """Global mean (smoothed) intensity inside and outside the front."""
         s_in, n_in, s_out, n_out = self._sums
@@ -1314,63 +1360,67 @@ class Front:
             self._step(int(n), dt_max)
 
     def _step(self, n: int, dt_max: float | None) -> None:
-        rk3 = self.params.integrator == "ssp_rk3"
         for _ in range(n):
-            if self.vanished:
-                self.steps += 1
-                continue
-            t0 = _time.perf_counter()
-            b = self._band
-            phi0 = self._phi
-            layer = self._layer_derivatives(phi0)
-            speeds = self._speeds(phi0, layer[0])
-            self._last_kappa_max = 0.0
-            r0 = self._full_rate(phi0, self._stage_speeds(speeds), layer, measure=True)
-            kappa_max = self._last_kappa_max
-            dt, stages = self._time_step(speeds, kappa_max)
-            if dt_max is not None and dt_max < dt:
-                dt = dt_max
-                if not rk3 and np.any(np.asarray(speeds.curvature) != 0):
-                    radius = float(np.max(speeds.curvature)) * self._spectral_radius * self._curvature_gain
-                    stages = rkl2_stages(dt, 2.0 / radius)
-            factor = speeds.relax_factor(dt)
-            if factor is not None:
-                # every term of the rate scales with the (positive) factor that relaxes
-                # the speeds, so the first rate follows without a second evaluation
-                r0[b.active] *= factor[b.source]
-                r0[b.edge_nodes] *= factor[b.edge_source]
-            stage_speeds = self._stage_speeds(speeds.relaxed(dt))
-            if rk3:
-                new = ssp_rk3(phi0, lambda p: self._full_rate(p, stage_speeds), dt, first_rate=r0)
-            else:
-                new = rkl2(phi0, lambda p: self._full_rate(p, stage_speeds), dt, stages, first_rate=r0)
-            # RKL2 combines stages with some negative weights, so hold pins and
-            # barriers on the result, not only on the rates.
-            if np.any(b.frozen):
-                new[b.frozen] = phi0[b.frozen]
-            if np.any(b.barrier):
-                new[b.barrier] = np.maximum(new[b.barrier], phi0[b.barrier])
-            self._phi = new
-            self._coeffs = None
-            self.time += dt
+            with self._lock:  # a reader waits for at most one step
+                self._one_step(dt_max)
+
+    def _one_step(self, dt_max: float | None) -> None:
+        rk3 = self.params.integrator == "ssp_rk3"
+        if self.vanished:
             self.steps += 1
-            self._record_motion()
-            self.timings["evaluations"] = self.timings.get("evaluations", 0) + stages
-            self._sync_inside()
-            if np.min(new) >= 0.0 or np.max(new) < 0.0:  # no zero crossing left
+            return
+        t0 = _time.perf_counter()
+        b = self._band
+        phi0 = self._phi
+        layer = self._layer_derivatives(phi0)
+        speeds = self._speeds(phi0, layer[0])
+        self._last_kappa_max = 0.0
+        r0 = self._full_rate(phi0, self._stage_speeds(speeds), layer, measure=True)
+        kappa_max = self._last_kappa_max
+        dt, stages = self._time_step(speeds, kappa_max)
+        if dt_max is not None and dt_max < dt:
+            dt = dt_max
+            if not rk3 and np.any(np.asarray(speeds.curvature) != 0):
+                radius = float(np.max(speeds.curvature)) * self._spectral_radius * self._curvature_gain
+                stages = rkl2_stages(dt, 2.0 / radius)
+        factor = speeds.relax_factor(dt)
+        if factor is not None:
+            # every term of the rate scales with the (positive) factor that relaxes
+            # the speeds, so the first rate follows without a second evaluation
+            r0[b.active] *= factor[b.source]
+            r0[b.edge_nodes] *= factor[b.edge_source]
+        stage_speeds = self._stage_speeds(speeds.relaxed(dt))
+        if rk3:
+            new = ssp_rk3(phi0, lambda p: self._full_rate(p, stage_speeds), dt, first_rate=r0)
+        else:
+            new = rkl2(phi0, lambda p: self._full_rate(p, stage_speeds), dt, stages, first_rate=r0)
+        # RKL2 combines stages with some negative weights, so hold pins and
+        # barriers on the result, not only on the rates.
+        if np.any(b.frozen):
+            new[b.frozen] = phi0[b.frozen]
+        if np.any(b.barrier):
+            new[b.barrier] = np.maximum(new[b.barrier], phi0[b.barrier])
+        self._phi = new
+        self._coeffs = None
+        self.time += dt
+        self.steps += 1
+        self._record_motion()
+        self.timings["evaluations"] = self.timings.get("evaluations", 0) + stages
+        self._sync_inside()
+        if np.min(new) >= 0.0 or np.max(new) < 0.0:  # no zero crossing left
+            self._vanish()
+        elif self.steps % STATISTICS_EVERY == 0 and self._layer_is_stale():
+            self._refresh_layer()
+        self.timings["step"] += _time.perf_counter() - t0
+        if self._vanished:
+            return
+        needs = self._needs_rebuild()
+        flattened = not needs and self.steps % STATISTICS_EVERY == 0 and self._has_flattened()
+        if needs or flattened:
+            try:
+                self.rebuild(reinitialise=True if flattened else None)
+            except FrontVanished:
                 self._vanish()
-            elif self.steps % STATISTICS_EVERY == 0 and self._layer_is_stale():
-                self._refresh_layer()
-            self.timings["step"] += _time.perf_counter() - t0
-            if self._vanished:
-                continue
-            needs = self._needs_rebuild()
-            flattened = not needs and self.steps % STATISTICS_EVERY == 0 and self._has_flattened()
-            if needs or flattened:
-                try:
-                    self.rebuild(reinitialise=True if flattened else None)
-                except FrontVanished:
-                    self._vanish()
 
     def _layer_drift(self, phi: NDArray[np.floating]) -> float:
         """90th percentile of ||∇φ| − 1| at the layer nodes (1 when the layer is empty)."""
@@ -1483,6 +1533,7 @@ class Front:
         """
         return max(self.band_half_width - 2.0 * self._reach_mm - 0.5 * self.h, self.h)
 
+    @_locked
     def rebuild(self, *, reinitialise: bool | None = None) -> None:
         """Move the band with the front; reinitialise φ to a signed distance when it has drifted.
 
@@ -1577,6 +1628,7 @@ class Front:
             raise ValueError("points contain NaN or infinite coordinates")
         return pts * self.features.spacing
 
+    @_locked
     def phi_at(self, points_px: ArrayLike) -> NDArray[np.floating]:
         """Signed distance (mm) to the front at pixel coordinates.
 
@@ -1597,6 +1649,7 @@ class Front:
             value[outside_band] = np.where(self._inside[tuple(px.T)], -d, d)
         return value
 
+    @_locked
     def curvature_at(self, points_px: ArrayLike) -> NDArray[np.floating]:
         """Curvature κ = ∇·(∇φ/|∇φ|) (1/mm) of the level set through each point."""
         x = self._to_mm(points_px)
@@ -1604,6 +1657,7 @@ class Front:
         _, grad, hess = interp.evaluate(x, coeffs)
         return curvature_from_derivatives(grad, hess)
 
+    @_locked
     def normals_at(self, points_px: ArrayLike) -> NDArray[np.floating]:
         """Unit outward normals ∇φ/|∇φ| at pixel coordinates, in pixel axes order (mm-based directions)."""
         x = self._to_mm(points_px)
@@ -1611,6 +1665,7 @@ class Front:
         _, grad, _ = interp.evaluate(x, coeffs, order=1)
         return grad / np.maximum(np.linalg.norm(grad, axis=1, keepdims=True), 1e-300)
 
+    @_locked
     def contours(self, *, refine: bool = True) -> list[NDArray[np.floating]]:
         """Closed sub-pixel outlines (2-D), (k, 2) pixel (row, col) arrays.
 
@@ -1648,6 +1703,7 @@ class Front:
         interp, coeffs = self._interpolant()
         return refine_polylines(found.polylines, interp, coeffs, self.features.spacing), found.closed
 
+    @_locked
     def surface(self) -> tuple[NDArray[np.floating], NDArray[np.int64]]:
         """Triangulated zero set of a 3-D front: vertices (k, 3) in voxel coordinates and faces (m, 3).
 
@@ -1675,26 +1731,32 @@ class Front:
         verts_px = (verts + lo * self.step_mm) / self.features.spacing
         return verts_px, faces.astype(np.int64)
 
+    @_locked
     def pixel_phi(self) -> NDArray[np.floating]:
         """φ (mm) at every pixel centre: band values where the band has a node there, ±(beyond the band) elsewhere.
 
         With scattered nodes the band's values are interpolated to the pixel
         centres the active nodes cover.
         """
-        if not self.vanished:
-            self._sync_inside()
-        out = np.where(self._inside, -1.0, 1.0) * (_FAR * self.band_half_width)
+        out = np.where(self._current_inside(), -1.0, 1.0) * (_FAR * self.band_half_width)
         if not self.vanished:
             b = self._band
             out[b.pixel_index] = self._pixel_band_values()
         return out
 
+    @_locked
     def mask(self) -> NDArray[np.bool_]:
         """Pixels whose centre lies inside the front (φ < 0)."""
-        if not self.vanished:
-            self._sync_inside()
-        return self._inside.copy()
+        return self._current_inside()
 
+    def _current_inside(self) -> NDArray[np.bool_]:
+        """A copy of the pixel inside image with the band's pixel centres as φ has them now."""
+        inside = self._inside.copy()
+        if not self.vanished:
+            inside[self._band.pixel_index] = self._band_pixels_inside()
+        return inside
+
+    @_locked
     def area_mm2(self) -> float:
         """Area (2-D, from the refined contours) or volume (3-D, voxel count) inside the front, within the image.
 
@@ -1710,6 +1772,7 @@ class Front:
             return area_in_image(lines, closed, self.shape, self.features.spacing, border_inside=bool(border.all()))
         return float(self._inside.sum() * np.prod(self.features.spacing))
 
+    @_locked
     def perimeter_mm(self) -> float:
         """Total length of the outlines (mm), 2-D only."""
         from engine.analysis.contours import polyline_length
@@ -1769,18 +1832,21 @@ class Front:
             raise ValueError(f"stroke radius must be > 0 pixels, got {radius!r}")
         return pts * self.features.spacing, float(radius) * float(np.min(self.features.spacing))
 
+    @_locked
     def extend(self, stroke: tuple[ArrayLike, float]) -> None:
         """Add the area swept by a brush stroke: φ ← min(φ, d_stroke)."""
         pts, radius = self._stroke(stroke)
         self._edit(lambda v, mm, px: np.minimum(v, stroke_distance(mm, pts, radius)),
                    _stroke_outline(pts, radius, self.h))
 
+    @_locked
     def trim(self, stroke: tuple[ArrayLike, float]) -> None:
         """Cut the area swept by a brush stroke out: φ ← max(φ, −d_stroke)."""
         pts, radius = self._stroke(stroke)
         self._edit(lambda v, mm, px: np.maximum(v, -stroke_distance(mm, pts, radius)),
                    _stroke_outline(pts, radius, self.h))
 
+    @_locked
     def margin(self, mm: float) -> None:
         """Grow (mm > 0) or shrink (mm < 0) the outline by a margin: φ ← φ − mm, then reinitialise."""
         if not np.isfinite(mm):
@@ -1794,6 +1860,7 @@ class Front:
             if abs(remaining) < 1e-12:
                 break
 
+    @_locked
     def keep_parts(self, points_px: ArrayLike) -> int:
         """Remove every separate part of the inside that holds none of ``points_px``; returns how many went.
 
@@ -1833,11 +1900,13 @@ class Front:
         self._edit(combine)
         return int(drop.sum())
 
+    @_locked
     def pin(self, mask: ArrayLike | None, *, replace: bool = False) -> None:
         """Freeze the front inside ``mask`` (pixel array); ``None`` clears all pins."""
         self._pins = self._merge_mask(self._pins, mask, replace, "mask")
         self._refresh_node_masks()
 
+    @_locked
     def set_barrier(self, mask: ArrayLike | None) -> None:
         """Area the front may not enter (other labels' locked outlines); ``None`` clears it."""
         self._barrier = self._merge_mask(None, mask, True, "mask")
@@ -1862,9 +1931,12 @@ class Front:
         b.frozen = self._pins[near] if self._pins is not None else np.zeros(len(b.indices), bool)
         b.barrier = self._barrier[near] if self._barrier is not None else np.zeros(len(b.indices), bool)
         b.held = None
+        if not self.vanished:
+            self._sync_inside()  # a barrier holds pixel centres too (scattered nodes)
         self.converged = False
         self._restart_convergence()
 
+    @_locked
     def set_params(self, **changes: object) -> None:
         """Change settings between steps without restarting (band settings trigger a rebuild)."""
         new = self.params.updated(**changes)
@@ -1900,6 +1972,7 @@ class Front:
         self.node_set = self._node_sets[key]
 
     # -------------------------------------------------------------- snapshots
+    @_locked
     def snapshot(self) -> FrontSnapshot:
         """Exact copy of the evolving state (band arrays and a bit-packed inside image)."""
         b = self._band
@@ -1909,8 +1982,10 @@ class Front:
                              None if b.local_out is None else b.local_out.copy(), self._since_reinit,
                              self._rebuild_drift,
                              (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()),
-                             None if b.thickness is None else b.thickness.copy(), self._rest_reinitialised)
+                             None if b.thickness is None else b.thickness.copy(), self._rest_reinitialised,
+                             self._noise)
 
+    @_locked
     def restore(self, snap: FrontSnapshot) -> None:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
         if not isinstance(snap, FrontSnapshot):
@@ -1927,6 +2002,8 @@ class Front:
             self._new_stencils(snap.params)
         self._inside = inside
         self._sums = list(snap.sums)
+        if snap.noise is not None:
+            self._noise = snap.noise
         self._install_band(snap.indices.copy(), snap.phi.copy())
         self._phi_at_rebuild = snap.phi_at_rebuild.copy()
         # the layer and statistics of the last rebuild, not recomputed from the present φ
@@ -2085,25 +2162,6 @@ def _stroke_outline(points_mm: NDArray[np.floating], radius: float, h: float) ->
         dense.append(a + (b - a) * (np.arange(1, n + 1) / n)[:, None])
     path = np.concatenate(dense)
     return (path[:, None, :] + ring[None]).reshape(-1, dim)
-
-
-def validate_seeds(seeds: Sequence[Sequence[float]], shape: tuple[int, ...]) -> NDArray[np.floating]:
-    """Seed disks as an (n, d + 1) array; ValueError naming the problem (count, NaN, radius, outside)."""
-    arr = np.asarray(seeds, dtype=float)
-    dim = len(shape)
-    if arr.ndim == 1 and arr.size == dim + 1:
-        arr = arr[None]
-    if arr.ndim != 2 or arr.shape[1] != dim + 1 or len(arr) == 0:
-        raise ValueError(f"seeds must be a list of ({'slice, ' if dim == 3 else ''}row, col, radius_px) tuples")
-    if not np.all(np.isfinite(arr)):
-        raise ValueError("seeds contain NaN or infinite values")
-    if np.any(arr[:, -1] <= 0):
-        raise ValueError("seeds: every radius must be > 0 pixels")
-    centres = arr[:, :dim]
-    if np.any(centres < -0.5) or np.any(centres > np.array(shape) - 0.5):
-        bad = int(np.flatnonzero(np.any((centres < -0.5) | (centres > np.array(shape) - 0.5), axis=1))[0])
-        raise ValueError(f"seeds: seed {bad} at {tuple(centres[bad])} lies outside the image of shape {shape}")
-    return arr
 
 
 def estimate_window(image: NDArray[np.floating], seeds: NDArray[np.floating]) -> tuple[float, float]:

@@ -255,3 +255,7 @@ def needed_features(model: str, *, edge_weight: float = 0.0) -> tuple[str, ...]:
     region = ("smoothed", "edge") if edge_weight > 0 else ("smoothed",)
     return {"region": region, "window": ("smoothed",), "edge": ("edge", "edge_gradient"),
             "curvature": (), "constant": ()}[model]
+
+
+#: Keywords that name a setting of :class:`FrontParams` (besides ``model``, which every caller takes itself).
+SETTING_NAMES = frozenset(f.name for f in fields(FrontParams)) - {"model"}
