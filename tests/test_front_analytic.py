@@ -8,7 +8,7 @@ from ellipse_reference import exact_ellipse_distance
 
 from engine.numerics.closest_point import closest_points
 from engine.front import Front
-from engine.front.geometry import crossing_points
+from engine.nodes.lattice_band import crossing_points
 
 
 def circle_sd(centre, radius):

@@ -87,25 +87,17 @@ from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
 from engine.front.convergence import OutlineMotion
-from engine.front.geometry import (
-    crossing_points,
-    dilate_nodes,
-    grid_crossing_points,
-    nodes_near,
-    seed_disks,
-    seed_function,
-    stroke_distance,
-)
+from engine.front.geometry import grid_crossing_points, seed_disks, seed_function, stroke_distance
 from engine.front.speeds import SETTING_NAMES, FrontParams, NodeSpeeds, needed_features, node_speeds
 from engine.image.features import ImageFeatures, compute_features
 from engine.image.thickness import half_width
-from engine.nodes.band_stencils import BandStencil, band_stencil, layer_labels, step_labels
-from engine.nodes.lattice import LatticeLookup, symmetric_offsets
-from engine.nodes.node_set import ScatteredNodeSet, operator_labels
+from engine.nodes.band_stencils import BandStencil, band_stencil, layer_labels
+from engine.nodes.lattice import LatticeLookup
+from engine.nodes.layout import TREE_WORKERS, Band, LatticeLayout, NodeLayout, ScatteredLayout
+from engine.nodes.node_set import ScatteredNodeSet
 from engine.numerics.closest_point import closest_points
 from engine.numerics.interpolant import LocalInterpolant
 from engine.numerics.outline_averaging import average_along_outline
-from engine.numerics.rbffd import assemble
 from engine.numerics.time_stepping import rkl2, rkl2_stages, rkl2_step, ssp_rk3
 from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 
@@ -178,17 +170,6 @@ SMALL_STRUCTURE = 8.0
 LAYER_WIDTH = 1.2
 #: Radius (mm) of the local outside statistics of the region model.
 DEFAULT_LOCAL_RADIUS = 6.0
-#: Hyperviscosity coefficient γ (mm⁴ per unit curvature weight, times the node
-#: set's per-node factor (h_i / h_ref)^6) on scattered nodes. The linear
-#: tangential curvature operator is stable without it, but the full scheme
-#: (extension velocities, rebuilds) grew grid-scale wiggles on a shrinking
-#: circle after about 70 steps with γ = 0; 0.005 already removed them and
-#: 0.01 leaves a margin while the spectral radius (hence the RKL2 stage count)
-#: stays within about 3× of the undamped one.
-SCATTERED_DAMPING = 0.01
-#: Threads of the nearest-neighbour queries (scipy runs them outside the
-#: interpreter lock; the answers do not depend on the count).
-TREE_WORKERS = 2
 #: Node layouts of the front.
 NODE_LAYOUTS = ("lattice", "scattered")
 
@@ -237,44 +218,6 @@ class FrontSnapshot:
         return int(self.indices.nbytes + self.phi.nbytes + self.phi_at_rebuild.nbytes + self.inside_bits.nbytes)
 
 
-@dataclass
-class _Band:
-    """Derived per-band arrays (rebuilt from the band indices; never part of a snapshot)."""
-
-    indices: NDArray[np.int64]
-    positions: NDArray[np.floating]  # mm
-    pixels: NDArray[np.floating]  # pixel coordinates
-    lookup: LatticeLookup
-    gather: NDArray[np.int64]  # stencil nodes of the active nodes: (n_u, A) on a lattice, (A, W) scattered
-    active: NDArray[np.int64]  # nodes evolved (complete stencil)
-    edge_nodes: NDArray[np.int64]  # nodes whose stencil is incomplete
-    layer: NDArray[np.int64]  # active nodes next to the front (indices into `active`)
-    source: NDArray[np.int64]  # per active node: the layer node nearest its closest front point
-    edge_source: NDArray[np.int64]  # the same for each edge node
-    pixel_nodes: NDArray[np.int64]  # nodes sitting on pixel centres
-    pixel_index: tuple[NDArray[np.int64], ...]  # their pixel indices
-    frozen: NDArray[np.bool_]  # per node: pinned
-    barrier: NDArray[np.bool_]  # per node: inside another label's locked outline
-    held: tuple[NDArray[np.int64], NDArray[np.int64]] | None = None  # active positions pinned, in a barrier
-    layer_phi: NDArray[np.floating] | None = None  # φ at the layer nodes when the layer was picked
-    local_in: NDArray[np.floating] | None = None
-    local_out: NDArray[np.floating] | None = None
-    interpolant: LocalInterpolant | None = None
-    # scattered nodes only (global node ids in `indices`, sorted)
-    weights: NDArray[np.floating] | None = None  # (A, W, K) per-node operator weights, columns as the lattice's
-    pixel_matrix: object | None = None  # sparse (P, N): φ at the band's pixel centres (`pixel_index`)
-    spacing: NDArray[np.floating] | None = None  # local node spacing (mm) per node
-    h_min: float = 0.0  # smallest local spacing over the active nodes (mm)
-    reach: float = 0.0  # largest stencil radius over the active nodes (mm)
-    spectral: float = 0.0  # spectral radius bound of curvature motion per unit curvature weight (1/mm²)
-    edges: NDArray[np.int64] | None = None  # (E, 2) node pairs of the neighbour graph within the band
-    step_weights: NDArray[np.floating] | None = None  # scattered: (A, W, 3d + 1) weights in step_labels order
-    layer_operators: tuple[NDArray[np.int64], NDArray[np.floating] | None] | None = None  # see _layer_derivatives
-    layer_parts: tuple[NDArray[np.int64], int] | None = None  # see _layer_parts
-    layer_pairs: NDArray[np.int64] | None = None  # see _layer_pairs
-    thickness: NDArray[np.floating] | None = None  # half-width (mm) of the inside behind each layer node
-
-
 class Front:
     """A level-set front on one 2-D slice or one 3-D volume (see module docstring).
 
@@ -283,21 +226,17 @@ class Front:
     3-D); φ and distances are in mm.
     """
 
-    def __init__(self, features: ImageFeatures, params: FrontParams, detail: int, step_mm: NDArray[np.floating],
-                 stencil: BandStencil | None, *, node_set: ScatteredNodeSet | None = None) -> None:
+    def __init__(self, features: ImageFeatures, params: FrontParams, layout: NodeLayout) -> None:
         self.features = features
         self.params = params
-        self.detail = detail
-        self.step_mm = step_mm
-        self.stencil = stencil  # the lattice band stencil (None on scattered nodes: each node has its own weights)
-        self.node_set = node_set  # scattered nodes (None: lattice)
+        self.layout = layout  # where the nodes sit (engine.nodes.layout): lattice or scattered
         self.time = 0.0
         self.steps = 0
         self.converged = False
         self.timings: dict = {"step": 0.0, "rebuild": 0.0, "rebuilds": 0}
         self._phi: NDArray[np.floating] = None  # type: ignore[assignment]
         self._phi_at_rebuild: NDArray[np.floating] = None  # type: ignore[assignment]
-        self._band: _Band = None  # type: ignore[assignment]
+        self._band: Band = None  # type: ignore[assignment]
         self._inside: NDArray[np.bool_] = None  # type: ignore[assignment]
         self._sums: list = [0.0, 0.0, 0.0, 0.0]
         self._outline: OutlineMotion | None = None
@@ -310,7 +249,7 @@ class Front:
 
     def __repr__(self) -> str:
         size = "×".join(str(s) for s in self.shape)
-        layout = f"lattice detail {self.detail}" if self.node_set is None else "scattered"
+        layout = self.layout.name + (f" detail {self.detail}" if self.detail != 1 else "")
         nodes = 0 if self._phi is None else len(self._phi)
         status = "vanished" if self.vanished else "converged" if self.converged else "moving"
         return (f"<Front {self.ndim}-D {size}, {self.params.model}, {layout}, {nodes} nodes, "
@@ -356,7 +295,7 @@ class Front:
             step_mm = sp / detail
             stencil = band_stencil(step_mm, stencil_size=fp.stencil_size_for(img.ndim), degree=fp.degree,
                                    phs=fp.phs)
-            return cls(feats, fp, detail, step_mm, stencil)
+            return cls(feats, fp, LatticeLayout(stencil, step_mm, detail, img.shape))
         if given_set is not None:
             node_set = given_set
             if not isinstance(node_set, ScatteredNodeSet):
@@ -377,8 +316,7 @@ class Front:
             size, degree, phs = _node_options(fp, img.ndim)
             node_set = ScatteredNodeSet.from_features(feats, finest=float(finest), coarsest=float(coarsest),
                                                       stencil_size=size, degree=degree, phs=phs)
-        step_mm = np.full(img.ndim, node_set.reference_spacing)
-        front = cls(feats, fp, 1, step_mm, None, node_set=node_set)
+        front = cls(feats, fp, ScatteredLayout(node_set))
         front._node_sets[_node_options(fp, img.ndim)] = node_set
         return front
 
@@ -528,18 +466,32 @@ class Front:
     @property
     def nodes(self) -> str:
         """Node layout: ``"lattice"`` or ``"scattered"``."""
-        return "lattice" if self.node_set is None else "scattered"
+        return self.layout.name
+
+    @property
+    def detail(self) -> int:
+        """Lattice nodes per pixel (1 on scattered nodes)."""
+        return self.layout.detail
+
+    @property
+    def step_mm(self) -> NDArray[np.floating]:
+        """Nominal node step per axis (mm): the lattice step, or the node set's reference spacing."""
+        return self.layout.step_mm
+
+    @property
+    def stencil(self) -> BandStencil | None:
+        """The lattice band stencil (None on scattered nodes: each node has its own weights)."""
+        return self.layout.stencil
+
+    @property
+    def node_set(self) -> ScatteredNodeSet | None:
+        """The image's scattered node set (None on a lattice)."""
+        return self.layout.node_set
 
     @property
     def h(self) -> float:
         """Smallest node spacing (mm): the lattice step, or the finest local spacing of the active scattered nodes."""
-        if self.node_set is None:
-            if self._lattice_h is None:
-                self._lattice_h = float(np.min(self.step_mm))
-            return self._lattice_h
-        if self._band is not None and self._band.h_min > 0:
-            return self._band.h_min
-        return float(np.min(self.node_set.local_spacing))
+        return self.layout.smallest_spacing(self._band)
 
     @property
     def band_half_width(self) -> float:
@@ -553,39 +505,12 @@ class Front:
     @property
     def _reach_mm(self) -> float:
         """Stencil radius in mm (largest offset times the largest step; scattered: largest over the active nodes)."""
-        if self.node_set is not None:
-            return self._band.reach
-        return self.stencil.reach * float(np.max(self.step_mm))
-
-    def _node_mm(self, keys: NDArray[np.int64]) -> NDArray[np.floating]:
-        """Positions (mm) of nodes given by lattice indices or scattered node ids."""
-        if self.node_set is None:
-            return keys * self.step_mm
-        return self.node_set.points[keys]
-
-    def _node_px(self, keys: NDArray[np.int64]) -> NDArray[np.floating]:
-        """Pixel coordinates of nodes given by lattice indices or scattered node ids."""
-        if self.node_set is None:
-            return keys / self.detail
-        return self.node_set.pixels[keys]
+        return self.layout.reach_mm(self._band)
 
     def _crossings(self, keys: NDArray[np.int64], phi: NDArray[np.floating],
                    lookup: LatticeLookup | None) -> NDArray[np.floating]:
         """Zero crossings (mm) of φ along lattice edges or the scattered nodes' neighbour graph."""
-        if self.node_set is None:
-            return crossing_points(keys, phi, self.step_mm, lookup=lookup)
-        b = self._band
-        if b is not None and b.edges is not None and keys is b.indices:
-            return _edge_crossings(self.node_set.points[keys], b.edges, phi)
-        return self.node_set.crossing_points(keys, phi)
-
-    @property
-    def _damping(self) -> float:
-        return self.stencil.damping if self.node_set is None else SCATTERED_DAMPING
-
-    @property
-    def _spectral_radius(self) -> float:
-        return self.stencil.spectral_radius if self.node_set is None else self._band.spectral
+        return self.layout.crossings(keys, phi, self._band, lookup)
 
     def _initialise(self, oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], *,
                     signed_distance: bool = False, exact_within: float | None = None,
@@ -608,10 +533,10 @@ class Front:
             raise ValueError("the initial front has no boundary inside the image")
 
         def values_at(indices: NDArray[np.int64]) -> NDArray[np.floating]:
-            return oracle(self._node_mm(indices))
+            return oracle(self.layout.positions(indices))
 
         if signed_distance:
-            nodes = self._candidate_nodes(starts, self.band_half_width)
+            nodes = self.layout.candidates(starts, self.band_half_width)
             trusted = (np.ones(len(nodes), dtype=bool) if exact_within is None
                        else np.abs(values_at(nodes)) > exact_within)
             self._build_band(starts, values_at, nodes=nodes, trusted=trusted)
@@ -620,7 +545,7 @@ class Front:
 
     # ------------------------------------------------------------- band build
     def _sign_from_pixels(self, indices: NDArray[np.int64]) -> NDArray[np.floating]:
-        px = np.rint(self._node_px(indices)).astype(np.int64)
+        px = np.rint(self.layout.pixels(indices)).astype(np.int64)
         px = np.clip(px, 0, np.array(self.shape) - 1)
         return np.where(self._inside[tuple(px.T)], -1.0, 1.0)
 
@@ -632,25 +557,7 @@ class Front:
 
     def _band_positions(self, keys: NDArray[np.int64]) -> NDArray[np.int64]:
         """Position of each node in the band, −1 where it is not in the band."""
-        b = self._band
-        if self.node_set is None:
-            return b.lookup.find(keys)
-        pos = np.minimum(np.searchsorted(b.indices, keys), len(b.indices) - 1)
-        return np.where(b.indices[pos] == keys, pos, -1)
-
-    @staticmethod
-    def _band_positions_in(ids: NDArray[np.int64], keys: NDArray[np.int64]) -> NDArray[np.int64]:
-        """Position of each of ``keys`` (any shape) in the sorted ``ids``, −1 where absent."""
-        pos = np.minimum(np.searchsorted(ids, keys), len(ids) - 1)
-        return np.where(ids[pos] == keys, pos, -1)
-
-    def _candidate_nodes(self, starts_mm: NDArray[np.floating], radius_mm: float) -> NDArray[np.int64]:
-        """Lattice nodes within ``radius_mm`` of any point of ``starts_mm`` (and inside the image)."""
-        if self.node_set is not None:
-            return self.node_set.nodes_near(starts_mm, radius_mm + float(np.max(self.step_mm)))
-        upper = (np.array(self.shape) - 1) * self.detail
-        centre = np.clip(np.rint(starts_mm / self.step_mm).astype(np.int64), 0, upper)
-        return nodes_near(centre, self.step_mm, radius_mm + float(np.max(self.step_mm)), upper)
+        return self.layout.band_positions(self._band, keys)
 
     def _build_band(self, starts_mm: NDArray[np.floating],
                     values_at: Callable[[NDArray[np.int64]], NDArray[np.floating]], *,
@@ -666,31 +573,21 @@ class Front:
         t0 = _time.perf_counter()
         width = self.band_half_width
         if nodes is None:
-            nodes = self._candidate_nodes(starts_mm, width)
+            nodes = self.layout.candidates(starts_mm, width)
         approx = values_at(nodes)
         # The zero set of the approximate values, as points on lattice edges (scattered: graph edges).
-        lookup = LatticeLookup(nodes, pad=self._lookup_pad()) if self.node_set is None else None
+        lookup = self.layout.lookup(nodes)
         starts = self._crossings(nodes, approx, lookup)
         if len(starts) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
         todo = np.arange(len(nodes)) if trusted is None else np.flatnonzero(~trusted)
         phi = approx.copy()
         if len(todo):
-            if self.node_set is None:
-                pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
-                table = lookup.around(pattern)
-                owners = np.flatnonzero(np.all(table >= 0, axis=1))
-                positions = nodes * self.step_mm
-                interp = LocalInterpolant.build(positions, table[owners], owners=owners,
-                                                degree=self.params.degree, phs=self.params.phs, translates=True,
-                                                lattice_step=self.step_mm, lattice_indices=nodes)
-                coeffs = interp.coefficients(approx)
-            else:
-                positions = self.node_set.points[nodes]
-                # Newton stays next to the zero set: interpolants there suffice
-                near_front = (cKDTree(starts).query(positions, workers=TREE_WORKERS)[0]
-                              <= 2.5 * float(np.max(self.step_mm)))
-                interp, coeffs = self._scattered_interpolant(nodes, approx, near_front)
+            positions = self.layout.positions(nodes)
+            built = self.layout.reinitialising_interpolant(nodes, approx, lookup, starts, self.params)
+            if built is None:
+                raise FrontVanished("the band is too thin for an interpolant")
+            interp, coeffs = built
             near_dist, nearest = cKDTree(starts).query(positions[todo], workers=TREE_WORKERS)
             # nodes farther than the band from every zero crossing are dropped below
             reach = near_dist <= width + 0.5 * float(np.max(self.step_mm))
@@ -714,10 +611,7 @@ class Front:
         front (approximated by its nearest zero crossing): the speed and
         curvature of the front there are the node's extension velocity.
         """
-        if self.node_set is None:
-            width: float | NDArray[np.floating] = LAYER_WIDTH * float(np.max(self.step_mm))
-        else:
-            width = LAYER_WIDTH * self.node_set.local_spacing[indices[active]]
+        width = LAYER_WIDTH * self.layout.layer_width(indices, active)
         layer = np.flatnonzero(np.abs(phi[active]) <= width)
         if len(layer) == 0:
             raise FrontVanished("the front has no node next to it; it is too small for this detail")
@@ -725,144 +619,39 @@ class Front:
         if len(crossings) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
         # each crossing's nearest layer node, then each node's nearest crossing
-        _, crossing_source = cKDTree(self._node_mm(indices[active[layer]])).query(crossings, workers=TREE_WORKERS)
+        _, crossing_source = cKDTree(self.layout.positions(indices[active[layer]])).query(crossings,
+                                                                                         workers=TREE_WORKERS)
         crossing_source = np.asarray(crossing_source, dtype=np.int64)
         crossing_tree = cKDTree(crossings)
 
         def source_of(nodes: NDArray[np.int64]) -> NDArray[np.int64]:
             if len(nodes) == 0:
                 return np.zeros(0, dtype=np.int64)
-            _, near = crossing_tree.query(self._node_mm(indices[nodes]), workers=TREE_WORKERS)
+            _, near = crossing_tree.query(self.layout.positions(indices[nodes]), workers=TREE_WORKERS)
             return crossing_source[near]
 
         source = source_of(active)
         source[layer] = np.arange(len(layer))
         return layer, source, source_of(edge_nodes)
 
-    def _lookup_pad(self) -> int:
-        """Padding of band lookups (nodes): the band stencil's reach, which holds the interpolant's pattern
-        (the same symmetric offsets; a lookup falls back to a bounds-checked search beyond its padding)."""
-        return int(np.max(np.abs(self.stencil.offsets)))
-
-    def _install_band(self, indices: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
-        if self.node_set is not None:
-            self._install_scattered_band(indices, phi)
-            return
-        order = np.lexsort(indices.T[::-1])
-        indices, phi = indices[order], phi[order]
-        lookup = LatticeLookup(indices, pad=self._lookup_pad())
-        table = lookup.around(self.stencil.offsets)
-        complete = np.all(table >= 0, axis=1)
-        active = np.flatnonzero(complete)
-        if len(active) == 0:
-            raise ValueError("the band has no node with a complete stencil; the front is too small for "
-                             "this detail and stencil size")
-        gather = np.ascontiguousarray(table[active].T)  # one row per stencil offset
-        edge_nodes = np.flatnonzero(~complete)
-        layer, source, edge_source = self._front_layer(indices, phi, active, edge_nodes, lookup)
-        on_pixel = np.all(indices % self.detail == 0, axis=1)
-        pixel_nodes = np.flatnonzero(on_pixel)
-        pixel_index = tuple((indices[pixel_nodes] // self.detail).T)
-        pixels = indices / self.detail
-        near_all = tuple(np.clip(np.rint(pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
-        frozen = self._pins[near_all] if self._pins is not None else np.zeros(len(indices), bool)
-        barrier = self._barrier[near_all] if self._barrier is not None else np.zeros(len(indices), bool)
-        self._band = _Band(indices, indices * self.step_mm, pixels, lookup, gather, active,
-                           edge_nodes, layer, source, edge_source, pixel_nodes, pixel_index, frozen, barrier)
+    def _install_band(self, keys: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
+        """Make the band on nodes ``keys`` with values ``phi`` the front's, with its layer and statistics."""
+        band, phi = self.layout.build_band(keys, phi, self._front_layer, self.band_half_width)
+        band.frozen, band.barrier = self._node_masks(band.pixels)
+        self._band = band
         self._phi = phi
         self._phi_at_rebuild = np.abs(phi)
         self._coeffs = None
-        self._band.layer_phi = phi[active[layer]]
+        band.layer_phi = phi[band.active[band.layer]]
         self._sync_inside()
         self._update_layer_statistics()
 
-    def _install_scattered_band(self, ids: NDArray[np.int64], phi: NDArray[np.floating]) -> None:
-        """The band on scattered node ``ids`` (global ids of the front's node set).
-
-        Active nodes are the complete ones (every stencil node in the band, not
-        an edge node of the set); their gather and per-node weights come from
-        the node set's cache. The pixel centres covered by the active nodes
-        take φ through one sparse interpolation matrix.
-        """
-        ns = self.node_set
-        order = np.argsort(ids, kind="stable")
-        ids, phi = np.asarray(ids, dtype=np.int64)[order], phi[order]
-        table = ns.local_stencils(ids)
-        complete = ns.complete(ids)
-        if self.ndim == 3:
-            # Where the front crosses the volume's border, edge nodes of the set (which copy the
-            # rates of layer nodes) lie on both sides of it; on scattered 3-D nodes the loop they
-            # close through the curvature stencils grows (a still plane through the box: 2.4 times
-            # a step), unlike on a lattice. Refuse rather than blow up: nodes within a spacing of
-            # the box's faces and next to the front on both sides of it mean it crosses a face.
-            pts, step = ns.points[ids], ns.local_spacing[ids]
-            at_face = np.any((pts - ns.box_min <= step[:, None]) | (ns.box_max - pts <= step[:, None]), axis=1)
-            rim = at_face & (np.abs(phi) <= 1.2 * step)
-            if np.any(phi[rim] < 0) and np.any(phi[rim] >= 0):
-                voxel = tuple(int(v) for v in np.rint(ns.pixels[ids[np.flatnonzero(rim)[0]]]))
-                raise ValueError(f"scattered nodes in 3-D: the front meets the volume's border near voxel "
-                                 f"{voxel}, where the scattered scheme is not stable; use nodes='lattice' "
-                                 f"for this volume")
-        active = np.flatnonzero(complete)
-        if len(active) == 0:
-            raise ValueError("the band has no node with a complete stencil; the front is too small for "
-                             "these node spacings and this stencil size")
-        _, weights = ns.operator_weights(ids[active])
-        gather = np.ascontiguousarray(table[active][:, :weights.shape[1]])
-        edge_nodes = np.flatnonzero(~complete)
-        layer, source, edge_source = self._front_layer(ids, phi, active, edge_nodes, None)
-        pixels = ns.pixels[ids]
-        # every pixel centre in a cell touched by an active node that the front can reach before the next
-        # rebuild (the rebuild distance plus two node spacings)
-        reach = float(np.sqrt(np.max(np.sum((ns.points[ids[gather]] - ns.points[ids[active]][:, None, :]) ** 2,
-                                            axis=2))))
-        safe = max(self.band_half_width - 2.0 * reach, 0.0) + 2.0 * float(np.max(self.step_mm))
-        covering = active[np.abs(phi[active]) <= safe]
-        base = np.floor(pixels[covering]).astype(np.int64)
-        corners = np.array(list(np.ndindex(*(2,) * self.ndim)), dtype=np.int64)
-        cand = (base[:, None, :] + corners[None]).reshape(-1, self.ndim)
-        cand = cand[np.all((cand >= 0) & (cand < np.array(self.shape)), axis=1)]
-        keys = np.unique(np.ravel_multi_index(tuple(cand.T), self.shape))
-        # interpolation on each pixel centre's nearest nodes of the whole set (cached per pixel); pixels
-        # whose stencil leaves the band (at its far edge, beyond the front's reach) are left out
-        stencils, pixel_weights = ns.pixel_weights(np.stack(np.unravel_index(keys, self.shape), axis=1))
-        columns = self._band_positions_in(ids, stencils)
-        inside_band = np.all(columns >= 0, axis=1)
-        keys, columns, pixel_weights = keys[inside_band], columns[inside_band], pixel_weights[inside_band]
-        pixel_index = np.unravel_index(keys, self.shape)
-        matrix = assemble(columns, pixel_weights, len(ids))
-        near_all = tuple(np.clip(np.rint(pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
-        frozen = self._pins[near_all] if self._pins is not None else np.zeros(len(ids), bool)
-        barrier = self._barrier[near_all] if self._barrier is not None else np.zeros(len(ids), bool)
-        pts = ns.points
-        spacing = ns.local_spacing[ids]
-        self._band = _Band(ids, pts[ids], pixels, None, gather, active, edge_nodes, layer, source,  # type: ignore[arg-type]
-                           edge_source, np.zeros(0, dtype=np.int64), tuple(pixel_index), frozen, barrier,
-                           weights=weights, pixel_matrix=matrix, spacing=spacing,
-                           h_min=float(np.min(spacing[active])), reach=reach,
-                           spectral=ns.spectral_bound(ids, damping=SCATTERED_DAMPING), edges=ns.edges(ids),
-                           step_weights=np.ascontiguousarray(weights[:, :, _scattered_columns(self.ndim)[0]]))
-        self._phi = phi
-        self._phi_at_rebuild = np.abs(phi)
-        self._coeffs = None
-        self._band.layer_phi = phi[active[layer]]
-        self._sync_inside()
-        self._update_layer_statistics()
-
-    def _scattered_interpolant(self, ids: NDArray[np.int64], values: NDArray[np.floating],
-                               owners_mask: NDArray[np.bool_] | None = None
-                               ) -> tuple[LocalInterpolant, NDArray[np.floating]]:
-        """Local interpolant on the k nearest scattered nodes of each node whose k nearest are all in ``ids``."""
-        ns = self.node_set
-        table = ns.local_stencils(ids)[:, :ns.stencil_size]
-        ok = np.all(table >= 0, axis=1)
-        if owners_mask is not None and np.any(ok & owners_mask):
-            ok &= owners_mask
-        owners = np.flatnonzero(ok)
-        if len(owners) == 0:
-            raise FrontVanished("the band is too thin for an interpolant")
-        interp = LocalInterpolant.build(ns.points[ids], table[owners], owners=owners, degree=ns.degree, phs=ns.phs)
-        return interp, _coefficients(interp, values)
+    def _node_masks(self, pixels: NDArray[np.floating]) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+        """Per node at ``pixels``: pinned, and inside a barrier (the pixel nearest each node decides)."""
+        near = tuple(np.clip(np.rint(pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
+        frozen = self._pins[near] if self._pins is not None else np.zeros(len(pixels), bool)
+        barrier = self._barrier[near] if self._barrier is not None else np.zeros(len(pixels), bool)
+        return frozen, barrier
 
     # ------------------------------------------------------ region statistics
     def _reset_sums(self) -> None:
@@ -893,18 +682,13 @@ class Front:
     def _band_pixels_inside(self) -> NDArray[np.bool_]:
         """Which of the band's pixel centres (``_band.pixel_index``) lie inside."""
         now = self._pixel_band_values() < 0
-        if self._barrier is not None and self.node_set is not None:
-            # scattered nodes: a pixel's φ is interpolated from nodes on both sides
-            # of a barrier's rim, so the barrier is also held on the pixels
+        if self._barrier is not None and self.layout.holds_barrier_on_pixels:
             now &= ~self._barrier[self._band.pixel_index]
         return now
 
     def _pixel_band_values(self) -> NDArray[np.floating]:
         """φ at the band's pixel centres (``_band.pixel_index``)."""
-        b = self._band
-        if self.node_set is None:
-            return self._phi[b.pixel_nodes]
-        return b.pixel_matrix @ self._phi
+        return self.layout.pixel_values(self._band, self._phi)
 
     @_locked
     def region_means(self) -> tuple[float, float]:
@@ -1008,20 +792,8 @@ class Front:
     def _layer_derivatives(self, phi: NDArray[np.floating], *, hessian: bool = True
                            ) -> tuple[NDArray[np.floating], NDArray[np.floating] | None]:
         """Centred gradient (d, L) and, if asked, Hessian (d, d, L) at the layer nodes next to the front."""
-        b = self._band
         d = self.ndim
-        if b.layer_operators is None:
-            if self.node_set is None:
-                b.layer_operators = (np.ascontiguousarray(b.gather[:, b.layer]), None)
-            else:
-                weights = np.ascontiguousarray(b.weights[b.layer][:, :, _scattered_columns(d)[1]])
-                b.layer_operators = (b.gather[b.layer], weights)
-        gather, weights = b.layer_operators
-        count = None if hessian else d
-        if weights is None:
-            values = self.stencil.layer_rows[:count] @ np.take(phi, gather)
-        else:
-            values = np.matmul(phi[gather][:, None, :], weights[:, :, :count])[:, 0, :].T
+        values = self.layout.layer_derivatives(self._band, phi, None if hessian else d)
         return values[:d], (values[_hessian_rows(d)] if hessian else None)
 
     def _front_curvature(self, phi_act: NDArray[np.floating], grad: NDArray[np.floating],
@@ -1177,10 +949,7 @@ class Front:
         b = self._band
         if b.layer_pairs is None:
             nodes = b.active[b.layer]
-            if self.node_set is None:
-                spacing = float(np.max(self.step_mm))
-            else:
-                spacing = float(np.max(b.spacing[nodes]))
+            spacing = self.layout.pair_distance(b, nodes)
             # lattice neighbours along axes and face diagonals are within 1.5 spacings
             b.layer_pairs = cKDTree(b.positions[nodes]).query_pairs(1.5 * spacing, output_type="ndarray")
         return b.layer_pairs
@@ -1253,7 +1022,7 @@ class Front:
         a_all = a[b.source] if np.ndim(a) else a
         if b.held is None:
             b.held = (np.flatnonzero(b.frozen[b.active]), np.flatnonzero(b.barrier[b.active]))
-        return _StageSpeeds(normal, a if curving else None, a_all * self._damping, *b.held)
+        return _StageSpeeds(normal, a if curving else None, a_all * self.layout.damping, *b.held)
 
     def _rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
               layer: tuple[NDArray[np.floating], NDArray[np.floating] | None] | None = None,
@@ -1300,10 +1069,7 @@ class Front:
         Rows keep each derivative contiguous for the element-wise work that
         follows (a column per operator would be strided).
         """
-        b = self._band
-        if self.node_set is None:
-            return self.stencil.step_rows @ np.take(phi, b.gather)
-        return np.ascontiguousarray(np.matmul(phi[b.gather][:, None, :], b.step_weights)[:, 0, :].T)
+        return self.layout.step_derivatives(self._band, phi)
 
     _lattice_h: float | None = None
     #: (|φ| at the last rebuild, the safe distance, the nodes that were beyond it) for :meth:`_needs_rebuild`
@@ -1333,11 +1099,11 @@ class Front:
         dt = self.params.cfl * h / speed
         if self.params.integrator == "ssp_rk3":
             if amax > 0:
-                dt = min(dt, 2.0 / (amax * self._spectral_radius * self._curvature_gain))
+                dt = min(dt, 2.0 / (amax * self.layout.spectral_radius(self._band) * self._curvature_gain))
             return dt, 3
         stages = 2
         if amax > 0:
-            radius = amax * self._spectral_radius * self._curvature_gain
+            radius = amax * self.layout.spectral_radius(self._band) * self._curvature_gain
             dt, stages = rkl2_step(dt, 2.0 / radius)
         return dt, stages
 
@@ -1381,7 +1147,7 @@ class Front:
         if dt_max is not None and dt_max < dt:
             dt = dt_max
             if not rk3 and np.any(np.asarray(speeds.curvature) != 0):
-                radius = float(np.max(speeds.curvature)) * self._spectral_radius * self._curvature_gain
+                radius = float(np.max(speeds.curvature)) * self.layout.spectral_radius(self._band) * self._curvature_gain
                 stages = rkl2_stages(dt, 2.0 / radius)
         factor = speeds.relax_factor(dt)
         if factor is not None:
@@ -1549,12 +1315,8 @@ class Front:
         if reinitialise is None:
             reinitialise = self._layer_drift(self._phi) > REINIT_DRIFT or self._since_reinit >= REINIT_EVERY
         starts = self._crossings(b.indices, self._phi, b.lookup)
-        if self.node_set is None:
-            # the front moved at most about the rebuild distance: grow the old band by that much
-            layers = int(np.ceil((self._rebuild_distance() + float(np.max(self.step_mm))) / self.h)) + 1
-            nodes = dilate_nodes(b.indices, layers, (np.array(self.shape) - 1) * self.detail)
-        else:  # every node that can be in the new band
-            nodes = self._candidate_nodes(starts, self.band_half_width)
+        moved = self._rebuild_distance() + float(np.max(self.step_mm))
+        nodes = self.layout.rebuild_nodes(b, starts, moved, self.band_half_width)
         trusted = None if reinitialise else self._band_positions(nodes) >= 0
         self._build_band(starts, self._current_values, nodes=nodes, trusted=trusted)
         self._since_reinit = 0 if reinitialise else self._since_reinit + 1
@@ -1592,23 +1354,15 @@ class Front:
 
     # ------------------------------------------------------------- read-outs
     def _interpolant(self) -> tuple[LocalInterpolant, NDArray[np.floating]]:
+        """The band's local interpolant and the coefficients of the present φ (both cached until they change)."""
         b = self._band
-        if self.node_set is not None:
-            if b.interpolant is None:
-                b.interpolant, self._coeffs = self._scattered_interpolant(b.indices, self._phi)
-            elif self._coeffs is None:
-                self._coeffs = _coefficients(b.interpolant, self._phi)
-            return b.interpolant, self._coeffs
         if b.interpolant is None:
-            pattern = symmetric_offsets(self.ndim, self.params.stencil_size_for(self.ndim))
-            table = b.lookup.find(b.indices[:, None, :] + pattern[None])
-            owners = np.flatnonzero(np.all(table >= 0, axis=1))
-            b.interpolant = LocalInterpolant.build(b.positions, table[owners], owners=owners,
-                                                   degree=self.params.degree, phs=self.params.phs,
-                                                   translates=True, lattice_step=self.step_mm,
-                                                   lattice_indices=b.indices)
+            interp = self.layout.band_interpolant(b, self.params)
+            if interp is None:
+                raise FrontVanished("the band is too thin for an interpolant")
+            b.interpolant = interp
         if self._coeffs is None:
-            self._coeffs = b.interpolant.coefficients(self._phi)
+            self._coeffs = self.layout.coefficients(b.interpolant, self._phi)
         return b.interpolant, self._coeffs
 
     @property
@@ -1679,11 +1433,8 @@ class Front:
             return []
         from engine.analysis.contours import band_contours
 
-        b = self._band
-        if self.node_set is None:
-            lines = band_contours(b.indices, self._phi, detail=self.detail)
-        else:  # marching squares on the band's pixel centres, φ interpolated there
-            lines = band_contours(np.stack(b.pixel_index, axis=1), self._pixel_band_values(), detail=1)
+        nodes, values, detail = self.layout.contour_grid(self._band, self._phi)
+        lines = band_contours(nodes, values, detail=detail)
         if not refine or not lines:
             return lines
         interp, coeffs = self._interpolant()
@@ -1693,11 +1444,8 @@ class Front:
         """Refined contours and which are closed (open ones end on the image's border, or where the band is cut)."""
         from engine.analysis.contours import band_contour_set
 
-        b = self._band
-        if self.node_set is None:
-            found = band_contour_set(b.indices, self._phi, detail=self.detail)
-        else:
-            found = band_contour_set(np.stack(b.pixel_index, axis=1), self._pixel_band_values(), detail=1)
+        nodes, values, detail = self.layout.contour_grid(self._band, self._phi)
+        found = band_contour_set(nodes, values, detail=detail)
         if not found.polylines:
             return [], found.closed
         interp, coeffs = self._interpolant()
@@ -1718,18 +1466,14 @@ class Front:
             return np.empty((0, 3)), np.empty((0, 3), dtype=np.int64)
         from skimage.measure import marching_cubes
 
-        if self.node_set is not None:
+        box = self.layout.surface_grid(self._band, self._phi,
+                                       lambda keys: _FAR * self.band_half_width * self._sign_from_pixels(keys))
+        if box is None:  # φ at the voxel centres
             verts, faces, _, _ = marching_cubes(self.pixel_phi(), level=0.0)
             return verts, faces.astype(np.int64)
-        b = self._band
-        lo = b.indices.min(axis=0)
-        hi = b.indices.max(axis=0)
-        grid = np.indices(tuple(hi - lo + 1)).reshape(3, -1).T + lo
-        dense = (_FAR * self.band_half_width * self._sign_from_pixels(grid)).reshape(tuple(hi - lo + 1))
-        dense[tuple((b.indices - lo).T)] = self._phi
+        dense, corner_mm = box
         verts, faces, _, _ = marching_cubes(dense, level=0.0, spacing=tuple(self.step_mm))
-        verts_px = (verts + lo * self.step_mm) / self.features.spacing
-        return verts_px, faces.astype(np.int64)
+        return (verts + corner_mm) / self.features.spacing, faces.astype(np.int64)
 
     @_locked
     def pixel_phi(self) -> NDArray[np.floating]:
@@ -1793,7 +1537,8 @@ class Front:
             starts = np.concatenate([starts, extra_starts]) if len(starts) else extra_starts
 
         def values_at(indices: NDArray[np.int64]) -> NDArray[np.floating]:
-            return combine(self._current_values(indices), self._node_mm(indices), self._node_px(indices))
+            return combine(self._current_values(indices), self.layout.positions(indices),
+                           self.layout.pixels(indices))
 
         # the inside image must follow the edit beyond the band as well
         self._apply_to_pixels(combine)
@@ -1806,15 +1551,8 @@ class Front:
         """Re-evaluate the edit at every pixel centre it can change (those near the stroke)."""
         grid = np.argwhere(np.ones(self.shape, dtype=bool))
         base = np.where(self._inside.reshape(-1), -1.0, 1.0) * _FAR * self.band_half_width
-        if self.node_set is None:
-            idx = grid * self.detail
-            pos = self._band.lookup.find(idx)
-            base = np.where(pos >= 0, self._phi[np.maximum(pos, 0)], base)
-            new_inside = (combine(base, idx * self.step_mm, idx / self.detail) < 0).reshape(self.shape)
-        else:
-            b = self._band
-            base[np.ravel_multi_index(b.pixel_index, self.shape)] = self._pixel_band_values()
-            new_inside = (combine(base, grid * self.features.spacing, grid.astype(float)) < 0).reshape(self.shape)
+        values, mm, px = self.layout.pixel_grid_values(self._band, self._phi, grid, base, self.features.spacing)
+        new_inside = (combine(values, mm, px) < 0).reshape(self.shape)
         if np.array_equal(new_inside, self._inside):
             return
         self._inside = new_inside
@@ -1927,9 +1665,7 @@ class Front:
 
     def _refresh_node_masks(self) -> None:
         b = self._band
-        near = tuple(np.clip(np.rint(b.pixels).astype(np.int64), 0, np.array(self.shape) - 1).T)
-        b.frozen = self._pins[near] if self._pins is not None else np.zeros(len(b.indices), bool)
-        b.barrier = self._barrier[near] if self._barrier is not None else np.zeros(len(b.indices), bool)
+        b.frozen, b.barrier = self._node_masks(b.pixels)
         b.held = None
         if not self.vanished:
             self._sync_inside()  # a barrier holds pixel centres too (scattered nodes)
@@ -1959,17 +1695,7 @@ class Front:
 
     def _new_stencils(self, params: FrontParams) -> None:
         """Stencils for changed stencil settings (scattered: the same nodes with new per-node operators)."""
-        if self.node_set is None:
-            self.stencil = band_stencil(self.step_mm, stencil_size=params.stencil_size_for(self.ndim),
-                                        degree=params.degree, phs=params.phs)
-            return
-        key = _node_options(params, self.ndim)
-        if key not in self._node_sets:
-            old = self.node_set
-            self._node_sets[key] = ScatteredNodeSet(self.shape, old.pixel_spacing, lambda p, s=old.local_spacing: s,
-                                                    stencil_size=key[0], degree=key[1], phs=key[2],
-                                                    points=old.points)
-        self.node_set = self._node_sets[key]
+        self.layout = self.layout.with_settings(params, self._node_sets)
 
     # -------------------------------------------------------------- snapshots
     @_locked
@@ -1990,7 +1716,7 @@ class Front:
         """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
         if not isinstance(snap, FrontSnapshot):
             raise ValueError("snapshot must come from Front.snapshot()")
-        if (snap.indices.ndim == 1) != (self.node_set is not None):
+        if snap.indices.ndim != self.layout.key_ndim:
             raise ValueError("snapshot was taken on another node layout (lattice against scattered nodes)")
         size = int(np.prod(self.shape))
         inside = np.unpackbits(snap.inside_bits, count=size).astype(bool).reshape(self.shape)
@@ -2082,13 +1808,6 @@ def _hessian_rows(dim: int) -> NDArray[np.int64]:
     return rows
 
 
-@lru_cache(maxsize=4)
-def _scattered_columns(dim: int) -> tuple[list[int], list[int]]:
-    """Columns of a scattered node set's operator weights in :func:`step_labels` and :func:`layer_labels` order."""
-    labels = operator_labels(dim)
-    return [labels.index(lab) for lab in step_labels(dim)], [labels.index(lab) for lab in layer_labels(dim)]
-
-
 @dataclass(frozen=True)
 class _StageSpeeds:
     """One step's speeds as every RKL2 stage uses them (extended from the layer to the active nodes)."""
@@ -2103,27 +1822,6 @@ class _StageSpeeds:
 def _node_options(params: FrontParams, dim: int) -> tuple[int, int, int]:
     """(stencil size, degree, phs) of a scattered node set for these settings."""
     return params.stencil_size_for(dim), int(params.degree), int(params.phs)
-
-
-def _edge_crossings(points: NDArray[np.floating], edges: NDArray[np.int64],
-                    values: NDArray[np.floating]) -> NDArray[np.floating]:
-    """Zero crossings of ``values`` along graph ``edges`` (pairs of rows of ``points``), linear interpolation."""
-    va, vb = values[edges[:, 0]], values[edges[:, 1]]
-    cross = (va < 0) != (vb < 0)
-    e, va, vb = edges[cross], va[cross], vb[cross]
-    t = va / (va - vb)
-    xa, xb = points[e[:, 0]], points[e[:, 1]]
-    return xa + t[:, None] * (xb - xa)
-
-
-def _coefficients(interp: LocalInterpolant, values: NDArray[np.floating], chunk: int = 4096) -> NDArray[np.floating]:
-    """Interpolation coefficients of every owner, one batched product (scattered stencils rarely share a shape)."""
-    local = np.asarray(values, dtype=float)[interp.stencils]
-    out = np.empty((len(local), interp.inverses.shape[1]))
-    for start in range(0, len(local), chunk):
-        rows = slice(start, start + chunk)
-        out[rows] = np.matmul(interp.inverses[interp.inverse_index[rows]], local[rows][:, :, None])[:, :, 0]
-    return out
 
 
 def curvature_from_derivatives(grad: NDArray[np.floating], hess: NDArray[np.floating]) -> NDArray[np.floating]:

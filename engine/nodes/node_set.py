@@ -89,6 +89,7 @@ __all__ = [
     "EdgeAdaptiveSpacing",
     "ScatteredNodeSet",
     "edge_adaptive_spacing",
+    "edge_crossings",
     "operator_labels",
 ]
 
@@ -433,6 +434,20 @@ def _row_positions(rows: NDArray[np.int64], members: NDArray[np.int64], n_ids: i
 # --------------------------------------------------------------------------
 # the node set
 # --------------------------------------------------------------------------
+def edge_crossings(points: NDArray[np.floating], edges: NDArray[np.int64],
+                   values: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Zero crossings of ``values`` along graph ``edges`` (pairs of rows of ``points``), linear interpolation.
+
+    Every edge whose end values differ in sign (< 0 against >= 0) gives one point.
+    """
+    va, vb = values[edges[:, 0]], values[edges[:, 1]]
+    cross = (va < 0) != (vb < 0)
+    e, va, vb = edges[cross], va[cross], vb[cross]
+    t = va / (va - vb)
+    xa, xb = points[e[:, 0]], points[e[:, 1]]
+    return xa + t[:, None] * (xb - xa)
+
+
 class ScatteredNodeSet:
     """Scattered nodes over one image, generated once, with per-node cached stencils and weights.
 
@@ -1062,13 +1077,7 @@ class ScatteredNodeSet:
         e = self.edges(arr)
         if len(e) == 0:
             return np.zeros((0, self.dim))
-        va, vb = values[e[:, 0]], values[e[:, 1]]
-        cross = (va < 0) != (vb < 0)
-        e, va, vb = e[cross], va[cross], vb[cross]
-        t = va / (va - vb)
-        xa = self.points[arr[e[:, 0]]]
-        xb = self.points[arr[e[:, 1]]]
-        return xa + t[:, None] * (xb - xa)
+        return edge_crossings(self.points[arr], e, values)
 
     # ------------------------------------------------------------ stability figures
     def spectral_bound(self, ids: ArrayLike, *, damping: float = 0.0, method: str = "arnoldi") -> float:
