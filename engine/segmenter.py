@@ -33,13 +33,15 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
 from engine.front import FrontParams
-from engine.front.core import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS, Front, estimate_window
+from engine.front.constants import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS
+from engine.front.core import Front
 from engine.front.geometry import seed_disks
 from engine.front.speeds import SETTING_NAMES
 from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds,
                                        resolvable_factor, upsample_phi)
 from engine.image.features import compute_features
 from engine.image.growth import GROWTH_MODELS, RegionGrowth
+from engine.image.statistics import estimate_window
 from engine.image.thickness import THIN_LENGTH, thin_length
 from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 

@@ -25,7 +25,7 @@ import pytest
 import ellipse_reference
 
 from engine.analysis.contours import band_contour_set, band_contours, signed_area
-from engine.front.core import curvature_from_derivatives, refine_polylines
+from engine.front.readouts import curvature_from_derivatives, refine_polylines
 from engine.numerics.interpolant import LocalInterpolant
 from engine.nodes.lattice import lattice_stencils
 from engine.analysis.masks import mask_from_band

@@ -60,7 +60,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
-from engine.front.core import SIDE_SHARE
+from engine.front.constants import SIDE_SHARE
 from engine.front.geometry import seed_disks
 
 #: Models the flood serves (it follows their inside test).

@@ -27,13 +27,16 @@ from engine.nodes.node_set import ScatteredNodeSet, edge_crossings, operator_lab
 from engine.numerics.interpolant import LocalInterpolant
 from engine.numerics.rbffd import assemble
 
-__all__ = ["Band", "NodeLayout", "LatticeLayout", "ScatteredLayout", "SCATTERED_DAMPING", "TREE_WORKERS"]
+__all__ = ["Band", "NodeLayout", "LatticeLayout", "ScatteredLayout", "SCATTERED_DAMPING", "TREE_WORKERS",
+           "NODE_LAYOUTS", "check_layout_options", "make_layout", "node_options"]
 
 #: Hyperviscosity coefficient γ (mm⁴ per unit curvature weight, times the node
 #: set's per-node factor (h_i / h_ref)^6) on scattered nodes: the linear
 #: curvature operator is stable without it, the full scheme (extension
 #: velocities, rebuilds) is not (see DEVELOPERS.md, "Scattered nodes").
 SCATTERED_DAMPING = 0.01
+#: Node layouts of a front.
+NODE_LAYOUTS = ("lattice", "scattered")
 #: Threads of the nearest-neighbour queries (scipy runs them outside the
 #: interpreter lock; the answers do not depend on the count).
 TREE_WORKERS = 2
@@ -455,7 +458,8 @@ class ScatteredLayout:
         pixel_index = np.unravel_index(pixel_keys, shape)
         matrix = assemble(columns, pixel_weights, len(ids))
         spacing = ns.local_spacing[ids]
-        band = Band(ids, ns.points[ids], pixels, None, gather, active, edge_nodes, layer, source,  # type: ignore[arg-type]
+        band = Band(ids, ns.points[ids], pixels, None,  # type: ignore[arg-type]
+                    gather, active, edge_nodes, layer, source,
                     edge_source, np.zeros(0, dtype=np.int64), tuple(pixel_index),
                     weights=weights, pixel_matrix=matrix, spacing=spacing,
                     h_min=float(np.min(spacing[active])), reach=reach,
@@ -514,8 +518,7 @@ class ScatteredLayout:
         return None
 
     def with_settings(self, params: Any, cache: dict) -> "ScatteredLayout":
-        dim = self.node_set.dim
-        key = (params.stencil_size_for(dim), int(params.degree), int(params.phs))
+        key = node_options(params, self.node_set.dim)
         if key not in cache:
             old = self.node_set
             cache[key] = ScatteredNodeSet(old.shape, old.pixel_spacing, lambda p, s=old.local_spacing: s,
@@ -534,3 +537,54 @@ def _positions_in(ids: NDArray[np.int64], keys: NDArray[np.int64]) -> NDArray[np
     """Position of each of ``keys`` (any shape) in the sorted ``ids``, −1 where absent."""
     pos = np.minimum(np.searchsorted(ids, keys), len(ids) - 1)
     return np.where(ids[pos] == keys, pos, -1)
+
+
+def node_options(params: Any, dim: int) -> tuple[int, int, int]:
+    """(stencil size, degree, phs) of a scattered node set for these settings."""
+    return params.stencil_size_for(dim), int(params.degree), int(params.phs)
+
+
+def check_layout_options(options: dict, detail: int) -> None:
+    """ValueError naming a layout option that does not fit ``options["nodes"]`` (before any work is done)."""
+    nodes = options.get("nodes", "lattice")
+    if nodes not in NODE_LAYOUTS:
+        raise ValueError(f"nodes must be one of {NODE_LAYOUTS}, got {nodes!r}")
+    if nodes == "lattice":
+        for name in ("finest", "coarsest", "node_set"):
+            if options.get(name) is not None:
+                raise ValueError(f"{name} applies to nodes='scattered' only")
+    elif detail != 1:
+        raise ValueError("detail applies to nodes='lattice'; scattered nodes take finest and coarsest (mm)")
+
+
+def make_layout(features: Any, params: Any, detail: int, options: dict) -> NodeLayout:
+    """The layout of a new front on ``features``' image: a lattice at ``detail`` nodes per pixel, or scattered
+    nodes (``options``: ``nodes``, and for scattered nodes ``finest``, ``coarsest`` in mm or a ``node_set``)."""
+    sp = features.spacing
+    shape = features.image.shape
+    dim = len(shape)
+    if options.get("nodes", "lattice") == "lattice":
+        step_mm = sp / detail
+        stencil = band_stencil(step_mm, stencil_size=params.stencil_size_for(dim), degree=params.degree,
+                               phs=params.phs)
+        return LatticeLayout(stencil, step_mm, detail, shape)
+    node_set = options.get("node_set")
+    if node_set is not None:
+        if not isinstance(node_set, ScatteredNodeSet):
+            raise ValueError(f"node_set must be a ScatteredNodeSet, got {type(node_set).__name__}")
+        if node_set.shape != shape or not np.allclose(node_set.pixel_spacing, sp, rtol=1e-12, atol=0):
+            raise ValueError("node_set was made for another image shape or spacing")
+        if (node_set.stencil_size, node_set.degree, node_set.phs) != node_options(params, dim):
+            raise ValueError("node_set: its stencil_size, degree and phs differ from the front's settings")
+        return ScatteredLayout(node_set)
+    finest = 0.5 * float(np.min(sp)) if options.get("finest") is None else options["finest"]
+    coarsest = float(np.max(sp)) if options.get("coarsest") is None else options["coarsest"]
+    for name, value in (("finest", finest), ("coarsest", coarsest)):
+        if not (isinstance(value, (int, float, np.integer, np.floating)) and np.isfinite(value) and value > 0):
+            raise ValueError(f"{name} must be a positive node spacing in mm, got {value!r}")
+    if finest > coarsest:
+        raise ValueError(f"finest ({finest}) must not exceed coarsest ({coarsest})")
+    size, degree, phs = node_options(params, dim)
+    node_set = ScatteredNodeSet.from_features(features, finest=float(finest), coarsest=float(coarsest),
+                                              stencil_size=size, degree=degree, phs=phs)
+    return ScatteredLayout(node_set)

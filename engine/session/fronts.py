@@ -91,7 +91,7 @@ def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floatin
 def window_for_mask(image: NDArray[np.floating], spacing: Sequence[float], mask: NDArray[np.bool_]
                     ) -> tuple[float, float]:
     """The intensity window the window model estimates from the pixels of ``mask``."""
-    from engine.front.core import estimate_window_from_mask
+    from engine.image.statistics import estimate_window_from_mask
     from engine.image.features import compute_features
 
     feats = compute_features(np.asarray(image, dtype=float), np.asarray(spacing, dtype=float))
