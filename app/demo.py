@@ -7,7 +7,7 @@ evolves at once, and when it has converged the second is seeded and evolves
 (placing that seed commits the first). Anything the user does in between
 stops the script: from then on the window is theirs. Without the sample
 study (an installed copy without ``sample_cases``) the demo slice is
-rendered from :mod:`engine.phantoms` instead.
+rendered from :mod:`engine.phantoms.mr` instead.
 """
 
 from __future__ import annotations

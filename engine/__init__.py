@@ -20,7 +20,7 @@ __version__ = "0.1.0"
 _PUBLIC = {
     "Front": "engine.front",
     "FrontSnapshot": "engine.front",
-    "FrontParams": "engine.speeds",
+    "FrontParams": "engine.front",
     "segment": "engine.segment",
     "Segmentation": "engine.segment",
     "Session": "engine.session",
@@ -39,7 +39,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from engine.io import Volume, list_series, load, save_result, verify
     from engine.segment import Segmentation, segment
     from engine.session import Session, open_result
-    from engine.speeds import FrontParams
+    from engine.front import FrontParams
 
 
 def __getattr__(name: str) -> Any:

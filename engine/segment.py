@@ -59,18 +59,18 @@ def segment(
         and fine steps together).
     detail : lattice nodes per pixel along each axis (1, 2 or 4).
     coarse : block size of a coarse stage (1, 2, 4 or 8; default none). The region and window models
-        first flood the seeds' structure at pixel level (:mod:`engine.growth`); with a block size the
+        first flood the seeds' structure at pixel level (:mod:`engine.image.growth`); with a block size the
         front then grows on the image averaged over blocks of that size before it finishes at full
         resolution. A block size the flooded structure cannot hold (a core of
-        :data:`engine.coarse_start.MIN_COARSE_SEED` blocks) is lowered to one it can
-        (:func:`engine.coarse_start.resolvable_factor`); the block size used is ``params["coarse"]`` of the
+        :data:`engine.image.coarse_start.MIN_COARSE_SEED` blocks) is lowered to one it can
+        (:func:`engine.image.coarse_start.resolvable_factor`); the block size used is ``params["coarse"]`` of the
         result and the one asked for ``params["coarse_requested"]``. Lattice nodes only: with
         ``nodes="scattered"`` any value other than 1 is refused.
     nodes : ``"lattice"`` or ``"scattered"`` (edge-adaptive scattered nodes, see
-        :meth:`engine.front.Front.from_function`; ``finest`` and ``coarsest`` spacings in mm go in
+        :meth:`engine.front.core.Front.from_function`; ``finest`` and ``coarsest`` spacings in mm go in
         ``params``).
     progress : called as ``progress(steps, time)`` after every step.
-    **params : front settings (see :class:`engine.speeds.FrontParams`).
+    **params : front settings (see :class:`engine.front.speeds.FrontParams`).
 
     Returns
     -------
@@ -80,7 +80,7 @@ def segment(
         actually used (including an estimated intensity window, the block
         size and what the flood did, ``params["growth"]``) and timings. Parts
         of the outline that hold no seed are dropped
-        (:meth:`engine.front.Front.keep_parts`).
+        (:meth:`engine.front.core.Front.keep_parts`).
 
     References
     ----------

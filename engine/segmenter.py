@@ -3,15 +3,15 @@
 :class:`Segmenter` holds the stages of :func:`engine.segment.segment`:
 
 ``"growing"``
-    the flood of :mod:`engine.growth` (region and window models), one pass
+    the flood of :mod:`engine.image.growth` (region and window models), one pass
     a step: it takes the outline most of the way at pixel level;
 ``"coarse"``
     a front on the image averaged over f × f blocks, only when a block size
     is asked for (``coarse``); lowered to what the structure found by the
-    flood resolves (:func:`engine.coarse_start.resolvable_factor`);
+    flood resolves (:func:`engine.image.coarse_start.resolvable_factor`);
 ``"fine"``
     the front at full resolution, started from the flood's (or the coarse
-    front's) outline, until its outline stops moving (:mod:`engine.convergence`);
+    front's) outline, until its outline stops moving (:mod:`engine.front.convergence`);
 ``"done"``
     converged, vanished, or out of steps.
 
@@ -24,25 +24,26 @@ evolving state.
 
 from __future__ import annotations
 
-import difflib
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import fields
 from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
-from engine.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds, resolvable_factor,
-                                 upsample_phi)
-from engine.front import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS, Front, estimate_window, validate_seeds
-from engine.front_geometry import seed_disks
-from engine.growth import GROWTH_MODELS, RegionGrowth
-from engine.image_features import compute_features
-from engine.setting_limits import check_limits
-from engine.speeds import FrontParams
-from engine.thickness import THIN_LENGTH, thin_length
+from engine.front import FrontParams
+from engine.front.constants import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS
+from engine.front.core import Front
+from engine.front.geometry import seed_disks
+from engine.front.speeds import SETTING_NAMES
+from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds,
+                                       resolvable_factor, upsample_phi)
+from engine.image.features import compute_features
+from engine.image.growth import GROWTH_MODELS, RegionGrowth
+from engine.image.statistics import estimate_window
+from engine.image.thickness import THIN_LENGTH, thin_length
+from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 
 if TYPE_CHECKING:
     from engine.segment import Segmentation
@@ -56,22 +57,12 @@ START_BEYOND = 0.1
 #: The fine front's nodes within this many pixels of the flood's outline get Newton closest-point
 #: distances; those farther keep the distance between pixel centres.
 EXACT_WITHIN = 2.5
-#: Lattice nodes per pixel for a structure with a thin part (:func:`engine.thickness.thin_length`).
+#: Lattice nodes per pixel for a structure with a thin part (:func:`engine.image.thickness.thin_length`).
 THIN_DETAIL = 2
 #: Default step budget (flood passes, coarse and fine steps together).
 DEFAULT_MAX_STEPS = 20000
-#: Keyword arguments of :func:`engine.segment.segment` besides :class:`engine.speeds.FrontParams`' fields.
+#: Keyword arguments of :func:`engine.segment.segment` besides :class:`engine.front.speeds.FrontParams`' fields.
 LAYOUT_OPTIONS = ("finest", "coarsest", "node_set")
-
-
-def check_names(params: dict) -> None:
-    """ValueError naming a keyword that is no setting (with the nearest setting's name)."""
-    known = {f.name for f in fields(FrontParams)} - {"model", "extra"} | set(LAYOUT_OPTIONS)
-    for name in params:
-        if name not in known:
-            close = difflib.get_close_matches(name, sorted(known), n=1)
-            hint = f"; did you mean {close[0]}?" if close else ""
-            raise ValueError(f"{name}: not a setting of segment(){hint}")
 
 
 class Segmenter:
@@ -88,7 +79,7 @@ class Segmenter:
                  model: str = "region", max_steps: int | None = None, detail: int = 1, coarse: int | None = None,
                  nodes: str = "lattice", barrier: ArrayLike | None = None, **params: object) -> None:
         t0 = time.perf_counter()
-        check_names(params)
+        check_names(params, SETTING_NAMES | set(LAYOUT_OPTIONS), "segment()")
         if max_steps is not None and (isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer))
                                       or max_steps < 1):
             raise ValueError(f"max_steps must be a whole number >= 1 (or None for 20 000), got {max_steps!r}")
@@ -104,9 +95,7 @@ class Segmenter:
             raise ValueError(f"coarse start is for lattice nodes; use coarse=1 with nodes='scattered', got {coarse!r}")
         if coarse is not None and not (isinstance(coarse, (int, np.integer)) and int(coarse) in BLOCK_SIZES):
             raise ValueError(f"coarse must be 1, 2, 4 or 8, got {coarse!r}")
-        sp = np.ones(img.ndim) if spacing is None else np.asarray(spacing, dtype=float).reshape(-1)
-        if sp.shape != (img.ndim,) or np.any(~np.isfinite(sp)) or np.any(sp <= 0):
-            raise ValueError(f"spacing must be {img.ndim} positive numbers (mm), got {spacing!r}")
+        sp = check_spacing(spacing, img.ndim)
         check_limits(img.shape, sp, params)
         settings = FrontParams(model=model, **params)  # validates every setting once, here
         self._image, self._spacing, self._model, self._detail, self._nodes = img, sp, model, detail, nodes
@@ -168,7 +157,7 @@ class Segmenter:
 
     @property
     def converged(self) -> bool:
-        """True once the full-resolution outline stopped moving (:mod:`engine.convergence`)."""
+        """True once the full-resolution outline stopped moving (:mod:`engine.front.convergence`)."""
         return self._fine is not None and self.stage == "done" and bool(self._fine.converged)
 
     @property
@@ -443,14 +432,14 @@ class Segmenter:
         if self._fine is not None:
             return self._fine.area_mm2()
         if self._image.ndim == 2:
-            from engine.contours import signed_area
+            from engine.analysis.contours import signed_area
 
             return float(sum(signed_area(c * self._spacing) for c in self.contours()))
         return float(self.mask().sum() * np.prod(self._spacing))
 
     def perimeter_mm(self) -> float:
         """Length of the outlines (2-D, mm)."""
-        from engine.contours import polyline_length
+        from engine.analysis.contours import polyline_length
 
         return float(sum(polyline_length(c * self._spacing) for c in self.contours()))
 

@@ -17,7 +17,7 @@ import nibabel as nib
 import numpy as np
 
 from engine import load, segment
-from engine.metrics import dice, hd95
+from engine.analysis.metrics import dice, hd95
 
 CASE = Path(__file__).resolve().parents[1] / "sample_cases" / "abdomen_mr"
 

@@ -14,7 +14,7 @@ suggested seeds (``seeds.json``) and a README.
 
 The phantoms themselves (smooth star-shaped structures in patient
 millimetres, partial volume, bias field, Rician noise, truth labels) come
-from :mod:`engine.phantoms`; this script only writes them as DICOM, NIfTI,
+from :mod:`engine.phantoms.mr`; this script only writes them as DICOM, NIfTI,
 PNG, JSON and Markdown. Everything is deterministic: a fixed random seed,
 UIDs derived from fixed entropy sources with :func:`pydicom.uid.generate_uid`,
 fixed dates. The patient is ``Phantom^Isotide``.
@@ -32,11 +32,11 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 
 try:
-    import engine.phantoms  # noqa: F401  (installed package)
+    import engine.phantoms.mr  # noqa: F401  (installed package)
 except ImportError:  # run from a source checkout without installing
     sys.path.insert(0, str(HERE.parent))
 
-from engine.phantoms import (  # noqa: E402
+from engine.phantoms.mr import (  # noqa: E402
     Phantom,
     Tissue,
     abdomen_tissues,

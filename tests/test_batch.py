@@ -19,7 +19,7 @@ from engine.batch.manifest import case_stem, parse_seeds, parse_slices, slice_te
 from engine.batch.sweep import parse_vary, settings_grid
 from engine.cli import main
 from engine.io import verify
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.session import Session
 
 

@@ -45,7 +45,7 @@ def disk_picture(shape=(96, 96), centre=CENTRE, radius=RADIUS, *, seed=0):
 
 
 def dice(a, b):
-    """2|A and B| / (|A| + |B|) (Dice 1945), computed here independently of engine.metrics."""
+    """2|A and B| / (|A| + |B|) (Dice 1945), computed here independently of engine.analysis.metrics."""
     a, b = np.asarray(a, bool), np.asarray(b, bool)
     return 2.0 * np.count_nonzero(a & b) / (np.count_nonzero(a) + np.count_nonzero(b))
 

@@ -1,4 +1,4 @@
-"""Area of an outline cut by the image's border (:func:`engine.clipped_area.area_in_image`).
+"""Area of an outline cut by the image's border (:func:`engine.analysis.clipped_area.area_in_image`).
 
 Reference: the exact area of a disk (or a ring) within the image's extent
 [−½, rows − ½] × [−½, cols − ½], integrated numerically over its chords with
@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from engine.clipped_area import area_in_image
-from engine.contours import band_contour_set
+from engine.analysis.clipped_area import area_in_image
+from engine.analysis.contours import band_contour_set
 
 ROWS, COLS = 60, 80
 INDICES = np.stack([a.ravel() for a in np.indices((ROWS, COLS))], axis=1)

@@ -26,10 +26,10 @@ import pytest
 import ellipse_reference
 from scipy.spatial import cKDTree
 
-from engine.closest_point import closest_points, signed_distance
-from engine.contours import band_contours
-from engine.interpolant import LocalInterpolant
-from engine.lattice import lattice_stencils
+from engine.numerics.closest_point import closest_points, signed_distance
+from engine.analysis.contours import band_contours
+from engine.numerics.interpolant import LocalInterpolant
+from engine.nodes.lattice import lattice_stencils
 
 A, B = 40.0, 20.0  # semi-axes (px) along rows and columns
 CENTRE = np.array([60.37, 50.81])  # off the lattice on purpose

@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from skimage.transform import downscale_local_mean
 
-from engine.contours import signed_area
-from engine.coarse_start import block_mean, coarse_seeds, resolvable_factor, to_coarse, upsample_phi
+from engine.analysis.contours import signed_area
+from engine.image.coarse_start import block_mean, coarse_seeds, resolvable_factor, to_coarse, upsample_phi
 from engine.front import Front
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 from tests.test_front_robustness import narrow_gap_phantom
 

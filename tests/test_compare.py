@@ -1,4 +1,4 @@
-"""The Compare board's engine: variants start alike, run in threads, and are scored with engine.metrics.
+"""The Compare board's engine: variants start alike, run in threads, and are scored with engine.analysis.metrics.
 
 References used below: Dice's overlap 2|A∩B|/(|A|+|B|) (L. R. Dice, Ecology 26(3) (1945) 297-302)
 recomputed with numpy; the symmetric Hausdorff distance from scipy.spatial.distance.directed_hausdorff

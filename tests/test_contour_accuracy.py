@@ -24,12 +24,12 @@ import pytest
 
 import ellipse_reference
 
-from engine.contours import band_contour_set, band_contours, signed_area
-from engine.front import curvature_from_derivatives, refine_polylines
-from engine.interpolant import LocalInterpolant
-from engine.lattice import lattice_stencils
-from engine.masks import mask_from_band
-from engine.metrics import dice
+from engine.analysis.contours import band_contour_set, band_contours, signed_area
+from engine.front.readouts import curvature_from_derivatives, refine_polylines
+from engine.numerics.interpolant import LocalInterpolant
+from engine.nodes.lattice import lattice_stencils
+from engine.analysis.masks import mask_from_band
+from engine.analysis.metrics import dice
 
 SPACING = np.array([1.0, 1.0])  # mm per pixel (row, col); h = 1 px
 

@@ -1,4 +1,4 @@
-"""Tests for engine.contours: marching squares on band cells.
+"""Tests for engine.analysis.contours: marching squares on band cells.
 
 The reference for every polyline is ``skimage.measure.find_contours`` (level 0)
 run on the full grid of the same samples; the band keeps only the nodes with
@@ -17,7 +17,7 @@ from scipy.ndimage import binary_dilation
 from skimage.filters import gaussian
 from skimage.measure import find_contours
 
-from engine.contours import (
+from engine.analysis.contours import (
     BandCutWarning,
     band_contour_set,
     band_contours,

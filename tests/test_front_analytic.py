@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from ellipse_reference import exact_ellipse_distance
 
-from engine.closest_point import closest_points
+from engine.numerics.closest_point import closest_points
 from engine.front import Front
-from engine.front_geometry import crossing_points
+from engine.nodes.lattice_band import crossing_points
 
 
 def circle_sd(centre, radius):

@@ -8,7 +8,7 @@ from test_front_analytic import circle_sd, mean_radius
 from test_front_segmentation import disk_image
 
 from engine.front import Front
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 
 
 def ssp_rk3_real_limit() -> float:
@@ -57,7 +57,7 @@ def test_ssp_rk3_steps_stay_within_its_stability_limit(normal: tuple[float, ...]
     front.step(300)
     assert np.max(np.abs(front.pixel_phi() - before)) < 1e-9
     dt = front.time / front.steps
-    rho = front.params.curvature_weight * front._spectral_radius * front._curvature_gain
+    rho = front.params.curvature_weight * front.layout.spectral_radius(front._band) * front._curvature_gain
     assert dt * rho <= ssp_rk3_real_limit()
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 
 

@@ -10,8 +10,8 @@ from scipy import ndimage
 from skimage.data import shepp_logan_phantom
 
 from engine.front import Front
-from engine.metrics import dice
-from engine.node_set import ScatteredNodeSet
+from engine.analysis.metrics import dice
+from engine.nodes.node_set import ScatteredNodeSet
 from engine.segment import segment
 from test_front_analytic import circle_sd, expanded_square_errors, shrunk_square_errors
 

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 
 from engine.front import Front
-from engine.metrics import dice
-from engine.node_set import ScatteredNodeSet
+from engine.analysis.metrics import dice
+from engine.nodes.node_set import ScatteredNodeSet
 from tests.test_front_scattered import check_snapshot_and_determinism
 
 

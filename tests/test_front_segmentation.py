@@ -8,7 +8,7 @@ from scipy import ndimage
 from skimage.data import shepp_logan_phantom
 
 from engine.front import Front
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 
 # Shepp & Logan, "The Fourier reconstruction of a head section", IEEE Trans.

@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from engine.convergence import CHECK_EVERY, OutlineMotion, hausdorff
-from engine.growth import CLEAR_INSIDE, RegionGrowth, noise_level, smoothing_factor
-from engine.metrics import dice
+from engine.front.convergence import CHECK_EVERY, OutlineMotion, hausdorff
+from engine.image.growth import CLEAR_INSIDE, RegionGrowth, noise_level, smoothing_factor
+from engine.analysis.metrics import dice
 from engine.segment import segment
-from engine.thickness import THIN_LENGTH, half_width, thin_length, thin_midline
+from engine.image.thickness import THIN_LENGTH, half_width, thin_length, thin_midline
 from partial_volume import partial_volume
 
 

@@ -2,7 +2,7 @@
 
 Shapes are invented (tests/growth_phantoms.py), rendered with partial
 volume; Dice is against the pixel-centre truth. "Converged" must mean the
-outline stopped moving (engine.convergence): a front is checked at the
+outline stopped moving (engine.front.convergence): a front is checked at the
 moment it reports convergence, not later.
 """
 
@@ -13,7 +13,7 @@ import pytest
 
 import growth_phantoms as gp
 from engine.front import Front
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import Segmenter, segment
 
 

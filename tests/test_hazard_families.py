@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 import growth_phantoms as gp
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 
 #: Cases per family and draw.

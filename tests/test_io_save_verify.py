@@ -22,9 +22,9 @@ import numpy as np
 import pydicom
 import pytest
 from nibabel.affines import apply_affine
-from pydicom.data import get_testdata_file
 from pydicom.uid import generate_uid
 
+from pydicom_series import ct5n_folder
 import engine.io as eio
 from engine.cli import main as cli_main
 from engine.io import ApprovedResultError, SaveError
@@ -34,13 +34,6 @@ TABLE = [
     {"index": 1, "name": "organ", "abbreviation": "ORG"},
     {"index": 3, "name": "lesion", "abbreviation": "LES", "color": "#d55e00"},
 ]
-
-
-def ct5n_folder() -> Path:
-    path = get_testdata_file("DICOMDIR", download=False)  # pydicom test data
-    if path is None:
-        pytest.skip("pydicom's dicomdirtests are not bundled with the installed pydicom")
-    return Path(path).parent / "98892001" / "CT5N"
 
 
 @pytest.fixture()

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-import engine.lattice as lattice
-from engine.lattice import LatticeLookup, symmetric_offsets
+import engine.nodes.lattice as lattice
+from engine.nodes.lattice import LatticeLookup, symmetric_offsets
 
 
 def _brute_force(indices: np.ndarray, query: np.ndarray) -> np.ndarray:

@@ -1,4 +1,4 @@
-"""Tests for engine.masks: pixel-centre masks from a band and partial volumes."""
+"""Tests for engine.analysis.masks: pixel-centre masks from a band and partial volumes."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from skimage.measure import points_in_poly
 
-from engine.contours import band_contours, signed_area
-from engine.masks import mask_from_band, partial_volume
+from engine.analysis.contours import band_contours, signed_area
+from engine.analysis.masks import mask_from_band, partial_volume
 
 
 # --------------------------------------------------------------------------

@@ -1,4 +1,4 @@
-"""Tests for engine.metrics: hand-computed values, scipy/scikit-image references."""
+"""Tests for engine.analysis.metrics: hand-computed values, scipy/scikit-image references."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ from skimage.draw import ellipse as draw_ellipse
 from skimage.measure import find_contours
 from skimage.segmentation import find_boundaries
 
-from engine import metrics
+from engine.analysis import metrics
 
 
 def _rings() -> tuple[np.ndarray, np.ndarray]:

@@ -1,4 +1,4 @@
-"""Tests for engine.node_set (edge-adaptive spacing, scattered band operators).
+"""Tests for engine.nodes.node_set (edge-adaptive spacing, scattered band operators).
 
 External references used here:
 - Franke's test function and its derivatives: R. Franke, "Scattered data
@@ -28,15 +28,15 @@ import pytest
 import scipy.sparse as sp
 from scipy.interpolate import RBFInterpolator
 
-from engine.band_stencils import band_stencil
-from engine.image_features import compute_features
-from engine.node_set import (
+from engine.nodes.band_stencils import band_stencil
+from engine.image.features import compute_features
+from engine.nodes.node_set import (
     ScatteredNodeSet,
     edge_adaptive_spacing,
     operator_labels,
 )
-from engine.scattered_nodes import spacing_quality
-from engine.time_stepping import rkl2, rkl2_stages
+from engine.nodes.scattered_nodes import spacing_quality
+from engine.numerics.time_stepping import rkl2, rkl2_stages
 
 CENTRE = np.array([0.5, 0.5])
 RADIUS = 0.3
@@ -713,7 +713,7 @@ def test_monomial_values_and_derivative_shift_match_numpy_polynomial():
     # random polynomial of degree 4 in 2 variables and its derivatives.
     from numpy.polynomial import polynomial as P
 
-    from engine.polynomials import (
+    from engine.numerics.polynomials import (
         derivative_shift,
         monomial_exponents,
         monomial_table,

@@ -6,8 +6,9 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-import engine.front_geometry as front_geometry
-from engine.front_geometry import crossing_points, grid_crossing_points, nodes_near
+import engine.nodes.lattice_band as lattice_band
+from engine.front.geometry import grid_crossing_points
+from engine.nodes.lattice_band import crossing_points, nodes_near
 
 
 def reference(centres: np.ndarray, step: np.ndarray, radius: float, upper: np.ndarray) -> np.ndarray:
@@ -25,7 +26,7 @@ def test_nodes_near_matches_a_kd_tree(step: tuple[float, ...], radius: float, de
     # Distances from scipy.spatial.cKDTree (a general-purpose reference);
     # radii chosen off the lattice's exact distances, so no node sits on a tie.
     if not dense:  # boxes beyond the dense limit go in slabs (here a few nodes thick)
-        monkeypatch.setattr(front_geometry, "DENSE_DISTANCE_LIMIT", 5000)
+        monkeypatch.setattr(lattice_band, "DENSE_DISTANCE_LIMIT", 5000)
     step_arr = np.array(step)
     upper = np.array([40, 47, 23][:len(step)])
     centres = np.random.default_rng(len(step)).integers(0, upper + 1, size=(30, len(step)))

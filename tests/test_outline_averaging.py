@@ -1,4 +1,4 @@
-"""Averaging along the outline (engine.outline_averaging) against the Gaussian it stands for."""
+"""Averaging along the outline (engine.numerics.outline_averaging) against the Gaussian it stands for."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-from engine.outline_averaging import average_along_outline
+from engine.numerics.outline_averaging import average_along_outline
 from partial_volume import partial_volume
 
 
@@ -187,7 +187,7 @@ def test_the_price_is_detail_shorter_than_the_averaging():
 
 
 def test_the_setting_is_checked():
-    from engine.speeds import FrontParams
+    from engine.front import FrontParams
 
     for bad in (-1.0, float("nan"), float("inf")):
         with pytest.raises(ValueError, match="outline_averaging"):

@@ -108,6 +108,32 @@ def test_a_misspelt_setting_is_a_value_error_naming_it():
         segment(disk_image(), [(32.0, 30.0, 4.0)], smoothnes=0.5)
 
 
+
+FRONT_CONSTRUCTORS = {
+    "from_seeds": lambda img, **kw: Front.from_seeds(img, [(32.0, 30.0, 4.0)], **kw),
+    "from_mask": lambda img, **kw: Front.from_mask(img, img > 120.0, **kw),
+    "from_pixel_phi": lambda img, **kw: Front.from_pixel_phi(img, np.where(img > 120.0, -1.0, 1.0), **kw),
+    "from_function": lambda img, **kw: Front.from_function(
+        lambda p: np.hypot(p[:, 0] - 32.0, p[:, 1] - 30.0) - 4.0, img.shape, image=img, **kw),
+}
+
+
+@pytest.mark.parametrize("constructor", sorted(FRONT_CONSTRUCTORS))
+def test_front_constructors_check_names_and_limits_as_segment_does(constructor):
+    make = FRONT_CONSTRUCTORS[constructor]
+    # from_mask hands its settings on to from_pixel_phi, which names itself
+    where = "from_pixel_phi" if constructor == "from_mask" else constructor
+    with pytest.raises(ValueError, match=rf"^smoothnes: not a setting of Front\.{where}\(\); did you mean smoothness\?"):
+        make(disk_image(), smoothnes=0.5)
+    # 64 x 64 pixels of 0.5 mm: half the smaller side is 16 mm
+    with pytest.raises(ValueError, match="outline_averaging") as info:
+        make(disk_image(), spacing=(0.5, 0.5), outline_averaging=1e6)
+    assert info.value.limit == pytest.approx(16.0)
+    with pytest.raises(ValueError, match="spacing"):
+        make(disk_image(), spacing=(1.0, 10.0))
+    with pytest.raises(ValueError, match=r"^spacing must be 2 positive numbers \(mm\)"):
+        make(disk_image(), spacing=(1.0, -1.0))
+
 @pytest.mark.parametrize("name", ["outline_averaging", "edge_sigma", "local_radius"])
 def test_sigmas_beyond_the_image_are_refused_before_any_work(name):
     # 64 x 64 pixels of 0.5 mm: half the smaller side is 16 mm
@@ -119,7 +145,7 @@ def test_sigmas_beyond_the_image_are_refused_before_any_work(name):
 
 
 def test_pixels_far_from_square_are_refused():
-    from engine.setting_limits import MAX_ANISOTROPY
+    from engine.validation.limits import MAX_ANISOTROPY
 
     with pytest.raises(ValueError, match="spacing"):
         segment(disk_image(), [(32.0, 30.0, 4.0)], spacing=(1.0, 10.0))

@@ -6,9 +6,10 @@ import numpy as np
 import pytest
 from scipy.interpolate import RBFInterpolator
 
-from engine.lattice import lattice_operators, symmetric_offsets
-from engine.polynomials import monomial_exponents
-from engine.rbffd import knn_stencils, operator_matrix, stencil_weights
+from engine.nodes.lattice import lattice_operators, symmetric_offsets
+from engine.numerics.polynomials import monomial_exponents
+from engine.numerics.neighbours import knn_stencils
+from engine.numerics.rbffd import operator_matrix, stencil_weights
 
 RNG_SEED = 20261201
 
@@ -42,7 +43,7 @@ def test_derivative_weights_agree_with_treverhines_rbf(dim: int) -> None:
     n = 30 if dim == 2 else 40
     points = _random_points(400, dim, seed=3)
     centers = _random_points(25, dim, seed=5) * 0.6 + 0.2
-    stencils = knn_stencils(points, centers, n)
+    stencils = knn_stencils(points, centers, k=n)
     ops: list = []
     for axis in range(dim):
         ops.append(tuple(int(axis == k) for k in range(dim)))
@@ -238,7 +239,7 @@ def test_band_stencil_rescaled_from_the_unit_step_equals_a_direct_solve(step: tu
     # Polyharmonic-spline + polynomial RBF-FD weights are scale-covariant
     # (Flyer, Fornberg, Bayona & Barnett, J. Comput. Phys. 321 (2016) 21-38):
     # the rescaled stencil must equal the one solved on the step itself.
-    from engine.band_stencils import _make_band_stencil, band_stencil
+    from engine.nodes.band_stencils import _make_band_stencil, band_stencil
 
     direct = _make_band_stencil(step)
     scaled = band_stencil(step)

@@ -16,7 +16,6 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
-import pytest
 from PIL import Image
 
 import engine.io as eio

@@ -12,12 +12,11 @@ import json
 from contextlib import redirect_stdout
 from pathlib import Path
 
-import numpy as np
 import pytest
 
 import engine.io as eio
 from engine.cli import main
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 
 ROOT = Path(__file__).resolve().parents[1] / "sample_cases"

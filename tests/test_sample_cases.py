@@ -1,4 +1,4 @@
-"""The invented demo cases in sample_cases/ and the phantom generator (engine.phantoms).
+"""The invented demo cases in sample_cases/ and the phantom generator (engine.phantoms.mr).
 
 The committed files are read with pydicom, highdicom, nibabel and Pillow and
 compared with each other and with engine.io; the generator is checked against
@@ -18,7 +18,7 @@ import pytest
 from PIL import Image
 
 import engine.io as eio
-import engine.phantoms as phantoms
+import engine.phantoms.mr as phantoms
 
 ROOT = Path(__file__).resolve().parents[1] / "sample_cases"
 CASES = {"abdomen_mr": (24, 256, 256), "head_mr": (16, 160, 160)}

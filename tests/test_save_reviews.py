@@ -10,24 +10,17 @@ from __future__ import annotations
 import hashlib
 import json
 import shutil
-from pathlib import Path
 
 import numpy as np
 import pytest
 from PIL import Image
 from pydicom.data import get_testdata_file
 
+from pydicom_series import ct5n_folder
 import engine.io as eio
 from engine.cli import main
 
 TABLE = [{"index": 1, "name": "organ"}]
-
-
-def ct5n_folder() -> Path:
-    path = get_testdata_file("DICOMDIR", download=False)  # pydicom test data
-    if path is None:
-        pytest.skip("pydicom's dicomdirtests are not bundled with the installed pydicom")
-    return Path(path).parent / "98892001" / "CT5N"
 
 
 @pytest.fixture()

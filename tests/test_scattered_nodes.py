@@ -1,4 +1,4 @@
-"""Tests for engine.scattered_nodes.
+"""Tests for engine.nodes.scattered_nodes.
 
 External references used here:
 - Fornberg & Flyer, Comput. Math. Appl. 69 (2015) 531-544 (the 2-D algorithm;
@@ -18,14 +18,14 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-from engine.scattered_nodes import (
+from engine.nodes.scattered_nodes import (
     DENSITY_2D,
     DENSITY_3D,
-    knn_stencils,
     mask_region,
     scattered_nodes,
     spacing_quality,
 )
+from engine.numerics.neighbours import knn_stencils
 
 HEX_AREA_PER_NODE = math.sqrt(3.0) / 2.0  # times r^2 (common geometry, from memory)
 FCC_VOLUME_PER_NODE = 1.0 / math.sqrt(2.0)  # times r^3 (common geometry, from memory)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from skimage.draw import disk
 
-from engine.front_geometry import seed_disks
+from engine.front.geometry import seed_disks
 
 
 def test_seed_disks_match_scikit_image_disks() -> None:

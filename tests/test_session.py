@@ -10,9 +10,9 @@ import nibabel as nib
 import numpy as np
 import pytest
 
-from engine.contours import signed_area
+from engine.analysis.contours import signed_area
 from engine.io import verify
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.session import Session, SessionBusy, open_result
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 import growth_phantoms as gp
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 from engine.session import Session
 

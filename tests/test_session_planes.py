@@ -13,8 +13,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from engine.contours import signed_area
-from engine.phantoms import centred_affine
+from engine.analysis.contours import signed_area
+from engine.phantoms.mr import centred_affine
 from engine.session.outline import outline_from_phi
 from engine.session.planes import (
     auto_window,

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 from partial_volume import partial_volume
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from engine.time_stepping import rkl2, rkl2_reach, rkl2_stages, rkl2_step
+from engine.numerics.time_stepping import rkl2, rkl2_reach, rkl2_stages, rkl2_step
 
 
 def test_rkl2_is_second_order_on_the_heat_equation() -> None:

@@ -7,7 +7,6 @@
 from __future__ import annotations
 
 import argparse
-import sys
 
 from app.verbs.launch import launch, report, window_problem
 from engine.commands import demo as headless

@@ -285,7 +285,7 @@ def parse_case(row: Mapping[str, Any], *, number: int, base: str | os.PathLike[s
     ValueError
         A missing required field or a bad value (the message names the field).
     """
-    from engine.speeds import MODELS
+    from engine.front import MODELS
     from engine.session.settings import FrontSettings
 
     for key in REQUIRED:

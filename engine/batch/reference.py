@@ -80,7 +80,7 @@ def score(mask: NDArray[np.bool_], reference: NDArray[np.bool_], slices: tuple[i
        "Comparing images using the Hausdorff distance", IEEE Trans. Pattern
        Anal. Mach. Intell. 15(9) (1993) 850-863.
     """
-    from engine.metrics import dice, hd95
+    from engine.analysis.metrics import dice, hd95
 
     lo, hi = slices
     a = np.asarray(mask[lo:hi + 1], dtype=bool)

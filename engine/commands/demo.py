@@ -1,7 +1,7 @@
 """``isotide demo --headless [--out DIR]``: outline two structures of an invented phantom, without the window.
 
 The demo renders one axial slice of the invented abdomen phantom
-(:func:`engine.phantoms.build_abdomen`, 256 x 256 pixels of 1.5625 mm: the
+(:func:`engine.phantoms.mr.build_abdomen`, 256 x 256 pixels of 1.5625 mm: the
 height of slice 11 of ``sample_cases/abdomen_mr``, whose README documents the
 seeds used here), grows a front with the default model from a preset seed in
 each of two structures, and writes into the folder ``DIR`` (default
@@ -69,7 +69,7 @@ class DemoStructure:
     Attributes
     ----------
     name : str
-        Structure name (as in :data:`engine.phantoms.ABDOMEN_LABELS`).
+        Structure name (as in :data:`engine.phantoms.mr.ABDOMEN_LABELS`).
     truth_label : int
         Its label in the phantom's truth.
     seed : (float, float, float)
@@ -139,15 +139,15 @@ def demo_phantom(*, supersample: int = 4, noise_sigma: float = 18.0):
     """The demo's slice: one 256 x 256 axial slice of the invented abdomen.
 
     Rendered at the height of slice :data:`DEMO_SLICE` of the default
-    24-slice, 144 mm stack of :func:`engine.phantoms.build_abdomen` (6 mm
+    24-slice, 144 mm stack of :func:`engine.phantoms.mr.build_abdomen` (6 mm
     thick, 1.5625 mm pixels), so its truth labels equal that slice's.
 
     Returns
     -------
-    engine.phantoms.Phantom
+    engine.phantoms.mr.Phantom
         With one slice (``image``/``truth`` of shape ``(1, 256, 256)``).
     """
-    from engine.phantoms import build_abdomen
+    from engine.phantoms.mr import build_abdomen
 
     n, depth = 24, 144.0
     thickness = depth / n
@@ -283,7 +283,7 @@ def run_demo(out: str | os.PathLike[str] = DEFAULT_OUT, *, model: str = "region"
     from engine.commands import interrupts
     from engine.io import SaveError, load
     from engine.io.atomic import commit_files
-    from engine.metrics import dice
+    from engine.analysis.metrics import dice
     from engine.segmenter import Segmenter
     from engine.session import Session
 

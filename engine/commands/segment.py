@@ -61,13 +61,11 @@ from engine.commands.segment_options import PROG, Settings, UsageError, parse_se
 from engine.commands.segment_options import add_arguments, one_line_errors  # noqa: F401 - the verb's interface
 
 if TYPE_CHECKING:
-    from collections.abc import Callable
-
     from engine.front import Front
     from engine.io import Volume
     from engine.segment import Segmentation
     from engine.segmenter import Segmenter
-    from engine.setting_limits import SettingLimitError
+    from engine.validation.limits import SettingLimitError
 
 HELP = "grow a front from seed disks on one slice and save the outline"
 
@@ -303,7 +301,7 @@ def save_through_session(settings: Settings, volume: "Volume", front: "Front", p
                          checkpoint: Callable[[], None] | None = None) -> dict[str, Path]:
     """Save the outline as the window and a batch do: one label of a :class:`engine.session.Session`,
     the outline committed as a ``segment`` command whose details are the run's, the record built there."""
-    from engine.contours import BandCutWarning
+    from engine.analysis.contours import BandCutWarning
     from engine.io.sidecar import OKABE_ITO
     from engine.session import Session
 
@@ -330,10 +328,10 @@ def _evolve(settings: Settings, image: np.ndarray, spacing: tuple[float, float],
     the image's border, and left out there.
     """
     from engine.commands import interrupts
-    from engine.contours import BandCutWarning
+    from engine.analysis.contours import BandCutWarning
     from engine.front import FrontVanished
     from engine.segmenter import Segmenter
-    from engine.setting_limits import SettingLimitError
+    from engine.validation.limits import SettingLimitError
 
     bar = TextProgress(settings.max_steps or 20000, stream=sys.stderr) if wants_progress(
         settings.progress, sys.stderr) else None

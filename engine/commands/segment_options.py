@@ -190,7 +190,7 @@ def result_prefix(out: str) -> str:
 
 def parse_settings(args: argparse.Namespace) -> Settings:
     """Check every command-line value; raise :class:`UsageError` naming the first bad one."""
-    from engine.speeds import MODELS
+    from engine.front import MODELS
 
     if not args.seed:
         raise UsageError("--seed: at least one ROW,COL,RADIUS seed is required")

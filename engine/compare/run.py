@@ -110,7 +110,7 @@ class VariantRun:
         return self._frame
 
     def _publish(self, front: Any, **extra: Any) -> None:
-        from engine.metrics import polygon_area_mm2, polyline_length_mm
+        from engine.analysis.metrics import polygon_area_mm2, polyline_length_mm
 
         final = extra.get("finished", False)
         contours: tuple = ()

@@ -1,7 +1,7 @@
 """The Compare board's metrics: each variant's figures, Dice and HD95 against the committed outline or a
 reference, and between every two variants.
 
-Overlap and distances come from :mod:`engine.metrics` (Dice 1945; HD95, the
+Overlap and distances come from :mod:`engine.analysis.metrics` (Dice 1945; HD95, the
 95th percentile of the pooled surface distances, Huttenlocher et al. 1993)
 with the slice's pixel spacing, so distances are in mm.
 """
@@ -47,7 +47,7 @@ class CompareTable:
 
 def _scores(mask: NDArray[np.bool_] | None, other: NDArray[np.bool_] | None,
             spacing: Sequence[float]) -> tuple[float, float]:
-    from engine.metrics import dice, hd95
+    from engine.analysis.metrics import dice, hd95
 
     if mask is None or other is None:
         return math.nan, math.nan

@@ -124,7 +124,7 @@ def _setting_text(key: str, value: Any) -> str:
 
 def settings_text(model: Any, parameters: Mapping[str, Any] | None) -> str:
     """The settings an outline was made with, in the window's words (main ones, then any changed advanced one)."""
-    from engine.speeds import FrontParams
+    from engine.front import FrontParams
 
     params = dict(parameters or {})
     model = str(model or params.get("model") or "")
@@ -229,7 +229,7 @@ def report_html(path: str | os.PathLike[str], *, volume: Any = None,
     from engine import __version__
     from engine.io import verify
     from engine.io.sidecar import utc_now
-    from engine.metrics import area_mm2
+    from engine.analysis.metrics import area_mm2
     from engine.review.pictures import slice_picture
     from engine.session.planes import auto_window, plane_views
 

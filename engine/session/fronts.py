@@ -1,7 +1,7 @@
 """Starting and rebuilding a session's live front: from seeds, an outline, a stroke or a snapshot.
 
 Seeds grow as :func:`engine.segment.segment` grows them (:func:`grow_from_seeds`:
-the pixel flood of :mod:`engine.growth`, then the front from its outline), so
+the pixel flood of :mod:`engine.image.growth`, then the front from its outline), so
 the window, a batch and the command line give the same outline for the same
 seeds and settings.
 
@@ -24,7 +24,7 @@ from numpy.typing import NDArray
 from scipy import ndimage
 
 from engine.front import Front, FrontSnapshot
-from engine.front_geometry import stroke_distance
+from engine.front.geometry import stroke_distance
 from engine.segmenter import EXACT_WITHIN, Segmenter
 from engine.session.outline import Outline
 from engine.session.settings import FrontSettings
@@ -115,8 +115,8 @@ def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floatin
 def window_for_mask(image: NDArray[np.floating], spacing: Sequence[float], mask: NDArray[np.bool_]
                     ) -> tuple[float, float]:
     """The intensity window the window model estimates from the pixels of ``mask``."""
-    from engine.front import estimate_window_from_mask
-    from engine.image_features import compute_features
+    from engine.image.statistics import estimate_window_from_mask
+    from engine.image.features import compute_features
 
     feats = compute_features(np.asarray(image, dtype=float), np.asarray(spacing, dtype=float))
     return estimate_window_from_mask(feats.smoothed, np.asarray(mask, dtype=bool))

@@ -21,7 +21,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import ndimage
 
-from engine.contours import band_contours, polyline_length, signed_area
+from engine.analysis.contours import band_contours, polyline_length, signed_area
 
 __all__ = ["Outline", "outline_from_front", "outline_from_mask", "outline_from_phi", "frozen_array"]
 
@@ -127,7 +127,7 @@ def outline_from_phi(label: int, slice_index: int, pixel_phi: NDArray[np.floatin
     """An outline from φ at every pixel centre (mm, negative inside).
 
     Without ``contours`` they come from marching squares on ``pixel_phi``
-    (Lorensen & Cline 1987, as in :func:`engine.contours.band_contours`), and
+    (Lorensen & Cline 1987, as in :func:`engine.analysis.contours.band_contours`), and
     without ``curvature`` it is κ = ∇·(∇φ/|∇φ|) of ``pixel_phi`` by central
     differences (smoothed over one pixel), interpolated at the vertices.
     """

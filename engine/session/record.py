@@ -28,7 +28,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from engine.session.outline import outline_from_mask
-from engine.speeds import FrontParams
+from engine.front import FrontParams
 from engine.session.settings import FrontSettings
 from engine.session.state import Label, SessionState
 

@@ -778,7 +778,7 @@ class Session:
         if self.curvature_colours and contours:
             curvature = tuple(frozen_array(front.curvature_at(c), float) for c in contours)
         sp = np.asarray(self.spacing)
-        from engine.contours import polyline_length, signed_area
+        from engine.analysis.contours import polyline_length, signed_area
 
         area = float(sum(signed_area(c * sp) for c in contours))
         perimeter = float(sum(polyline_length(c * sp) for c in contours))
@@ -790,7 +790,7 @@ class Session:
 
     def _growth_frame(self, base: dict[str, Any], running: bool) -> Frame:
         """A frame of the flood (the pixels it has taken, outlined along their edges)."""
-        from engine.contours import polyline_length, signed_area
+        from engine.analysis.contours import polyline_length, signed_area
 
         grower = self._grower
         contours = tuple(frozen_array(c, float) for c in grower.contours())

@@ -6,7 +6,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, fields
 from typing import Any
 
-from engine.speeds import FrontParams
+from engine.front import FrontParams
 
 __all__ = ["FrontSettings", "DEFAULT_MAX_STEPS"]
 
@@ -27,7 +27,7 @@ class FrontSettings:
     """Model, front parameters (only those set), lattice detail and step limit.
 
     Immutable and hashable; :meth:`updated` validates every change through
-    :class:`engine.speeds.FrontParams`, so a bad value is refused before any
+    :class:`engine.front.speeds.FrontParams`, so a bad value is refused before any
     front sees it.
     """
 

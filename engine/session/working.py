@@ -36,7 +36,7 @@ from engine.io.sidecar import utc_now
 from engine.session.outline import Outline, frozen_array
 from engine.session.settings import FrontSettings
 from engine.session.state import Command, Label, LiveState, SessionState
-from engine.speeds import FrontParams
+from engine.front import FrontParams
 
 if TYPE_CHECKING:
     from engine.io.volume import Volume

@@ -21,8 +21,8 @@ try:
 except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.contours import _cell_segments, _chain_order, band_contour_set, band_contours
-from engine.masks import mask_from_band, partial_volume
+from engine.analysis.contours import _cell_segments, _chain_order, band_contour_set, band_contours
+from engine.analysis.masks import mask_from_band, partial_volume
 
 
 def best_of(fn, repeat: int = 5) -> float:

@@ -47,7 +47,7 @@ try:
 except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.metrics import dice
+from engine.analysis.metrics import dice
 from engine.segment import segment
 
 INSIDE = 0.2

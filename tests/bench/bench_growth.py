@@ -70,8 +70,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import growth_phantoms as gp  # noqa: E402
 
-from engine.front_geometry import seed_disks  # noqa: E402
-from engine.metrics import dice  # noqa: E402
+from engine.front.geometry import seed_disks  # noqa: E402
+from engine.analysis.metrics import dice  # noqa: E402
 from engine.segment import segment  # noqa: E402
 
 SIDES = (256, 512, 1024)

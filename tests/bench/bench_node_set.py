@@ -26,10 +26,10 @@ try:
 except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.band_stencils import band_stencil
-from engine.image_features import compute_features
-from engine.node_set import ScatteredNodeSet, edge_adaptive_spacing
-from engine.scattered_nodes import spacing_quality
+from engine.nodes.band_stencils import band_stencil
+from engine.image.features import compute_features
+from engine.nodes.node_set import ScatteredNodeSet, edge_adaptive_spacing
+from engine.nodes.scattered_nodes import spacing_quality
 
 
 def timed(label: str, fn, repeats: int = 1):

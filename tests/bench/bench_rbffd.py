@@ -8,18 +8,18 @@ number of non-zeros, measured in the same process. Asserts nothing.
 
 Rows:
 - RBF-FD weights (r^5, degree 4, n = 30; operators ∂x, ∂y, ∂xx, ∂xy, ∂yy) by
-  ``engine.rbffd.operator_matrix`` for 10 000 and 40 000 stencils on uniform
+  ``engine.numerics.rbffd.operator_matrix`` for 10 000 and 40 000 stencils on uniform
   random points, and on variable-density nodes from
-  ``engine.scattered_nodes.scattered_nodes`` (their generation timed too).
-- ``engine.lattice.lattice_operators`` for a ~10 000-node annulus band at
+  ``engine.nodes.scattered_nodes.scattered_nodes`` (their generation timed too).
+- ``engine.nodes.lattice.lattice_operators`` for a ~10 000-node annulus band at
   h = 1 px (one-sided edge stencils, and with ``edge="skip"``).
 - One stacked operator matvec (the five matrices in one CSR) against a random
   CSR of the same shape and nnz.
 - The gather-and-dense-product form the front uses,
-  ``phi[gather] @ W`` with ``engine.band_stencils.band_stencil`` weights, on
+  ``phi[gather] @ W`` with ``engine.nodes.band_stencils.band_stencil`` weights, on
   the same band; again in a child process with BLAS limited to one thread
   (small products can be much slower with BLAS threads on a busy machine).
-- Newton signed distance (``engine.closest_point.signed_distance``) for
+- Newton signed distance (``engine.numerics.closest_point.signed_distance``) for
   10 000 points within 5 px of the ellipse x²/a² + y²/b² = 1 (a = 40, b = 20
   px) from node values of the implicit function exp(x²/a² + y²/b² − 1) − 1, with the
   interpolant set-up timed separately and the error against the exact
@@ -45,13 +45,13 @@ try:
 except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.band_stencils import band_stencil
-from engine.closest_point import signed_distance
-from engine.contours import band_contours
-from engine.interpolant import LocalInterpolant
-from engine.lattice import LatticeLookup, lattice_operators, lattice_stencils
-from engine.rbffd import operator_matrix
-from engine.scattered_nodes import DENSITY_2D, scattered_nodes
+from engine.nodes.band_stencils import band_stencil
+from engine.numerics.closest_point import signed_distance
+from engine.analysis.contours import band_contours
+from engine.numerics.interpolant import LocalInterpolant
+from engine.nodes.lattice import LatticeLookup, lattice_operators, lattice_stencils
+from engine.numerics.rbffd import operator_matrix
+from engine.nodes.scattered_nodes import DENSITY_2D, scattered_nodes
 
 OPS = [(1, 0), (0, 1), (2, 0), (1, 1), (0, 2)]
 ROWS: list[tuple[str, str, str]] = []

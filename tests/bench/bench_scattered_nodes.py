@@ -26,7 +26,8 @@ try:
 except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.scattered_nodes import DENSITY_2D, DENSITY_3D, knn_stencils, scattered_nodes, spacing_quality
+from engine.nodes.scattered_nodes import DENSITY_2D, DENSITY_3D, scattered_nodes, spacing_quality
+from engine.numerics.neighbours import knn_stencils
 
 
 def best_of(fn: Callable[[], np.ndarray], repeats: int = 3) -> tuple[float, np.ndarray]:

@@ -44,7 +44,7 @@ def noisy_ball(side: int) -> tuple[np.ndarray, np.ndarray, tuple[float, ...]]:
 
 
 def segment_ball(side: int) -> None:
-    from engine.metrics import dice
+    from engine.analysis.metrics import dice
     from engine.segment import segment
 
     image, truth, seed = noisy_ball(side)

@@ -49,7 +49,7 @@ from each method's own outline to the exact boundary curve, in pixels
 morphological: contours of its binary mask at 0.5, the best outline a mask
 gives); mask surface RMS (for reference) = root mean square of the pooled
 surface distances between each binary mask and the pixel-centre truth
-(``engine.metrics.surface_distances``; 0 for a perfect mask).
+(``engine.analysis.metrics.surface_distances``; 0 for a perfect mask).
 
 The boundary error is the outline's, as in the project's accuracy targets
 (contour RMS error of a partial-volume disk ≤ 0.05 px, where any binary
@@ -91,7 +91,7 @@ from bench_front_scaling import (  # noqa: E402
     INSIDE, NOISE_SIGMA, OUTSIDE, blas_threads, blob_boundary, blob_level, make_phantom,
 )
 
-from engine.metrics import dice, surface_distances  # noqa: E402
+from engine.analysis.metrics import dice, surface_distances  # noqa: E402
 from engine.segment import segment  # noqa: E402
 
 SIDE = 512

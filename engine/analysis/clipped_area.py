@@ -15,7 +15,7 @@ cut by the border: median error 0.2 pixel², 95th percentile 0.65). The result a
 count of pixel centres inside to within the partial volume of the boundary
 pixels.
 
-Conventions as in :mod:`engine.contours`: vertices ``(row, col)`` read as
+Conventions as in :mod:`engine.analysis.contours`: vertices ``(row, col)`` read as
 ``(x, y)``; outer boundaries run counter-clockwise (positive shoelace area)
 with the inside on their left, holes clockwise.
 
@@ -32,7 +32,7 @@ from collections.abc import Sequence
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from engine.contours import signed_area
+from engine.analysis.contours import signed_area
 
 __all__ = ["area_in_image"]
 
@@ -116,7 +116,7 @@ def area_in_image(
     ----------
     polylines : sequence of (k, 2) arrays
         Contours in pixel (row, col), inside on the left (see
-        :mod:`engine.contours`); open ones end on (or within 1.5 pixels of)
+        :mod:`engine.analysis.contours`); open ones end on (or within 1.5 pixels of)
         the box of pixel centres and are joined straight to it.
     closed : sequence of bool
         Which polylines are closed.

@@ -21,7 +21,8 @@ import numpy as np
 import scipy.sparse as sp
 from numpy.typing import ArrayLike, NDArray
 
-from engine.rbffd import knn_stencils, parse_operator, stencil_weights
+from engine.numerics.neighbours import knn_stencils
+from engine.numerics.rbffd import parse_operator, stencil_weights
 
 
 def symmetric_offsets(dim: int, size: int) -> NDArray[np.int64]:
@@ -167,7 +168,7 @@ def lattice_stencils(
     if len(edge_rows):
         # Nearest in index space, so that each axis keeps enough distinct
         # coordinates for the polynomial part on anisotropic lattices.
-        edge = knn_stencils(idx.astype(float), idx[edge_rows].astype(float), k_edge)
+        edge = knn_stencils(idx.astype(float), idx[edge_rows].astype(float), k=k_edge)
     return pattern, interior, edge
 
 
@@ -189,7 +190,7 @@ def lattice_operators(
         Lattice indices of the region's nodes.
     step : (d,) array_like
         Lattice step per axis in mm.
-    ops : list of operator specs (see :func:`engine.rbffd.parse_operator`).
+    ops : list of operator specs (see :func:`engine.numerics.rbffd.parse_operator`).
     edge : {"one-sided", "skip"}
         Nodes whose symmetric pattern is incomplete get one-sided k-nearest
         stencils, or empty rows with ``"skip"`` (for callers that never

@@ -64,8 +64,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
-from engine.front import SIDE_SHARE
-from engine.front_geometry import seed_disks
+from engine.front.constants import SIDE_SHARE
+from engine.front.geometry import seed_disks
 
 #: Models the flood serves (it follows their inside test).
 GROWTH_MODELS = ("region", "window")
@@ -426,7 +426,7 @@ def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px
     radius = np.asarray(radius_px, dtype=float)
     block = max(1, int(np.min(radius) // 3))
     if block > 1 and min(values.shape) >= 4 * block:
-        from engine.coarse_start import block_mean
+        from engine.image.coarse_start import block_mean
 
         small_w = ndimage.gaussian_filter(block_mean(m, block), radius / block, mode="constant")
         small_s = ndimage.gaussian_filter(block_mean(values * m, block), radius / block, mode="constant")

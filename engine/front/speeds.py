@@ -36,13 +36,13 @@ Models
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields, replace
+from dataclasses import dataclass, fields, replace
 
 import numpy as np
 from numpy.typing import NDArray
 
 MODELS = ("region", "edge", "window", "curvature", "constant")
-#: Time integrators of a front step (:mod:`engine.time_stepping`).
+#: Time integrators of a front step (:mod:`engine.numerics.time_stepping`).
 INTEGRATORS = ("rkl2", "ssp_rk3")
 
 
@@ -68,7 +68,6 @@ class FrontParams:
     integrator: str = "rkl2"  # "rkl2": super time steps; "ssp_rk3": three-stage steps within every stability limit
     convergence_tol: float = 0.05  # largest outline displacement over the window, in pixel spacings
     convergence_window: int = 20  # steps
-    extra: dict = field(default_factory=dict, compare=False)
 
     def __post_init__(self) -> None:
         if self.model not in MODELS:
@@ -115,7 +114,7 @@ class FrontParams:
         the symmetric 3-D lattice patterns jump from 57 to 81 nodes, and 57
         already resolves degree 4 with a well-behaved curvature operator.
         """
-        from engine.polynomials import monomial_count
+        from engine.numerics.polynomials import monomial_count
 
         if self.stencil_size is not None:
             return int(self.stencil_size)
@@ -141,7 +140,7 @@ class FrontParams:
 
     def as_dict(self) -> dict:
         """Plain values for provenance records."""
-        out = {f.name: getattr(self, f.name) for f in fields(self) if f.name != "extra"}
+        out = {f.name: getattr(self, f.name) for f in fields(self)}
         out["smoothness"] = self.curvature_weight
         if self.window is not None:
             out["window"] = list(self.window)
@@ -256,3 +255,7 @@ def needed_features(model: str, *, edge_weight: float = 0.0) -> tuple[str, ...]:
     region = ("smoothed", "edge") if edge_weight > 0 else ("smoothed",)
     return {"region": region, "window": ("smoothed",), "edge": ("edge", "edge_gradient"),
             "curvature": (), "constant": ()}[model]
+
+
+#: Keywords that name a setting of :class:`FrontParams` (besides ``model``, which every caller takes itself).
+SETTING_NAMES = frozenset(f.name for f in fields(FrontParams)) - {"model"}

@@ -30,7 +30,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
-from engine.contours import validate_band
+from engine.analysis.contours import validate_band
 
 __all__ = ["mask_from_band", "partial_volume"]
 
@@ -176,8 +176,8 @@ def partial_volume(polylines: Sequence[ArrayLike], shape: Sequence[int]) -> NDAr
         Closed polylines in pixel coordinates (row, col), closing edge implied
         (a repeated first vertex is harmless). Outer boundaries must have
         positive shoelace area on (row, col) as (x, y) and holes negative, as
-        returned by :func:`engine.contours.band_contours` (see
-        :func:`engine.contours.orient` for polylines from elsewhere).
+        returned by :func:`engine.analysis.contours.band_contours` (see
+        :func:`engine.analysis.contours.orient` for polylines from elsewhere).
     shape : (int, int)
         Image shape (rows, cols); pixel (r, c) is the square
         [r - 0.5, r + 0.5] × [c - 0.5, c + 0.5].

@@ -24,8 +24,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from engine.interpolant import LocalInterpolant
-from engine.rbffd import validate_points
+from engine.numerics.interpolant import LocalInterpolant
+from engine.numerics.rbffd import validate_points
 
 
 @dataclass(frozen=True)

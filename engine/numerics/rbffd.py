@@ -30,10 +30,10 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 from numpy.typing import ArrayLike, NDArray
-from scipy.spatial import cKDTree
 
-from engine.kernels import check_phs, phs_derivative, phs_laplacian_power
-from engine.polynomials import (
+from engine.numerics.kernels import check_phs, phs_derivative, phs_laplacian_power
+from engine.numerics.neighbours import knn_stencils
+from engine.numerics.polynomials import (
     Terms,
     apply_to_monomials,
     laplacian_power_terms,
@@ -214,14 +214,6 @@ def validate_points(points: ArrayLike, name: str = "points") -> NDArray[np.float
     return arr
 
 
-def knn_stencils(points: NDArray[np.floating], centers: NDArray[np.floating], k: int) -> NDArray[np.int64]:
-    """Indices of the ``k`` nearest points to each centre (nearest first)."""
-    if k > len(points):
-        raise ValueError(f"stencil_size={k} exceeds the number of points ({len(points)})")
-    _, idx = cKDTree(points).query(centers, k=k)
-    return np.asarray(idx, dtype=np.int64).reshape(len(centers), k)
-
-
 def assemble(stencils: NDArray[np.integer], weights: NDArray[np.floating],
              n_columns: int) -> sp.csr_matrix:
     """Sparse matrix with row s holding ``weights[s]`` at columns ``stencils[s]``."""
@@ -282,7 +274,9 @@ def operator_matrix(
     if not isinstance(stencil_size, (int, np.integer)) or stencil_size < 1:
         raise ValueError(f"stencil_size must be a positive integer, got {stencil_size!r}")
     stencil_size = int(stencil_size)
-    stencils = knn_stencils(pts, ctr, stencil_size)
+    if stencil_size > len(pts):
+        raise ValueError(f"stencil_size={stencil_size} exceeds the number of points ({len(pts)})")
+    stencils = knn_stencils(pts, ctr, k=stencil_size)
     weights = stencil_weights(pts, stencils, ctr, ops, degree=degree, phs=phs)
     mats = [assemble(stencils, weights[:, :, k], len(pts)) for k in range(len(ops))]
     return mats if isinstance(op, list) else mats[0]

@@ -24,14 +24,14 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
 
-from engine.kernels import check_phs
-from engine.polynomials import (
+from engine.numerics.kernels import check_phs
+from engine.numerics.polynomials import (
     derivative_shift,
     monomial_count,
     monomial_exponents,
     monomial_values,
 )
-from engine.rbffd import SOLVE_CHUNK, validate_points
+from engine.numerics.rbffd import SOLVE_CHUNK, validate_points
 
 #: Entries of the systems and right-hand sides solved per batched call (cache-sized chunks).
 _CHUNK_ENTRIES = 3_000_000
@@ -107,7 +107,7 @@ class LocalInterpolant:
         inverses = _interpolation_inverses(scaled[first], exps, phs)
         lattice = None
         if lattice_step is not None and lattice_indices is not None:
-            from engine.lattice import LatticeLookup
+            from engine.nodes.lattice import LatticeLookup
 
             idx = np.asarray(lattice_indices, dtype=np.int64)
             lattice = (np.asarray(lattice_step, dtype=float), LatticeLookup(idx[own]))

@@ -21,6 +21,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
+from engine.validation.inputs import check_spacing
+
 
 @dataclass(frozen=True)
 class ImageFeatures:
@@ -122,11 +124,9 @@ def compute_features(
         edges a few noise levels high already bring g near 0.1.
     """
     img = np.asarray(image, dtype=float)
-    sp = np.asarray(spacing, dtype=float)
     if img.ndim not in (2, 3):
         raise ValueError(f"image must be 2-D or 3-D, got {img.ndim}-D")
-    if sp.shape != (img.ndim,) or np.any(sp <= 0):
-        raise ValueError(f"spacing must be {img.ndim} positive values, got {spacing!r}")
+    sp = check_spacing(spacing, img.ndim)
     if not np.all(np.isfinite(img)):
         raise ValueError("image contains NaN or infinite values")
     if sigma_mm < 0:

@@ -10,8 +10,8 @@ Adelson, IEEE Trans. Commun. 31(4) (1983) 532-540).
 
 A coarse front can bridge a gap narrower than a block; the fine front
 reopens it (the gap's pixels push the outline back) and
-:meth:`engine.front.Front.keep_parts` then drops any part that holds no seed.
-Since the flood of :mod:`engine.growth` brings the front to the boundary at
+:meth:`engine.front.core.Front.keep_parts` then drops any part that holds no seed.
+Since the flood of :mod:`engine.image.growth` brings the front to the boundary at
 pixel level, the coarse stage runs only when a block size is asked for, and
 at no more than the structure the flood found can hold
 (:func:`resolvable_factor`).

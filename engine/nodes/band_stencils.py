@@ -34,9 +34,9 @@ from functools import cached_property, lru_cache
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from engine.lattice import symmetric_offsets, whole_shells
-from engine.polynomials import monomial_count
-from engine.rbffd import parse_operator, scaled_weights
+from engine.nodes.lattice import symmetric_offsets, whole_shells
+from engine.numerics.polynomials import monomial_count
+from engine.numerics.rbffd import parse_operator, scaled_weights
 
 
 #: k of the hyperviscosity Σ_i (−∂_i²)^k added to curvature motion.

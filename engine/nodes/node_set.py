@@ -2,13 +2,13 @@
 
 The nodes are generated once per image with a spacing that follows the
 image's edges (finest near strong edges, coarsest in flat areas), by the
-advancing-front generator of :mod:`engine.scattered_nodes`. A front then
+advancing-front generator of :mod:`engine.nodes.scattered_nodes`. A front then
 works on a *band* of these nodes: any subset of global node ids. Stencils and
 RBF-FD weights are properties of single nodes in the global set, so they are
 computed the first time a node enters a band and cached for good.
 
 Operators per node (the column order of the lattice band stencil of
-:mod:`engine.band_stencils`):
+:mod:`engine.nodes.band_stencils`):
 
 - ``d0`` … centred first derivatives and ``d00``, ``d01``, … (i <= j)
   second derivatives: PHS r^phs + polynomials of degree ``degree`` on the
@@ -64,23 +64,23 @@ from scipy import ndimage
 from scipy.sparse.linalg import ArpackNoConvergence, eigs
 from scipy.spatial import cKDTree
 
-from engine.band_stencils import centred_derivatives
-from engine.image_features import ImageFeatures
-from engine.interpolant import squared_distances
-from engine.kernels import check_phs
-from engine.polynomials import (
+from engine.nodes.band_stencils import centred_derivatives
+from engine.image.features import ImageFeatures
+from engine.numerics.interpolant import squared_distances
+from engine.numerics.kernels import check_phs
+from engine.numerics.polynomials import (
     apply_to_monomials,
     monomial_count,
     monomial_exponents,
     monomial_values,
 )
-from engine.rbffd import (
+from engine.numerics.rbffd import (
     SOLVE_CHUNK,
     Operator,
     assemble,
     parse_operator,
 )
-from engine.scattered_nodes import scattered_nodes
+from engine.nodes.scattered_nodes import scattered_nodes
 
 __all__ = [
     "HYPERVISCOSITY_PHS",
@@ -89,6 +89,7 @@ __all__ = [
     "EdgeAdaptiveSpacing",
     "ScatteredNodeSet",
     "edge_adaptive_spacing",
+    "edge_crossings",
     "operator_labels",
 ]
 
@@ -169,7 +170,7 @@ def edge_adaptive_spacing(
     Parameters
     ----------
     features_or_edge_map : ImageFeatures or array_like
-        The image's :class:`~engine.image_features.ImageFeatures` (its edge
+        The image's :class:`~engine.image.features.ImageFeatures` (its edge
         stopping function ``g`` [1]_ is used) or an edge map ``g`` itself: values
         in [0, 1], low on edges, 1 in flat areas (2-D or 3-D, array order).
     spacing_mm : sequence of float, optional
@@ -181,7 +182,7 @@ def edge_adaptive_spacing(
     strong, weak : float, default 0.1 and 0.2
         Edge strength from ``g``: 1 where ``g <= strong``, 0 where ``g >=
         weak``, linear in between. With the default edge contrast K of
-        :func:`~engine.image_features.compute_features` (1.5 times the median
+        :func:`~engine.image.features.compute_features` (1.5 times the median
         gradient), g = 0.1 is a gradient of 3K and g = 0.2 one of 2K: noise
         in flat areas rarely reaches them, real boundaries do.
     reach_mm : float, optional
@@ -353,7 +354,7 @@ def _local_weights(
 
     Notes
     -----
-    The same systems as :func:`engine.rbffd.scaled_weights`, assembled
+    The same systems as :func:`engine.numerics.rbffd.scaled_weights`, assembled
     once per geometry for all kernels (distances and the polynomial matrix
     are shared) with power tables for the monomials. Degenerate stencils are
     the caller's to exclude (see :func:`_degenerate`).
@@ -433,6 +434,20 @@ def _row_positions(rows: NDArray[np.int64], members: NDArray[np.int64], n_ids: i
 # --------------------------------------------------------------------------
 # the node set
 # --------------------------------------------------------------------------
+def edge_crossings(points: NDArray[np.floating], edges: NDArray[np.int64],
+                   values: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Zero crossings of ``values`` along graph ``edges`` (pairs of rows of ``points``), linear interpolation.
+
+    Every edge whose end values differ in sign (< 0 against >= 0) gives one point.
+    """
+    va, vb = values[edges[:, 0]], values[edges[:, 1]]
+    cross = (va < 0) != (vb < 0)
+    e, va, vb = edges[cross], va[cross], vb[cross]
+    t = va / (va - vb)
+    xa, xb = points[e[:, 0]], points[e[:, 1]]
+    return xa + t[:, None] * (xb - xa)
+
+
 class ScatteredNodeSet:
     """Scattered nodes over one image, generated once, with per-node cached stencils and weights.
 
@@ -496,7 +511,7 @@ class ScatteredNodeSet:
 
     Notes
     -----
-    Nodes come from :func:`engine.scattered_nodes.scattered_nodes` (2-D: the
+    Nodes come from :func:`engine.nodes.scattered_nodes.scattered_nodes` (2-D: the
     advancing front of Fornberg & Flyer [1]_; 3-D: its height-field variant).
     Operators and their ``hv`` scaling are described in the module docstring
     ([2]_ for the RBF-FD weights, [3]_ for the hyperviscosity scaling).
@@ -1062,13 +1077,7 @@ class ScatteredNodeSet:
         e = self.edges(arr)
         if len(e) == 0:
             return np.zeros((0, self.dim))
-        va, vb = values[e[:, 0]], values[e[:, 1]]
-        cross = (va < 0) != (vb < 0)
-        e, va, vb = e[cross], va[cross], vb[cross]
-        t = va / (va - vb)
-        xa = self.points[arr[e[:, 0]]]
-        xb = self.points[arr[e[:, 1]]]
-        return xa + t[:, None] * (xb - xa)
+        return edge_crossings(self.points[arr], e, values)
 
     # ------------------------------------------------------------ stability figures
     def spectral_bound(self, ids: ArrayLike, *, damping: float = 0.0, method: str = "arnoldi") -> float:

@@ -1,6 +1,6 @@
 """Upper limits of the settings whose cost grows without bound: what an image can hold.
 
-Some settings are only checked for sign by :class:`engine.speeds.FrontParams`
+Some settings are only checked for sign by :class:`engine.front.speeds.FrontParams`
 because their useful range depends on the image:
 
 - ``outline_averaging`` (σ along the outline, mm): the average is k steps of

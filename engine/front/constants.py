@@ -1,0 +1,59 @@
+"""Fixed numbers of the front's method, each with the reason for its value.
+
+Settings a user may change live in :class:`engine.front.speeds.FrontParams`;
+these are the ones the method itself fixes.
+"""
+
+#: Values standing in for φ beyond the band (in units of the band half-width).
+FAR = 1.5
+#: Floor of the front speed used for the time step (mm per unit time), so a
+#: nearly still front still takes steps of bounded length.
+MIN_SPEED = 0.25
+#: Reinitialise the whole band at a rebuild when the 90th percentile of
+#: ||∇φ| − 1| next to the front exceeds this, or after this many rebuilds
+#: without one.
+REINIT_DRIFT = 0.05
+REINIT_EVERY = 10
+#: Rebuild and reinitialise between band rebuilds once that percentile has
+#: grown by more than this since the last rebuild (checked every
+#: STATISTICS_EVERY steps): a small structure grown from a smaller seed never
+#: needs a rebuild, and inside it φ flattens (|∇φ| 0.03–0.12 next to the
+#: front of a 3 px disk grown from 1.5 px) where growth lags at the centre.
+FLAT_DRIFT = 0.25
+#: Outside pixels this close to the front (plus two smoothing scales) are
+#: partial-volume rim and do not count toward the local outside mean.
+RIM_PIXELS = 1.5
+#: Steps between refreshes of the layer next to the front and of the region
+#: model's local statistics.
+STATISTICS_EVERY = 10
+#: The layer is re-picked (every STATISTICS_EVERY steps) only once the front
+#: has moved this many node spacings at some layer node since it was picked
+#: (the layer, |φ| <= 1.2 spacings, still straddles the front), and at least
+#: every LAYER_IDLE_STEPS steps.
+LAYER_DRIFT = 0.25
+LAYER_IDLE_STEPS = 100
+#: Width of the ring of outside pixels, beyond the rim, of the local statistics.
+RING_PIXELS = 3.0
+#: A local outside mean on the other side of the inside mean than the global
+#: outside mean counts only if it differs from the inside mean by at least
+#: this fraction of the global contrast (besides three noise deviations). On
+#: a noise-free image a ring that still lies mostly in the structure differs
+#: from the inside mean by a trace, on that side once the inside mean has
+#: taken in some partial-volume pixels; taken as the outside it would make
+#: the whole uniform structure look like outside and turn the front back.
+LOCAL_CONTRAST = 0.1
+#: Share of the local ring (Gaussian weights) that the pixels beyond the noise on one side of the
+#: inside mean must make up to count as a neighbouring tissue: a ring still in the structure has
+#: 0.1 % of its pixels three noise deviations out on either side, and a smooth bias field a few per cent.
+SIDE_SHARE = 0.25
+#: Difference between the centred and the upwind |∇φ| beyond which a node is
+#: taken to sit on a kink of φ, where curvature motion uses the upwind value.
+KINK_GRADIENT = 0.1
+#: Structures of smaller mean radius (mm; in 3-D twice this) get
+#: proportionally less smoothness (region and window models), so curvature
+#: motion does not shrink them.
+SMALL_STRUCTURE = 8.0
+#: Half-width of the layer of nodes next to the front, in node spacings.
+LAYER_WIDTH = 1.2
+#: Radius (mm) of the local outside statistics of the region model.
+DEFAULT_LOCAL_RADIUS = 6.0

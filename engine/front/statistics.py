@@ -1,0 +1,153 @@
+"""What the region model reads of the image: the inside image, region sums, local outside means, half-widths.
+
+Part of :class:`engine.front.Front` (see :mod:`engine.front.core`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import ndimage
+
+from engine.front.constants import (DEFAULT_LOCAL_RADIUS, LOCAL_CONTRAST, RIM_PIXELS, RING_PIXELS, SIDE_SHARE,
+                                    SMALL_STRUCTURE)
+from engine.front.state import _locked
+from engine.image.thickness import half_width
+
+
+class RegionStatistics:
+    """Part of :class:`~engine.front.Front` (see the module docstring)."""
+
+    def _reset_sums(self) -> None:
+        img = self.features.smoothed
+        inside = self._inside
+        self._sums = [float(img[inside].sum()), float(inside.sum()), float(img[~inside].sum()),
+                      float((~inside).sum())]
+
+    def _sync_inside(self) -> None:
+        """Update the pixel inside image (and the region sums) at pixel-centre band nodes."""
+        b = self._band
+        now = self._band_pixels_inside()
+        before = self._inside[b.pixel_index]
+        changed = np.flatnonzero(now != before)
+        if len(changed) == 0:
+            return
+        idx = tuple(i[changed] for i in b.pixel_index)
+        vals = self.features.smoothed[idx]
+        gained = now[changed]
+        delta_sum = float(vals[gained].sum() - vals[~gained].sum())
+        delta_n = float(gained.sum() - (~gained).sum())
+        self._sums[0] += delta_sum
+        self._sums[1] += delta_n
+        self._sums[2] -= delta_sum
+        self._sums[3] -= delta_n
+        self._inside[idx] = gained
+
+    def _band_pixels_inside(self) -> NDArray[np.bool_]:
+        """Which of the band's pixel centres (``_band.pixel_index``) lie inside."""
+        now = self._pixel_band_values() < 0
+        if self._barrier is not None and self.layout.holds_barrier_on_pixels:
+            now &= ~self._barrier[self._band.pixel_index]
+        return now
+
+    def _pixel_band_values(self) -> NDArray[np.floating]:
+        """φ at the band's pixel centres (``_band.pixel_index``)."""
+        return self.layout.pixel_values(self._band, self._phi)
+
+    @_locked
+    def region_means(self) -> tuple[float, float]:
+        """Global mean (smoothed) intensity inside and outside the front."""
+        s_in, n_in, s_out, n_out = self._sums
+        c_in = s_in / n_in if n_in > 0 else 0.0
+        c_out = s_out / n_out if n_out > 0 else 0.0
+        return c_in, c_out
+
+    def _update_layer_statistics(self) -> None:
+        """What the layer's speeds read between refreshes: local region statistics, the structure's half-width."""
+        if self.params.model == "region":
+            self._update_local_statistics()
+        if self.params.model in ("region", "window"):
+            self._update_thickness()
+
+    def _update_thickness(self) -> None:
+        """Half-width of the inside behind each layer node (:mod:`engine.image.thickness`), for the smoothness scale."""
+        b = self._band
+        act = b.active[b.layer]
+        grad = self._layer_derivatives(self._phi, hessian=False)[0]
+        g2 = np.sum(grad * grad, axis=0)
+        trusted = g2 >= 0.25
+        normal = (grad / np.sqrt(np.maximum(g2, 1e-12))).T
+        closest = b.positions[act] - np.where(trusted, self._phi[act] / np.sqrt(np.maximum(g2, 1e-12)), 0.0)[:, None] * normal
+        b.thickness = half_width(self._inside, self.features.spacing, closest, normal,
+                                 SMALL_STRUCTURE * (self.ndim - 1))
+
+    def _update_local_statistics(self) -> None:
+        """Region statistics at the front's layer nodes: global inside mean, local outside means.
+
+        The inside mean is the global mean inside the front (the structure
+        being outlined). The outside mean is the Gaussian-weighted mean of the
+        outside pixels within ``local_radius`` of each layer node (Lankton &
+        Tannenbaum 2008), so the front stops halfway between the structure and
+        whatever actually borders it rather than halfway to the average of
+        the whole image. Only a ring of outside pixels counts: beyond the
+        blurred rim of the edge (RIM_PIXELS plus two smoothing scales, so
+        partial volume does not pull the mean toward the inside) and within
+        RING_PIXELS more (so the tissue that actually borders the front
+        outweighs tissues further away). The ring's pixels darker and brighter
+        than the inside mean (beyond three noise standard deviations; on the
+        far side of the inside mean from the global outside mean, beyond
+        LOCAL_CONTRAST of the global contrast) give one mean each, where they
+        make up enough of the ring: the speed is the smaller of the two
+        sides' (``local_out`` holds both, the second NaN where that side is
+        absent). Where neither side is there (the ring is still the same
+        tissue, as while the front grows from a seed) the global outside
+        mean is used (Chan & Vese 2001). Refreshed at every band rebuild and with the
+        layer (``LAYER_DRIFT``, ``LAYER_IDLE_STEPS``). Computed on the
+        bounding box of the front plus three radii at every band rebuild;
+        between rebuilds the front moves less than the statistics' radius.
+        """
+        b = self._band
+        radius_mm = self.params.local_radius if self.params.local_radius is not None else DEFAULT_LOCAL_RADIUS
+        radius_px = radius_mm / self.features.spacing
+        px = b.pixels[b.active[b.layer]]
+        lo = np.maximum(np.floor(px.min(axis=0) - 3 * radius_px).astype(int), 0)
+        hi = np.minimum(np.ceil(px.max(axis=0) + 3 * radius_px).astype(int) + 1, np.array(self.shape))
+        box = tuple(slice(a, c) for a, c in zip(lo, hi))
+        img = self.features.smoothed[box]
+        c_in, c_out = self.region_means()
+        noise = max(self._noise, 1e-3 * self.features.intensity_scale)
+        # leave out the blurred rim of the edge (partial volume plus smoothing)
+        coarse = float(np.max(self.features.spacing))
+        rim = RIM_PIXELS * coarse + 2.0 * self.features.sigma_mm  # mm
+        depth = ndimage.distance_transform_edt(~self._inside[box], sampling=self.features.spacing)
+        ring = (depth > rim) & (depth <= rim + RING_PIXELS * coarse)
+        local = (px - lo).T
+        b.local_in = np.full(len(px), c_in)
+        # ring pixels are told apart from the inside by the inside mean near them (the inside
+        # without its rim, Gaussian weights; the global mean where there is too little of it):
+        # a smooth bias field across a large structure is not taken for a neighbouring tissue
+        core = (ndimage.distance_transform_edt(self._inside[box], sampling=self.features.spacing) > rim).astype(float)
+        w_core = ndimage.gaussian_filter(core, radius_px, mode="nearest")
+        near_in = np.where(w_core > 0.05, ndimage.gaussian_filter(img * core, radius_px, mode="nearest")
+                           / np.maximum(w_core, 1e-12), c_in)
+        # the outside on each side of the inside mean (darker, brighter), beyond noise:
+        # a structure between a darker and a brighter tissue (an organ on bone in CT) is
+        # held by both, where their mixed mean could lie on the inside's own side
+        w_ring = ndimage.map_coordinates(ndimage.gaussian_filter(ring.astype(float), radius_px, mode="nearest"),
+                                         local, order=1, mode="nearest")
+        sides = []
+        for side in (-1.0, 1.0):
+            far = np.sign(c_out - c_in) != side
+            need = max(3.0 * noise, LOCAL_CONTRAST * abs(c_in - c_out)) if far else 3.0 * noise
+            beyond = (ring & (side * (img - near_in) > need)).astype(float)
+            w_side = ndimage.gaussian_filter(beyond, radius_px, mode="nearest")
+            s_side = ndimage.gaussian_filter(img * beyond, radius_px, mode="nearest")
+            weight = ndimage.map_coordinates(w_side, local, order=1, mode="nearest")
+            mean = ndimage.map_coordinates(s_side, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
+            # a side is a tissue where it makes up a good share of the ring, not where a few
+            # pixels of the inside's own noise tail (or of a smooth bias) are beyond `need`
+            distinct = (weight > 0.05) & (weight >= SIDE_SHARE * w_ring)
+            sides.append(np.where(distinct, mean, np.nan))
+        first = np.where(np.isnan(sides[0]), sides[1], sides[0])
+        other = np.where(np.isnan(sides[0]), np.nan, sides[1])
+        b.local_out = np.stack([np.where(np.isnan(first), c_out, first), other])
