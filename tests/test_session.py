@@ -216,12 +216,12 @@ def test_scripted_session_on_the_abdomen_case(tmp_path):
 
 
 def test_frames_from_another_thread_while_a_worker_evolves():
-    # curvature flow of a large disk: it keeps moving for about 1 800 time units (r² = r0² − 2t),
-    # longer than the test looks at it
-    s = Session.from_array(np.full((160, 160), 100.0))
+    # curvature flow of a large disk: it keeps moving for about 6 000 time units (r² = r0² − 2t),
+    # some 6 800 steps, longer than the test looks at it (a disk of 60 px vanished before its end)
+    s = Session.from_array(np.full((260, 260), 100.0))
     lab = s.add_label("disk").index
     s.set_params(lab, model="curvature", smoothness=1.0)
-    s.seed(80, 80, 60, label=lab, slice=0)
+    s.seed(130, 130, 110, label=lab, slice=0)
     stop = threading.Event()
 
     def worker():
@@ -242,7 +242,7 @@ def test_frames_from_another_thread_while_a_worker_evolves():
             problems.append("frame of another slice")
         if i % 100 == 0:
             with pytest.raises(SessionBusy):
-                s.trim([[80, 80]], 1.0, label=lab, slice=0)
+                s.trim([[130, 130]], 1.0, label=lab, slice=0)
         time.sleep(0.0005)
     assert not problems
     assert steps[-1] > steps[0] and all(b >= a for a, b in zip(steps, steps[1:]))

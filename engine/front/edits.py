@@ -21,8 +21,13 @@ class Edits:
 
     def _edit(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating], NDArray[np.floating]],
                                       NDArray[np.floating]],
-              extra_starts: NDArray[np.floating] | None = None) -> None:
-        """Apply ``combine(values, positions_mm, pixels)`` to φ at nodes and pixel centres, and rebuild."""
+              extra_starts: NDArray[np.floating] | None = None,
+              near: tuple[NDArray[np.floating], float] | None = None) -> None:
+        """Apply ``combine(values, positions_mm, pixels)`` to φ at nodes and pixel centres, and rebuild.
+
+        ``near`` = (points in mm, radius in mm): the edit can change a pixel's side only within the
+        radius of those points (a brush stroke), so only the pixels there are looked at again.
+        """
         if self.vanished:
             raise ValueError("the outline has vanished; start a new front from seeds or a mask")
         b = self._band
@@ -35,20 +40,35 @@ class Edits:
                            self.layout.pixels(indices))
 
         # the inside image must follow the edit beyond the band as well
-        self._apply_to_pixels(combine)
+        self._apply_to_pixels(combine, near)
         self._build_band(starts, values_at)
         self.converged = False
         self._restart_convergence()
 
     def _apply_to_pixels(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating],
-                                                  NDArray[np.floating]], NDArray[np.floating]]) -> None:
-        """Re-evaluate the edit at every pixel centre it can change (those near the stroke)."""
-        grid = np.argwhere(np.ones(self.shape, dtype=bool))
-        base = np.where(self._inside.reshape(-1), -1.0, 1.0) * FAR * self.band_half_width
+                                                  NDArray[np.floating]], NDArray[np.floating]],
+                         near: tuple[NDArray[np.floating], float] | None = None) -> None:
+        """Re-evaluate the edit at every pixel centre it can change (with ``near``: those in the stroke's box)."""
+        box = tuple(slice(0, n) for n in self.shape)
+        if near is not None and self.layout.name == "lattice":
+            points_mm, radius_mm = near
+            sp = self.features.spacing
+            lo = np.floor((points_mm.min(axis=0) - radius_mm) / sp).astype(int) - 1
+            hi = np.ceil((points_mm.max(axis=0) + radius_mm) / sp).astype(int) + 2
+            box = tuple(slice(max(a, 0), min(b, n)) for a, b, n in zip(lo, hi, self.shape))
+            if any(b.stop <= b.start for b in box):
+                return  # the stroke lies outside the image
+        corner = np.array([b.start for b in box])
+        size = tuple(b.stop - b.start for b in box)
+        grid = np.indices(size).reshape(len(size), -1).T + corner
+        part = self._inside[box]
+        base = np.where(part.reshape(-1), -1.0, 1.0) * FAR * self.band_half_width
         values, mm, px = self.layout.pixel_grid_values(self._band, self._phi, grid, base, self.features.spacing)
-        new_inside = (combine(values, mm, px) < 0).reshape(self.shape)
-        if np.array_equal(new_inside, self._inside):
+        new_part = (combine(values, mm, px) < 0).reshape(size)
+        if np.array_equal(new_part, part):
             return
+        new_inside = self._inside.copy()
+        new_inside[box] = new_part
         self._inside = new_inside
         self._reset_sums()
 
@@ -69,14 +89,14 @@ class Edits:
         """Add the area swept by a brush stroke: φ ← min(φ, d_stroke)."""
         pts, radius = self._stroke(stroke)
         self._edit(lambda v, mm, px: np.minimum(v, stroke_distance(mm, pts, radius)),
-                   _stroke_outline(pts, radius, self.h))
+                   _stroke_outline(pts, radius, self.h), near=(pts, radius))
 
     @_locked
     def trim(self, stroke: tuple[ArrayLike, float]) -> None:
         """Cut the area swept by a brush stroke out: φ ← max(φ, −d_stroke)."""
         pts, radius = self._stroke(stroke)
         self._edit(lambda v, mm, px: np.maximum(v, -stroke_distance(mm, pts, radius)),
-                   _stroke_outline(pts, radius, self.h))
+                   _stroke_outline(pts, radius, self.h), near=(pts, radius))
 
     @_locked
     def margin(self, mm: float) -> None:

@@ -115,7 +115,7 @@ def save_session(session: "Session", out: str | os.PathLike[str], *, dicom_seg: 
     return paths
 
 
-_PARAM_NAMES = {f.name for f in fields(FrontParams)} - {"model", "extra"}
+_PARAM_NAMES = {f.name for f in fields(FrontParams)} - {"model"}
 
 
 def _settings_from_record(record: Mapping[str, Any]) -> FrontSettings:

@@ -15,7 +15,7 @@ DEFAULT_MAX_STEPS = 20000
 #: Settings that are not front parameters.
 _RUN_KEYS = ("model", "detail", "max_steps")
 #: Front parameters a user sets (the rest are fixed by the engine or derived).
-_PARAM_KEYS = tuple(f.name for f in fields(FrontParams) if f.name not in ("model", "extra"))
+_PARAM_KEYS = tuple(f.name for f in fields(FrontParams) if f.name != "model")
 
 
 def _plain(value: Any) -> Any:

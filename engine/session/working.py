@@ -136,7 +136,7 @@ class _Arrays:
 
 
 def _params_record(params: FrontParams) -> dict[str, Any]:
-    return {f.name: _plain(getattr(params, f.name)) for f in fields(params) if f.name != "extra"}
+    return {f.name: _plain(getattr(params, f.name)) for f in fields(params)}
 
 
 def _params_from(record: Mapping[str, Any]) -> FrontParams:
