@@ -121,10 +121,17 @@ def batch_client(*, workers: int | None = None, scheduler: str | None = None,
 
 
 def _import_engine() -> None:
-    """Import what a case needs (a worker's first case would otherwise pay for it)."""
+    """Import what a case needs (a worker's first case would otherwise pay for it); one thread per worker.
+
+    Dask already gives each worker one BLAS thread; the fronts' tree queries would still start two
+    threads each, and two workers on two cores then slowed each other (1.12 times the time in cases).
+    """
     import engine.batch.case  # noqa: F401
     import engine.io  # noqa: F401
+    import engine.nodes.layout
     import engine.session  # noqa: F401
+
+    engine.nodes.layout.TREE_WORKERS = 1
 
 
 def run_cases(cases: Sequence[CaseSpec | CaseProblem], options: RunOptions, *, client: Any = None,

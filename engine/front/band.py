@@ -18,7 +18,7 @@ from engine.front.geometry import grid_crossing_points
 from engine.front.state import FrontVanished, _locked
 from engine.image.statistics import estimate_window_from_mask, robust_std
 from engine.nodes.lattice import LatticeLookup
-from engine.nodes.layout import TREE_WORKERS
+from engine.nodes import layout as _layout
 from engine.numerics.closest_point import closest_points
 
 
@@ -100,7 +100,7 @@ class BandBuilding:
             if built is None:
                 raise FrontVanished("the band is too thin for an interpolant")
             interp, coeffs = built
-            near_dist, nearest = cKDTree(starts).query(positions[todo], workers=TREE_WORKERS)
+            near_dist, nearest = cKDTree(starts).query(positions[todo], workers=_layout.TREE_WORKERS)
             # nodes farther than the band from every zero crossing are dropped below
             reach = near_dist <= width + 0.5 * float(np.max(self.step_mm))
             phi[todo[~reach]] = np.where(approx[todo[~reach]] < 0, -1.0, 1.0) * 2.0 * width
@@ -132,14 +132,14 @@ class BandBuilding:
             raise FrontVanished("the front vanished: no zero crossing is left")
         # each crossing's nearest layer node, then each node's nearest crossing
         _, crossing_source = cKDTree(self.layout.positions(indices[active[layer]])).query(crossings,
-                                                                                         workers=TREE_WORKERS)
+                                                                                         workers=_layout.TREE_WORKERS)
         crossing_source = np.asarray(crossing_source, dtype=np.int64)
         crossing_tree = cKDTree(crossings)
 
         def source_of(nodes: NDArray[np.int64]) -> NDArray[np.int64]:
             if len(nodes) == 0:
                 return np.zeros(0, dtype=np.int64)
-            _, near = crossing_tree.query(self.layout.positions(indices[nodes]), workers=TREE_WORKERS)
+            _, near = crossing_tree.query(self.layout.positions(indices[nodes]), workers=_layout.TREE_WORKERS)
             return crossing_source[near]
 
         source = source_of(active)
