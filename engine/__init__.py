@@ -11,8 +11,9 @@ The public names are loaded on first use, so ``import engine`` stays light
 
 from __future__ import annotations
 
-import importlib
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
+
+from engine.lazy import lazy_attributes
 
 __version__ = "0.1.0"
 
@@ -42,14 +43,4 @@ if TYPE_CHECKING:  # pragma: no cover
     from engine.front import FrontParams
 
 
-def __getattr__(name: str) -> Any:
-    module = _PUBLIC.get(name)
-    if module is None:
-        raise AttributeError(f"module 'engine' has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__getattr__, __dir__ = lazy_attributes(__name__, _PUBLIC, __all__)

@@ -152,7 +152,7 @@ def execute(cases, out: Path, args: argparse.Namespace) -> tuple[list, bool]:
 def run(args: argparse.Namespace) -> int:
     """Run ``isotide batch``; return 0, 1 (some case failed), 2 (bad input) or 130 (interrupted)."""
     from engine.batch import read_manifest
-    from engine.batch.summary import SUMMARY_COLUMNS, counts, summary_rows, write_table
+    from engine.batch.summary import SUMMARY_COLUMNS, summary_rows, write_table
 
     try:
         out = check_out(args.out)
@@ -164,10 +164,17 @@ def run(args: argparse.Namespace) -> int:
     except (ValueError, OSError) as exc:
         return fail(" ".join(str(exc).split()), prog=PROG)
     path = write_table(out / "summary.csv", summary_rows(results, out_dir=out), SUMMARY_COLUMNS)
+    return report_end(PROG, results, interrupted, [path], "cases")
+
+
+def report_end(prog: str, results: list, interrupted: bool, written: list[Path], noun: str) -> int:
+    """Print the counts per status and the files written; the exit code (130 interrupted, 1 a case failed)."""
+    from engine.batch.summary import counts
+
     tally = counts(results)
-    print(", ".join(f"{v} {k}" for k, v in tally.items() if v) + f"; wrote: {path}")
+    print(", ".join(f"{v} {k}" for k, v in tally.items() if v) + f"; wrote: {', '.join(map(str, written))}")
     if interrupted:
-        print(f"{PROG}: interrupted ({tally['done'] + tally['up to date']} of {len(results)} cases finished; "
-              f"see {path})", file=sys.stderr)
+        print(f"{prog}: interrupted ({tally['done'] + tally['up to date']} of {len(results)} {noun} finished; "
+              f"see {written[0]})", file=sys.stderr)
         return 130
     return 1 if tally["failed"] else 0

@@ -32,7 +32,7 @@ import sys
 from dataclasses import replace
 from pathlib import Path
 
-from engine.commands.batch import add_run_arguments, check_out, execute
+from engine.commands.batch import add_run_arguments, check_out, execute, report_end
 from engine.commands.segment import fail, one_line_errors
 
 HELP = "run a grid of front settings over one or more cases and plot Dice and HD95 against them"
@@ -95,7 +95,7 @@ def base_cases(args: argparse.Namespace) -> list:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``isotide sweep``; return 0, 1 (some run failed), 2 (bad input) or 130 (interrupted)."""
-    from engine.batch.summary import SUMMARY_COLUMNS, counts, summary_rows, write_table
+    from engine.batch.summary import SUMMARY_COLUMNS, summary_rows, write_table
     from engine.batch.sweep import parse_vary, plot_sweep, sweep_cases
 
     try:
@@ -114,10 +114,4 @@ def run(args: argparse.Namespace) -> int:
     columns = list(SUMMARY_COLUMNS[:2]) + varied + list(SUMMARY_COLUMNS[2:])
     table = write_table(out / "sweep.csv", summary_rows(results, out_dir=out, varied=varied), columns)
     picture = plot_sweep(results, varied, out / "sweep.png")
-    tally = counts(results)
-    print(", ".join(f"{v} {k}" for k, v in tally.items() if v) + f"; wrote: {table}, {picture}")
-    if interrupted:
-        print(f"{PROG}: interrupted ({tally['done'] + tally['up to date']} of {len(results)} runs finished; "
-              f"see {table})", file=sys.stderr)
-        return 130
-    return 1 if tally["failed"] else 0
+    return report_end(PROG, results, interrupted, [table, picture], "runs")

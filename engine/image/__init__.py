@@ -11,8 +11,7 @@ reads this package's features, so an eager import here would be circular.
 
 from __future__ import annotations
 
-import importlib
-from typing import Any
+from engine.lazy import lazy_attributes
 
 _PUBLIC = {
     "ImageFeatures": "engine.image.features",
@@ -29,14 +28,4 @@ _PUBLIC = {
 __all__ = list(_PUBLIC)
 
 
-def __getattr__(name: str) -> Any:
-    module = _PUBLIC.get(name)
-    if module is None:
-        raise AttributeError(f"module 'engine.image' has no attribute {name!r}")
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__getattr__, __dir__ = lazy_attributes(__name__, _PUBLIC, __all__)

@@ -663,10 +663,8 @@ class Session:
                 raise ValueError("there is no grown front to commit" + (" (it vanished)" if live and live.vanished
                                                                            else ""))
             front = self._front
-            record = {"model": front.params.model, "parameters": dict(front.params.as_dict(), detail=front.detail),
-                      "seeds": [list(s) for s in live.seeds], "steps": int(front.steps),
-                      "notes": _notes(front, live.origin)}
-            outline = outline_from_front(live.label, live.slice, front, record=record)
+            outline = outline_from_front(live.label, live.slice, front,
+                                         record=_outline_record(front, live.seeds, live.origin))
             after = replace(state.with_outlines({(live.label, live.slice): outline}), live=None)
             self._drop_front()
             self._push("Commit outline", "commit", after, label=live.label, slice_index=live.slice,
@@ -692,10 +690,8 @@ class Session:
                 raise ValueError(f"front: its image is {tuple(front.shape)}, the study's slices are "
                                  f"{tuple(self.volume.shape[1:])}")
             self._settle_live(label, k)
-            if record is None:
-                record = {"model": front.params.model, "parameters": dict(front.params.as_dict(), detail=front.detail),
-                          "steps": int(front.steps), "notes": _notes(front, "seeds")}
-            outline = outline_from_front(label, k, front, record=record)
+            outline = outline_from_front(label, k, front,
+                                         record=_outline_record(front, None, "seeds") if record is None else record)
             after = self._stack.state.with_outlines({(label, k): outline})
             self._push(text, action, after, label=label, slice_index=k, details=details)
             return outline
@@ -855,6 +851,16 @@ def _check_stroke(points_px: ArrayLike, radius_mm: float) -> tuple[NDArray[np.fl
 
 def _stroke_details(points: NDArray[np.floating], radius_mm: float) -> dict[str, Any]:
     return {"points": np.round(points, 3).tolist(), "radius_mm": radius_mm}
+
+
+def _outline_record(front: Front, seeds: Sequence[Sequence[float]] | None, origin: str) -> dict[str, Any]:
+    """An outline's record in the saved result: model, settings used, seeds, steps, how it was made."""
+    record: dict[str, Any] = {"model": front.params.model,
+                              "parameters": dict(front.params.as_dict(), detail=front.detail)}
+    if seeds is not None:
+        record["seeds"] = [list(s) for s in seeds]
+    record.update(steps=int(front.steps), notes=_notes(front, origin))
+    return record
 
 
 def _notes(front: Front, origin: str) -> str:
