@@ -266,10 +266,12 @@ class Segmenter:
             return None
         # the outline just beyond the outermost flooded pixel centres (which lie at least a
         # quarter pixel inside the boundary): the front finishes from the inside
-        beyond = START_BEYOND * float(np.min(self._spacing))
+        step = float(np.min(self._spacing))
+        beyond = START_BEYOND * step
         outside = ndimage.distance_transform_edt(~inside, sampling=self._spacing)
         depth = ndimage.distance_transform_edt(inside, sampling=self._spacing)
-        return np.where(inside, -(depth - 1.0 + beyond), outside - beyond)
+        # depth >= one (finest) pixel step: every flooded pixel centre is at least `beyond` inside
+        return np.where(inside, -(depth - step + beyond), outside - beyond)
 
     def _grown_start(self) -> Callable | None:
         """φ (mm) at points (mm) for the fine front from the flood: a signed distance, or None.
@@ -294,10 +296,12 @@ class Segmenter:
         hi = np.array([min(int(a[-1]) + p + 1, n) for a, p, n in zip(nz, pad, inside.shape)])
         box = tuple(slice(a, b) for a, b in zip(lo, hi))
         part = inside[box]
-        beyond = START_BEYOND * float(np.min(self._spacing))
+        step = float(np.min(self._spacing))
+        beyond = START_BEYOND * step
         outside = ndimage.distance_transform_edt(~part, sampling=self._spacing)
         depth = ndimage.distance_transform_edt(part, sampling=self._spacing)
-        phi = np.where(part, -(depth - 1.0 + beyond), outside - beyond)
+        # depth >= one (finest) pixel step: every flooded pixel centre is at least `beyond` inside
+        phi = np.where(part, -(depth - step + beyond), outside - beyond)
         coeffs = ndimage.spline_filter(phi, order=3, mode="nearest")
         sp = self._spacing
         far = 2.0 * band
@@ -353,7 +357,7 @@ class Segmenter:
                 front = Front.from_function(grown, self._image.shape, image=self._image, spacing=self._spacing,
                                             model=self._model, detail=self._detail, signed_distance=True,
                                             exact_within=EXACT_WITHIN * float(np.max(self._spacing)),
-                                            **layout, **params)
+                                            inside=self._growth.inside, **layout, **params)
             else:
                 front = Front.from_seeds(self._image, self._seeds, spacing=self._spacing, model=self._model,
                                          detail=self._detail, **layout, **params)
@@ -410,8 +414,12 @@ class Segmenter:
         from skimage.measure import find_contours
 
         inside = self._growth.inside if self._growth is not None else seed_disks(self._image.shape, self._seeds)
-        padded = np.pad(inside, 1).astype(float)
-        return [c - 1.0 for c in find_contours(0.5 - padded, 0.0, positive_orientation="low")]
+        nz = np.argwhere(inside)
+        if len(nz) == 0:
+            return []
+        lo, hi = nz.min(axis=0), nz.max(axis=0) + 1  # the pixels' box: the rest of the image holds no outline
+        padded = np.pad(inside[lo[0]:hi[0], lo[1]:hi[1]], 1).astype(float)
+        return [c - 1.0 + lo for c in find_contours(0.5 - padded, 0.0, positive_orientation="low")]
 
     def mask(self) -> NDArray[np.bool_]:
         """Pixels inside the outline at full resolution, at any stage."""

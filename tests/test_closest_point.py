@@ -217,3 +217,15 @@ def test_bad_sign_values_and_coefficients_name_the_argument(lattice: dict) -> No
         signed_distance(interp, coeffs, query, sign_values=np.zeros(4))
     with pytest.raises(ValueError, match="coeffs"):
         closest_points(interp, coeffs[:-1], query)
+
+
+def test_spectral_norm_of_symmetric_hessians_matches_numpy() -> None:
+    # reference: numpy.linalg.norm(ord=2), the largest singular value (= largest |eigenvalue| when symmetric)
+    from engine.numerics.closest_point import _spectral_norm
+
+    rng = np.random.default_rng(5)
+    for dim in (2, 3):
+        a = rng.normal(size=(500, dim, dim))
+        h = a + a.transpose(0, 2, 1)
+        h[:5] = 0.0  # zero matrices: norm 0
+        np.testing.assert_allclose(_spectral_norm(h), np.linalg.norm(h, ord=2, axis=(1, 2)), rtol=1e-12, atol=1e-12)

@@ -145,3 +145,21 @@ def test_half_width_of_strips_and_disks() -> None:
     normals = (points - [60.2, 59.7]) / 40.0
     assert np.all(half_width(disk, np.ones(2), points, normals, 8.0) == 8.0)
     assert THIN_LENGTH > 2
+
+
+@pytest.mark.parametrize("spacing", [(1.0, 1.0), (0.8, 1.3), (0.6, 0.6), (2.0, 1.5)])
+def test_the_front_starts_with_every_flooded_pixel_inside(spacing) -> None:
+    # the hand-over from the flood to the front must not drop the flood's boundary pixels, whatever the spacing
+    from engine.segmenter import Segmenter
+
+    rng = np.random.default_rng(3)
+    rr, cc = np.indices((90, 100))
+    disk = (rr - 44.5) ** 2 + (cc - 51.2) ** 2 < 30.0**2
+    image = 100.0 + 60.0 * disk + rng.normal(0.0, 4.0, disk.shape)
+    seg = Segmenter(image, [(44, 51, 4)], spacing=spacing)
+    while seg.stage == "growing":
+        flooded = seg.mask()
+        seg.step(1)
+    assert flooded.sum() > 0.5 * disk.sum()  # the flood reached most of the disk before the hand-over
+    start = seg.mask()
+    assert not np.any(flooded & ~start)

@@ -27,10 +27,17 @@ class BandBuilding:
 
     def _initialise(self, oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], *,
                     signed_distance: bool = False, exact_within: float | None = None,
+                    inside: ArrayLike | None = None,
                     window_from: ArrayLike | None = None, estimate_window: bool = False) -> None:
-        """Band around the zero set of ``oracle`` (values at points in mm); optionally estimate the window."""
+        """Band around the zero set of ``oracle`` (values at points in mm); optionally estimate the window.
+
+        ``inside`` (pixels known to lie inside) limits the pixel read-out to the mask's boundary.
+        """
         sp = self.features.spacing
-        pixel_values = _pixel_values(oracle, self.shape, sp)
+        if inside is None:
+            pixel_values = _pixel_values(oracle, self.shape, sp)
+        else:
+            pixel_values = _boundary_pixel_values(oracle, inside, self.shape, sp)
         self._inside = pixel_values < 0
         if not self._inside.any():
             raise ValueError("the initial front is empty: no pixel centre lies inside it")
@@ -100,7 +107,7 @@ class BandBuilding:
             if built is None:
                 raise FrontVanished("the band is too thin for an interpolant")
             interp, coeffs = built
-            near_dist, nearest = cKDTree(starts).query(positions[todo], workers=_layout.TREE_WORKERS)
+            near_dist, nearest = cKDTree(starts).query(positions[todo], workers=_layout.tree_workers(len(todo)))
             # nodes farther than the band from every zero crossing are dropped below
             reach = near_dist <= width + 0.5 * float(np.max(self.step_mm))
             phi[todo[~reach]] = np.where(approx[todo[~reach]] < 0, -1.0, 1.0) * 2.0 * width
@@ -131,15 +138,16 @@ class BandBuilding:
         if len(crossings) == 0:
             raise FrontVanished("the front vanished: no zero crossing is left")
         # each crossing's nearest layer node, then each node's nearest crossing
-        _, crossing_source = cKDTree(self.layout.positions(indices[active[layer]])).query(crossings,
-                                                                                         workers=_layout.TREE_WORKERS)
+        _, crossing_source = cKDTree(self.layout.positions(indices[active[layer]])).query(
+            crossings, workers=_layout.tree_workers(len(crossings)))
         crossing_source = np.asarray(crossing_source, dtype=np.int64)
         crossing_tree = cKDTree(crossings)
 
         def source_of(nodes: NDArray[np.int64]) -> NDArray[np.int64]:
             if len(nodes) == 0:
                 return np.zeros(0, dtype=np.int64)
-            _, near = crossing_tree.query(self.layout.positions(indices[nodes]), workers=_layout.TREE_WORKERS)
+            _, near = crossing_tree.query(self.layout.positions(indices[nodes]),
+                                          workers=_layout.tree_workers(len(nodes)))
             return crossing_source[near]
 
         source = source_of(active)
@@ -256,6 +264,41 @@ class BandBuilding:
 
 #: Pixels per call of an initial front's function in :func:`_pixel_values`.
 PIXEL_CHUNK = 1 << 21
+
+
+def _boundary_pixel_values(oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], inside: ArrayLike,
+                           shape: tuple[int, ...], spacing: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Pixel values for a front whose inside pixels are known: ``oracle`` next to the boundary, ∓1 elsewhere.
+
+    Only pixels with a neighbour (along an axis) on the other side of the
+    mask are read: the crossings between pixel centres, and the inside bits,
+    are then those of ``oracle`` at every pixel.
+    """
+    mask = np.asarray(inside)
+    if mask.shape != tuple(shape) or mask.dtype != bool:
+        raise ValueError(f"inside must be a boolean mask of shape {tuple(shape)}, got {mask.dtype} {mask.shape}")
+    out = np.where(mask, -1.0, 1.0)
+    nz = np.argwhere(mask)
+    if len(nz) == 0:
+        return out
+    lo = np.maximum(nz.min(axis=0) - 1, 0)
+    hi = np.minimum(nz.max(axis=0) + 2, np.array(shape))
+    box = tuple(slice(a, b) for a, b in zip(lo, hi))
+    part = mask[box]
+    border = np.zeros(part.shape, dtype=bool)
+    for axis in range(part.ndim):
+        lead = (slice(None),) * axis + (slice(0, -1),)
+        trail = (slice(None),) * axis + (slice(1, None),)
+        change = part[lead] != part[trail]
+        border[lead] |= change
+        border[trail] |= change
+    pixels = np.argwhere(border) + lo
+    values = np.asarray(oracle(pixels * spacing), dtype=float)
+    wrong = int(np.count_nonzero((values < 0) != mask[tuple(pixels.T)]))
+    if wrong:
+        raise ValueError(f"inside disagrees with phi at {wrong} pixel(s) next to its boundary")
+    out[tuple(pixels.T)] = values
+    return out
 
 
 def _pixel_values(oracle: Callable[[NDArray[np.floating]], NDArray[np.floating]], shape: tuple[int, ...],

@@ -134,7 +134,7 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
     def from_function(cls, phi: Callable[[NDArray[np.floating]], ArrayLike], shape: Sequence[int], *,
                       spacing: ArrayLike | None = None, model: str = "curvature", detail: int = 1,
                       image: ArrayLike | None = None, signed_distance: bool = False,
-                      exact_within: float | None = None,
+                      exact_within: float | None = None, inside: ArrayLike | None = None,
                       window_from: ArrayLike | None = None, nodes: str = "lattice", finest: float | None = None,
                       coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
                       **params: object) -> "Front":
@@ -149,7 +149,11 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
         whose value lies farther than that from zero are taken as they are;
         those nearer are reinitialised by Newton closest points (an
         approximate distance, such as one between pixel centres, then gives
-        an exact zero set at a fraction of the cost).
+        an exact zero set at a fraction of the cost). ``inside`` (a boolean
+        mask of the image's shape), when the caller knows which pixel centres
+        lie inside, spares evaluating ``phi`` at every pixel: it is read only
+        at the pixels next to the mask's boundary (and must agree in sign
+        there).
 
         Every constructor takes ``nodes``: ``"lattice"`` (default; ``detail``
         lattice nodes per pixel) or ``"scattered"`` (2-D or 3-D, detail 1; in 3-D the front must not
@@ -179,7 +183,7 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
 
         if exact_within is not None and not (np.isfinite(exact_within) and exact_within >= 0):
             raise ValueError(f"exact_within must be >= 0 mm, got {exact_within!r}")
-        front._initialise(oracle, signed_distance=signed_distance, exact_within=exact_within,
+        front._initialise(oracle, signed_distance=signed_distance, exact_within=exact_within, inside=inside,
                           window_from=window_from if estimate else None,
                           estimate_window=estimate)
         return front

@@ -28,6 +28,7 @@ from engine.numerics.interpolant import LocalInterpolant
 from engine.numerics.rbffd import assemble
 
 __all__ = ["Band", "NodeLayout", "LatticeLayout", "ScatteredLayout", "SCATTERED_DAMPING", "TREE_WORKERS",
+           "tree_workers",
            "NODE_LAYOUTS", "check_layout_options", "make_layout", "node_options"]
 
 #: Hyperviscosity coefficient γ (mm⁴ per unit curvature weight, times the node
@@ -40,6 +41,13 @@ NODE_LAYOUTS = ("lattice", "scattered")
 #: Threads of the nearest-neighbour queries (scipy runs them outside the
 #: interpreter lock; the answers do not depend on the count).
 TREE_WORKERS = 2
+#: Queries with fewer points than this run on one thread (starting threads costs more than they save).
+PARALLEL_QUERIES = 10_000
+
+
+def tree_workers(queries: int) -> int:
+    """Threads for a nearest-neighbour query of ``queries`` points."""
+    return TREE_WORKERS if queries >= PARALLEL_QUERIES else 1
 
 #: A band's function of (keys, φ, active, edge nodes, lookup) giving its layer next to the
 #: front and each node's layer node (the front's choice, the same on both layouts).
@@ -489,7 +497,8 @@ class ScatteredLayout:
                                    ) -> tuple[LocalInterpolant, NDArray[np.floating]] | None:
         positions = self.node_set.points[keys]
         # Newton stays next to the zero set: interpolants there suffice
-        near_front = cKDTree(starts_mm).query(positions, workers=TREE_WORKERS)[0] <= 2.5 * self._coarsest
+        near = cKDTree(starts_mm).query(positions, workers=tree_workers(len(positions)))[0]
+        near_front = near <= 2.5 * self._coarsest
         interp = self._interpolant(keys, near_front)
         return None if interp is None else (interp, self.coefficients(interp, values))
 

@@ -163,7 +163,7 @@ def _chopp_fallback(
         v = xm - y0
         along = np.einsum("qd,qd->q", v, grad)
         d2 = v - (along / g2)[:, None] * grad
-        bound = np.linalg.norm(hess, ord=2, axis=(1, 2)) / g2
+        bound = _spectral_norm(hess) / g2
         new = y0 + _limit(d2 / (1.0 + np.abs(along) * bound)[:, None], trust)
         y[moving] = new
         moved = np.sqrt(np.einsum("qd,qd->q", new - ym, new - ym))
@@ -173,6 +173,15 @@ def _chopp_fallback(
         g2 = np.maximum(np.einsum("qd,qd->q", grad, grad), 1e-300)
         y = y + _limit(-(value / g2)[:, None] * grad, trust)
     return y
+
+
+def _spectral_norm(hess: NDArray[np.floating]) -> NDArray[np.floating]:
+    """‖H‖₂ of symmetric matrices (Q, d, d): the largest |eigenvalue| (closed form in 2-D)."""
+    if hess.shape[1] == 2:
+        half_trace = 0.5 * (hess[:, 0, 0] + hess[:, 1, 1])
+        radius = np.hypot(0.5 * (hess[:, 0, 0] - hess[:, 1, 1]), hess[:, 0, 1])
+        return np.abs(half_trace) + radius
+    return np.max(np.abs(np.linalg.eigvalsh(hess)), axis=1)
 
 
 def _limit(step: NDArray[np.floating], trust: float) -> NDArray[np.floating]:
