@@ -150,6 +150,11 @@ class Segmenter:
         return self._passes + (front.steps if front is not None else 0)
 
     @property
+    def passes(self) -> int:
+        """Flood passes taken so far."""
+        return self._passes
+
+    @property
     def time(self) -> float:
         """Evolution time reached by the fronts (the flood takes none)."""
         front = self._fine if self._fine is not None else self._coarse

@@ -43,6 +43,12 @@ def test_a_click_in_the_session_outlines_what_segment_outlines(make) -> None:
             assert np.allclose(c[0], c[-1])
     steps = [f.steps for f in frames]
     assert steps[-1] >= 1 and frames[-1].stage != "growing"
+    # the step count never runs backwards (none while the flood grows), and the run's History
+    # entry counts the steps the live view counted
+    assert all(f.steps == 0 for f in growing) and steps == sorted(steps)
+    run = s.history[-2]  # the run, then the commit
+    assert run.action == "evolve" and run.text.startswith(f"Evolve {steps[-1]} steps, converged")
+    assert run.details["steps"] == steps[-1] and run.details["passes"] >= 2
 
 
 def test_a_pause_during_the_flood_leaves_a_front_to_edit_and_undo_restores_the_seeds() -> None:
@@ -50,6 +56,7 @@ def test_a_pause_during_the_flood_leaves_a_front_to_edit_and_undo_restores_the_s
     s, lab = _session(case)
     s.seed(*case.seed, label=lab, slice=0)
     s.evolve(steps=2)  # two flood passes, then paused
+    assert s.history[-1].text == "Evolve 2 growth passes, paused (structure, slice 0)"
     live = s.live
     assert live is not None and live.snapshot is not None
     area = s.frame().area_mm2

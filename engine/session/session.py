@@ -470,7 +470,8 @@ class Session:
             self._run_settings = self.settings(live.label)
             self._running = True
             t0 = time.perf_counter()
-        taken, due = 0, 0.0
+            first_step = self._front.steps if self._grower is None and self._front is not None else 0
+        taken, passes, due = 0, 0, 0.0
         try:
             while not stop() and (steps is None or taken < steps):
                 with self._lock:
@@ -480,6 +481,7 @@ class Session:
                         continue
                     if grower is not None:
                         grower.step(1)  # one flood pass (or the hand-over to the front)
+                        passes += 1
                     else:
                         front = self._front
                         if front.vanished or (steps is None and front.converged):
@@ -504,7 +506,8 @@ class Session:
                 self._running = False
                 settings, self._run_settings = self._run_settings, None
                 if taken:
-                    self._finish_run(before.with_settings(live.label, settings), taken, time.perf_counter() - t0)
+                    self._finish_run(before.with_settings(live.label, settings), first_step, passes,
+                                     time.perf_counter() - t0)
                 else:
                     self._publish(refine=True)
         if on_frame is not None:
@@ -517,12 +520,18 @@ class Session:
         live = state.live
         self._adopt(grower.front(), state, live.label, live.slice)
 
-    def _finish_run(self, before: SessionState, taken: int, seconds: float) -> None:
-        """Push the run as one command (``before``: the state it started from, with the settings it ended with)."""
+    def _finish_run(self, before: SessionState, first_step: int, passes: int, seconds: float) -> None:
+        """Push the run as one command (``before``: the state it started from, with the settings it ended with).
+
+        The run's steps are the front's (as the live step count shows them);
+        ``passes`` counts the flood's passes and its hand-over to the front.
+        """
         front = self._front
         live = before.live
         settings = before.settings[live.label]
-        details = {"steps": taken, "front_steps": int(front.steps), "converged": bool(front.converged),
+        taken = max(int(front.steps) - first_step, 0)
+        details = {"steps": taken, "passes": passes, "front_steps": int(front.steps),
+                   "converged": bool(front.converged),
                    "vanished": bool(front.vanished), "seconds": round(seconds, 3), "settings": settings.as_record()}
         if front.vanished:
             after = replace(before, live=replace(live, snapshot=None, front_id=None, vanished=True))
@@ -530,9 +539,10 @@ class Session:
         else:
             after = self._with_live_snapshot(before)
         word = "vanished" if front.vanished else ("converged" if front.converged else "paused")
-        self._push(f"Evolve {taken} steps, {word}", "evolve", after, label=live.label, slice_index=live.slice,
+        count = f"{taken} steps" if taken or not passes else f"{passes} growth passes"
+        self._push(f"Evolve {count}, {word}", "evolve", after, label=live.label, slice_index=live.slice,
                    details=details)
-        self._frame = replace(self._frame, steps_per_s=taken / max(seconds, 1e-9))
+        self._frame = replace(self._frame, steps_per_s=(taken + passes) / max(seconds, 1e-9))
 
     def set_params(self, label: int | None = None, **changes: Any) -> None:
         """Change a label's front settings; a running front takes them at its next step.
@@ -793,7 +803,9 @@ class Session:
         sp = np.asarray(self.spacing)
         area = float(sum(signed_area(c * sp) for c in contours))
         perimeter = float(sum(polyline_length(c * sp) for c in contours))
-        return Frame(**base, contours=contours, steps=int(grower.steps), time=0.0, area_mm2=area,
+        # the front's steps: none while the flood grows (the frame's stage says so)
+        steps = int(grower.steps) - grower.passes
+        return Frame(**base, contours=contours, steps=steps, time=0.0, area_mm2=area,
                      perimeter_mm=perimeter, converged=False,
                      stage=("growing" if grower.stage == "growing" else "evolving") if running else "paused")
 
