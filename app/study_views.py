@@ -18,6 +18,7 @@ from PySide6.QtWidgets import QHBoxLayout, QLabel, QSlider, QSplitter, QVBoxLayo
 
 from app.plane_canvas import PlaneCanvas
 from engine.session import Session
+from engine.session.outline import shown_curvature
 from engine.session.planes import PlaneView, line_intervals, plane_views, section_contours, slab_rectangles
 
 __all__ = ["StudyViews", "EMPTY_TEXT"]
@@ -252,7 +253,8 @@ class StudyViews(QWidget):
         for o in s.outlines(self.slice_index):
             colour, visible = labels.get(o.label, ("#ffffff", False))
             if visible and (o.label, o.slice) != skip:
-                shown[o.label] = (colour, list(o.contours), list(o.curvature))
+                curvature = shown_curvature(o.contours, o.curvature, s.spacing) if self.curvature_limit else o.curvature
+                shown[o.label] = (colour, list(o.contours), list(curvature))
         self.main.set_outlines(shown, curvature_limit=self.curvature_limit)
         if self.has_volume and self.side_panel.isVisible():
             self._refresh_sections(labels, skip)

@@ -7,6 +7,9 @@ the curvature (1/mm) the front computes is read along the sub-pixel outline.
 For the star r(θ) = a(1 + b cos 5θ) the plot sets beside it the analytic
 curvature of a polar curve, κ = (r² + 2r'² − r r'') / (r² + r'²)^{3/2}
 (any differential geometry text): tips about +0.13/mm, valleys −0.44/mm.
+The curvature colours of the window show it averaged along the outline over
+about a millimetre (:func:`engine.session.outline.shown_curvature`); that
+curve is set beside the analytic curvature averaged the same way.
 """
 
 from __future__ import annotations
@@ -20,6 +23,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from engine.segmenter import Segmenter  # noqa: E402
+from engine.session.outline import CURVATURE_AVERAGING_MM, shown_curvature  # noqa: E402
 
 
 SIDE, A, B, ARMS, SPACING = 192, 55.0, 0.35, 5, 0.8  # pixels, -, arms, mm
@@ -51,15 +55,19 @@ def main(out: str) -> None:
     length = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(outline, axis=0) * SPACING, axis=1))])
     centred = outline - (SIDE - 1) / 2.0
     analytic = star_curvature(np.arctan2(centred[:, 0], centred[:, 1]))
+    spacing = (SPACING, SPACING)
+    (shown,) = shown_curvature([outline], [curvature], spacing)
+    (analytic_shown,) = shown_curvature([outline], [analytic], spacing)
 
     fig, (left, right) = plt.subplots(1, 2, figsize=(11, 4.5))
     left.imshow(image, cmap="gray")
-    limit = float(np.max(np.abs(curvature)))
-    dots = left.scatter(outline[:, 1], outline[:, 0], c=curvature, cmap="RdBu_r", vmin=-limit, vmax=limit, s=4)
-    fig.colorbar(dots, ax=left, label="curvature (1/mm)")
+    limit = float(np.max(np.abs(shown)))
+    dots = left.scatter(outline[:, 1], outline[:, 0], c=shown, cmap="RdBu_r", vmin=-limit, vmax=limit, s=4)
+    fig.colorbar(dots, ax=left, label=f"curvature (1/mm), averaged over {CURVATURE_AVERAGING_MM:g} mm")
     left.set_title(f"outline after {runner.steps} steps")
     left.axis("off")
-    right.plot(length, curvature, lw=1, label="front")
+    right.plot(length, curvature, lw=0.6, color="0.6", label="front, at each vertex")
+    right.plot(length, shown, lw=1.2, label=f"front, averaged over {CURVATURE_AVERAGING_MM:g} mm (as shown)")
     right.plot(length, analytic, lw=1.5, color="k", ls="--", label="analytic")
     right.legend(loc="lower right")
     right.axhline(0.0, color="k", lw=0.5)
@@ -68,8 +76,12 @@ def main(out: str) -> None:
     fig.tight_layout()
     fig.savefig(out, dpi=120)
     error = float(np.median(np.abs(curvature - analytic)))
+    shown_error = float(np.median(np.abs(shown - analytic_shown)))
     print(f"wrote {out}: curvature {curvature.min():.3f} to {curvature.max():.3f} 1/mm "
           f"(analytic {analytic.min():.3f} to {analytic.max():.3f}; median difference {error:.3f} 1/mm)")
+    print(f"as shown (averaged over {CURVATURE_AVERAGING_MM:g} mm): {shown.min():.3f} to {shown.max():.3f} 1/mm "
+          f"(analytic averaged alike {analytic_shown.min():.3f} to {analytic_shown.max():.3f}; "
+          f"median difference {shown_error:.3f} 1/mm)")
 
 
 if __name__ == "__main__":

@@ -320,3 +320,43 @@ def test_bad_polyline_names_the_argument():
         polyline_length([[0.0, 0.0], [np.inf, 1.0]])
     with pytest.raises(ValueError, match=r"polylines\[1\]"):
         orient([np.zeros((3, 2)), np.zeros(5)])
+
+
+@pytest.mark.parametrize("count", [300, 1200])
+def test_average_along_a_circle_damps_each_mode_as_a_gaussian(count) -> None:
+    # A Gaussian of σ in arc length multiplies the mode cos(mθ) on a circle of radius R by
+    # exp(−m²σ²/(2R²)) (the Fourier transform of a Gaussian); vertices unevenly spaced
+    # (±30 % jitter) must not bias it.
+    from engine.analysis.contours import average_along_polyline
+
+    rng = np.random.default_rng(11)
+    radius, sigma = 20.0, 1.5
+    theta = (np.arange(count) + rng.uniform(-0.3, 0.3, count)) * 2 * np.pi / count
+    circle = np.c_[radius * np.cos(theta), radius * np.sin(theta)]
+    for m in (1, 4, 9):
+        out = average_along_polyline(np.cos(m * theta), circle, sigma)
+        expected = np.cos(m * theta) * np.exp(-0.5 * (m * sigma / radius) ** 2)
+        np.testing.assert_allclose(out, expected, atol=2e-3)
+    constant = average_along_polyline(np.full(count, 0.05), circle, sigma)
+    np.testing.assert_allclose(constant, 0.05, rtol=1e-12)
+    # a closed polyline given with its first vertex repeated at the end: the same values, the end repeated
+    closed = average_along_polyline(np.append(np.cos(4 * theta), 1.0), np.vstack([circle, circle[:1]]), sigma)
+    np.testing.assert_allclose(closed[:-1], average_along_polyline(np.cos(4 * theta), circle, sigma), atol=1e-12)
+    assert closed[-1] == closed[0]
+
+
+def test_average_along_an_open_line_and_bad_input() -> None:
+    from engine.analysis.contours import average_along_polyline
+
+    x = np.linspace(0.0, 30.0, 121)
+    line = np.c_[x, 0.5 * x]
+    ramp = 2.0 * x + 1.0  # a linear function keeps its value away from the ends
+    out = average_along_polyline(ramp, line, 2.0, closed=False)
+    inner = (x > 10) & (x < 20)
+    np.testing.assert_allclose(out[inner], ramp[inner], rtol=1e-9)
+    assert out[0] > ramp[0] and out[-1] < ramp[-1]  # one-sided at the ends
+    np.testing.assert_array_equal(average_along_polyline(ramp, line, 0.0, closed=False), ramp)
+    with pytest.raises(ValueError, match="one entry per vertex"):
+        average_along_polyline(ramp[:-1], line, 1.0)
+    with pytest.raises(ValueError, match="sigma"):
+        average_along_polyline(ramp, line, -1.0)

@@ -65,6 +65,7 @@ from numpy.typing import ArrayLike, NDArray
 __all__ = [
     "BandCutWarning",
     "ContourSet",
+    "average_along_polyline",
     "band_contour_set",
     "band_contours",
     "orient",
@@ -456,6 +457,62 @@ def polyline_length(polyline: ArrayLike, *, closed: bool = True) -> float:
     if closed:
         p = np.vstack([p, p[:1]])
     return float(np.sum(np.hypot(*np.diff(p, axis=0).T)))
+
+
+def average_along_polyline(values: ArrayLike, polyline: ArrayLike, sigma: float, *,
+                           closed: bool = True) -> NDArray[np.float64]:
+    """Gaussian average of per-vertex ``values`` along a polyline, with σ = ``sigma`` in arc length.
+
+    Arc length is measured in the polyline's own units. Each vertex weighs
+    by the length it stands for (half of each adjacent segment), so unevenly
+    spaced vertices do not bias the average. A closed polyline wraps round
+    (a repeated first vertex at its end is taken once and given its value
+    back); an open one is averaged over the vertices it has. ``sigma`` 0
+    returns a copy.
+    """
+    p = _as_polyline(polyline)
+    v = np.asarray(values, dtype=float)
+    if v.shape != (len(p),):
+        raise ValueError(f"values must have one entry per vertex ({len(p)}), got shape {v.shape}")
+    if not sigma >= 0:
+        raise ValueError(f"sigma must be >= 0, got {sigma!r}")
+    repeated = closed and len(p) > 1 and np.array_equal(p[0], p[-1])
+    if repeated:
+        p, v = p[:-1], v[:-1]
+    n = len(p)
+    if sigma == 0 or n < 3:
+        out = v.copy()
+        return np.append(out, out[0]) if repeated else out
+    seg = np.hypot(*np.diff(np.vstack([p, p[:1]]) if closed else p, axis=0).T)
+    s = np.concatenate([[0.0], np.cumsum(seg)])[:n]  # arc length at each vertex
+    total = float(np.sum(seg)) if closed else float(s[-1])
+    ahead = seg if closed else np.append(seg, 0.0)
+    behind = np.roll(seg, 1) if closed else np.insert(seg, 0, 0.0)
+    weight = 0.5 * (ahead + behind)
+    # vertices within 4σ ahead of any vertex (the window behind is the same by symmetry of the search)
+    ends = np.concatenate([s, s + total]) if closed else s
+    within = np.searchsorted(ends, s + 4.0 * sigma, side="right") - np.arange(n) - 1
+    behind_count = np.arange(n) - np.searchsorted(s, s - 4.0 * sigma, side="left")
+    reach = int(max(within.max(), 0 if closed else behind_count.max()))
+    reach = min((n - 1) // 2 if closed else n - 1, max(reach, 1))
+    num = weight * v
+    den = weight.copy()
+    index = np.arange(n)
+    for k in range(1, reach + 1):
+        for step in (k, -k):
+            j = index + step
+            if closed:
+                gap = np.abs(s[j % n] - s + (total if step > 0 else -total) * (j >= n if step > 0 else j < 0))
+                j = j % n
+            else:
+                valid = (j >= 0) & (j < n)
+                j = np.clip(j, 0, n - 1)
+                gap = np.where(valid, np.abs(s[j] - s), np.inf)
+            w = weight[j] * np.exp(-0.5 * (gap / sigma) ** 2)
+            num += w * v[j]
+            den += w
+    out = num / np.maximum(den, 1e-300)
+    return np.append(out, out[0]) if repeated else out
 
 
 def _points_in_polygon(points: NDArray[np.float64], poly: NDArray[np.float64]) -> NDArray[np.bool_]:

@@ -21,9 +21,15 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import ndimage
 
-from engine.analysis.contours import band_contours, polyline_length, signed_area
+from engine.analysis.contours import average_along_polyline, band_contours, polyline_length, signed_area
 
-__all__ = ["Outline", "outline_from_front", "outline_from_mask", "outline_from_phi", "frozen_array"]
+__all__ = ["Outline", "outline_from_front", "outline_from_mask", "outline_from_phi", "frozen_array",
+           "shown_curvature", "CURVATURE_AVERAGING_MM"]
+
+#: Gaussian σ (mm) along the outline of the curvature that curvature colours show: the per-vertex
+#: curvature of a noisy image's outline speckles; this halves the speckle and leaves a bend a few
+#: mm across standing out (examples/plot_curvature.py)
+CURVATURE_AVERAGING_MM = 1.0
 
 #: φ beyond the stored box, in mm times the box margin: only its sign matters there.
 _FAR_PIXELS = 3.0
@@ -197,6 +203,14 @@ def curvature_along(pixel_phi: NDArray[np.floating], contours: Sequence[NDArray[
     nr, nc = gr / norm, gc / norm
     kappa = np.gradient(nr, spacing[0], axis=0) + np.gradient(nc, spacing[1], axis=1)
     return tuple(ndimage.map_coordinates(kappa, np.asarray(c).T, order=1, mode="nearest") for c in contours)
+
+
+def shown_curvature(contours: Sequence[NDArray[np.floating]], curvature: Sequence[NDArray[np.floating]],
+                    spacing: Sequence[float]) -> tuple[NDArray[np.floating], ...]:
+    """What curvature colours show: each contour's curvature averaged along it over CURVATURE_AVERAGING_MM."""
+    sp = np.asarray(spacing, dtype=float)
+    return tuple(frozen_array(average_along_polyline(k, np.asarray(c) * sp, CURVATURE_AVERAGING_MM), float)
+                 for c, k in zip(contours, curvature))
 
 
 def outline_from_front(label: int, slice_index: int, front: Any, *,

@@ -35,7 +35,7 @@ from engine.io.sidecar import OKABE_ITO, utc_now
 from engine.io.volume import Volume
 from engine.segmenter import Segmenter
 from engine.session import fronts
-from engine.session.outline import Outline, frozen_array, outline_from_front
+from engine.session.outline import Outline, frozen_array, outline_from_front, shown_curvature
 from engine.session.settings import FrontSettings
 from engine.session.state import Command, Frame, Label, LiveState, SessionState, UndoStack
 
@@ -780,11 +780,12 @@ class Session:
                                 message="the front vanished" if live.vanished else "")
             return
         contours = tuple(frozen_array(c, float) for c in front.contours(refine=refine)) if not front.vanished else ()
+        from engine.analysis.contours import polyline_length, signed_area
+
+        sp = np.asarray(self.spacing)
         curvature = None
         if self.curvature_colours and contours:
-            curvature = tuple(frozen_array(front.curvature_at(c), float) for c in contours)
-        sp = np.asarray(self.spacing)
-        from engine.analysis.contours import polyline_length, signed_area
+            curvature = shown_curvature(contours, [front.curvature_at(c) for c in contours], sp)
 
         area = float(sum(signed_area(c * sp) for c in contours))
         perimeter = float(sum(polyline_length(c * sp) for c in contours))
