@@ -279,10 +279,10 @@ class Segmenter:
         flood's bounding box widened by the band) read by cubic B-spline:
         |∇φ| ≈ 1 away from its zero set, so the band takes it as it is
         beyond EXACT_WITHIN pixels and only the nodes nearer get Newton
-        closest points (all of them was most of the hand-over, 0.56 of
-        0.8 s for 31 000 nodes on a 512² star). Smoothing it instead lost a
-        strip two pixels wide; without any Newton a 3 px disk rested at
-        1.06 of its area instead of 1.04.
+        closest points (for all of them they would be most of the
+        hand-over's time). It is not smoothed (that would lose a strip two
+        pixels wide), and the nodes near the outline do need Newton (a small
+        disk rests too large on the pixel-centre distance alone).
         """
         if self._growth is None or self._growth.unbounded or self._growth.inside.all():
             return None

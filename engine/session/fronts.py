@@ -96,7 +96,7 @@ def start_from_outline(image: NDArray[np.floating], outline: Outline, spacing: S
         return ndimage.map_coordinates(values, (points_mm / sp).T, order=1, mode="nearest")
 
     # the stored φ is the committed front's signed distance: only the nodes near its zero set
-    # need Newton closest points (all of them were most of a carry's time)
+    # need Newton closest points (for all nodes they would be most of a carry's time)
     return Front.from_function(phi, image.shape, image=image, spacing=sp, signed_distance=True,
                                exact_within=EXACT_WITHIN * float(np.max(sp)), **kwargs)
 
