@@ -169,3 +169,17 @@ def test_session_and_command_line_use_the_same_checks(tmp_path, capsys):
     assert main(["segment", str(path), "--seed", "3,40,2", "--out", str(tmp_path / "o")]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "--seed 3,40,2: centre (row 3, col 40) lies outside the image" in err
+
+
+def test_validate_seeds_names_the_seed_and_the_image_in_plain_numbers():
+    assert v.validate_seeds([(3, 4, 2)], (20, 30)).shape == (1, 3)
+    assert v.validate_seeds((1, 3, 4, 2), (4, 20, 30)).shape == (1, 4)
+    with pytest.raises(ValueError, match=re.escape("seeds: seed 1: centre (row 3, col 50) lies outside the image "
+                                                   "(20 x 30 pixels: rows 0..19, cols 0..29)")):
+        v.validate_seeds([(3, 4, 2), (3, 50, 2)], (20, 30))
+    with pytest.raises(ValueError, match=re.escape("centre (slice 4, row 3, col 5) lies outside the image (4 x 20 x 30 "
+                                                   "voxels: slices 0..3, rows 0..19, cols 0..29)")):
+        v.validate_seeds([(4, 3, 5, 2)], (4, 20, 30))
+    for seeds, words in [([(1, 2)], "tuples"), ([(1, np.nan, 2)], "NaN"), ([(1, 2, 0)], "radius must be > 0")]:
+        with pytest.raises(ValueError, match=f"^seeds.*{words}"):
+            v.validate_seeds(seeds, (20, 30))
