@@ -43,15 +43,22 @@ from engine.image.features import compute_features
 from engine.image.growth import GROWTH_MODELS, RegionGrowth
 from engine.image.statistics import estimate_window
 from engine.image.thickness import THIN_LENGTH, thin_length
-from engine.validation import check_limits, check_names, check_spacing, validate_seeds
+from engine.validation import (
+    check_coarse,
+    check_detail,
+    check_limits,
+    check_names,
+    check_nodes,
+    check_spacing,
+    check_steps,
+    validate_seeds,
+)
 
 if TYPE_CHECKING:
     from engine.segment import Segmentation
 
 #: Stages in order.
 STAGES = ("growing", "coarse", "fine", "done")
-#: Block sizes a coarse stage may use.
-BLOCK_SIZES = (1, 2, 4, 8)
 #: The fine front starts this far (pixel spacings) beyond the outermost flooded pixel centres.
 START_BEYOND = 0.1
 #: The fine front's nodes within this many pixels of the flood's outline get Newton closest-point
@@ -80,21 +87,15 @@ class Segmenter:
                  nodes: str = "lattice", barrier: ArrayLike | None = None, **params: object) -> None:
         t0 = time.perf_counter()
         check_names(params, SETTING_NAMES | set(LAYOUT_OPTIONS), "segment()")
-        if max_steps is not None and (isinstance(max_steps, bool) or not isinstance(max_steps, (int, np.integer))
-                                      or max_steps < 1):
-            raise ValueError(f"max_steps must be a whole number >= 1 (or None for 20 000), got {max_steps!r}")
+        if max_steps is not None:
+            check_steps(max_steps, name="max_steps")
         img = np.asarray(image, dtype=float)
         if img.ndim not in (2, 3) or img.size == 0:
             raise ValueError(f"image must be a non-empty 2-D or 3-D array, got shape {img.shape}")
         self._seeds = validate_seeds(seeds, img.shape)
-        if nodes not in ("lattice", "scattered"):
-            raise ValueError(f"nodes must be 'lattice' or 'scattered', got {nodes!r}")
-        if detail not in (1, 2, 4):
-            raise ValueError(f"detail must be 1, 2 or 4, got {detail!r}")
-        if nodes == "scattered" and coarse not in (None, 1):
-            raise ValueError(f"coarse start is for lattice nodes; use coarse=1 with nodes='scattered', got {coarse!r}")
-        if coarse is not None and not (isinstance(coarse, (int, np.integer)) and int(coarse) in BLOCK_SIZES):
-            raise ValueError(f"coarse must be 1, 2, 4 or 8, got {coarse!r}")
+        check_nodes(nodes)
+        check_detail(detail)
+        check_coarse(coarse, nodes=nodes)
         sp = check_spacing(spacing, img.ndim)
         check_limits(img.shape, sp, params)
         settings = FrontParams(model=model, **params)  # validates every setting once, here
@@ -285,10 +286,10 @@ class Segmenter:
         flood's bounding box widened by the band) read by cubic B-spline:
         |∇φ| ≈ 1 away from its zero set, so the band takes it as it is
         beyond EXACT_WITHIN pixels and only the nodes nearer get Newton
-        closest points (all of them was most of the hand-over, 0.56 of
-        0.8 s for 31 000 nodes on a 512² star). Smoothing it instead lost a
-        strip two pixels wide; without any Newton a 3 px disk rested at
-        1.06 of its area instead of 1.04.
+        closest points (for all of them they would be most of the
+        hand-over's time). It is not smoothed (that would lose a strip two
+        pixels wide), and the nodes near the outline do need Newton (a small
+        disk rests too large on the pixel-centre distance alone).
         """
         if self._growth is None or self._growth.unbounded or self._growth.inside.all():
             return None

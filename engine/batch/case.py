@@ -20,6 +20,7 @@ from dataclasses import dataclass, field, replace
 from typing import Any
 
 from engine.batch.manifest import CaseProblem, CaseSpec, slice_text
+from engine.validation import check_slice
 from engine.batch.reference import figure_from_record, plain_figure, reference_mask, score
 from engine.batch.resume import ACTION, case_key, recorded_figures, result_prefix
 
@@ -143,16 +144,14 @@ def outline_case(spec: CaseSpec, *, cancel: Callable[[], bool] = lambda: False, 
     n = session.slices
     if spec.slices is not None:
         lo, hi = spec.slices
-        if hi >= n:
-            raise ValueError(f"slice {lo}-{hi}: the study has {n} slice{'s' if n != 1 else ''} (0..{n - 1})")
+        check_slice(hi, n, name=f"slice {lo}-{hi}: last slice")
         default = lo
     else:
         default = n // 2
     by_slice: dict[int, list[tuple[float, float, float]]] = {}
     for k, row, col, radius in spec.seeds:
         k = default if k is None else k
-        if not 0 <= k < n:
-            raise ValueError(f"seeds: slice {k} is outside the study's slices 0..{n - 1}")
+        check_slice(k, n, name="seeds: slice")
         by_slice.setdefault(k, []).append((row, col, radius))
     if spec.slices is None:
         lo, hi = min(by_slice), max(by_slice)

@@ -100,9 +100,9 @@ def batch_client(*, workers: int | None = None, scheduler: str | None = None,
 
     # A lost worker fails its task at once; run_cases resubmits it once itself. The scheduler's
     # HTTP routes (and dashboard, when bokeh is installed) take a free loopback port, not 8787.
-    # Workers keep glibc's own malloc thresholds: Dask's MALLOC_TRIM_THRESHOLD_ (which also turns
-    # off the dynamic mmap threshold) made every array of a step a fresh mmap, and a case took 1.6
-    # times the processor time it takes here (DEVELOPERS.md, Batches).
+    # Workers keep glibc's own malloc thresholds: Dask's MALLOC_TRIM_THRESHOLD_ also turns off the
+    # dynamic mmap threshold, which makes every array of a step a fresh mmap whose pages fault in
+    # again (DEVELOPERS.md, Batches).
     # No statistical profiler either (it samples the case's stack every 10 ms for a dashboard).
     with dask.config.set({"distributed.scheduler.allowed-failures": 0,
                           "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None,

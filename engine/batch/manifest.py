@@ -36,12 +36,14 @@ from __future__ import annotations
 import csv
 import io
 import json
-import math
 import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
+
+from engine.validation import check_file_name, parse_number, parse_seed, parse_whole
+from engine.validation import parse_window as parse_window_text
 
 __all__ = [
     "CaseSpec",
@@ -63,9 +65,6 @@ COLUMNS = ("path", "label", "seeds", "model", "series", "slice", "window", "smoo
            "reference", "case")
 #: Fields every row must have.
 REQUIRED = ("path", "label", "seeds", "model")
-#: Characters a label or case name may not hold (they name folders and files).
-_BAD_NAME_CHARS = set('/\\:*?"<>|\t\r\n')
-
 Seed = tuple[int | None, float, float, float]
 
 
@@ -163,6 +162,8 @@ def case_stem(path: str | os.PathLike[str]) -> str:
 def parse_seeds(text: Any) -> tuple[Seed, ...]:
     """``"K:ROW,COL,RADIUS; ROW,COL,RADIUS"`` (or a list of 3- or 4-number lists) -> seeds.
 
+    Each seed is checked by :func:`engine.validation.parse_seed`.
+
     Raises
     ------
     ValueError
@@ -170,47 +171,14 @@ def parse_seeds(text: Any) -> tuple[Seed, ...]:
     """
     if isinstance(text, (list, tuple)):
         items = [list(item) if isinstance(item, (list, tuple)) else item for item in text]
-        parts: list[tuple[str | None, list[Any]]] = []
         for item in items:
             if not isinstance(item, list) or len(item) not in (3, 4):
                 raise ValueError(f"seeds: expected [ROW, COL, RADIUS] or [SLICE, ROW, COL, RADIUS], got {item!r}")
-            parts.append((None, item) if len(item) == 3 else (str(item[0]), item[1:]))
     else:
-        parts = []
-        for chunk in str(text if text is not None else "").split(";"):
-            chunk = chunk.strip()
-            if not chunk:
-                continue
-            where, sep, rest = chunk.partition(":")
-            parts.append((where.strip(), rest.split(",")) if sep else (None, chunk.split(",")))
-    if not parts:
+        items = [chunk.strip() for chunk in str(text if text is not None else "").split(";") if chunk.strip()]
+    if not items:
         raise ValueError("seeds: expected at least one ROW,COL,RADIUS seed")
-    seeds: list[Seed] = []
-    for where, values in parts:
-        shown = ("" if where is None else f"{where}:") + ",".join(str(v).strip() for v in values)
-        try:
-            numbers = [float(str(v).strip()) for v in values]
-        except ValueError:
-            raise ValueError(f"seeds: {shown!r}: expected ROW,COL,RADIUS as numbers") from None
-        if len(numbers) != 3 or not all(math.isfinite(v) for v in numbers):
-            raise ValueError(f"seeds: {shown!r}: expected ROW,COL,RADIUS (three finite numbers)")
-        if numbers[2] <= 0:
-            raise ValueError(f"seeds: {shown!r}: the radius must be > 0 pixels")
-        k = None
-        if where is not None:
-            k = _whole(where, f"seeds: {shown!r}: slice")
-        seeds.append((k, numbers[0], numbers[1], numbers[2]))
-    return tuple(seeds)
-
-
-def _whole(text: Any, what: str) -> int:
-    try:
-        value = float(str(text).strip())
-    except ValueError:
-        raise ValueError(f"{what} {text!r}: expected a whole number") from None
-    if not value.is_integer() or value < 0:
-        raise ValueError(f"{what} {text!r}: expected a whole number >= 0")
-    return int(value)
+    return tuple(parse_seed(item, name="seeds", with_slice=True) for item in items)  # type: ignore[misc]
 
 
 def parse_slices(text: Any) -> tuple[int, int] | None:
@@ -219,8 +187,8 @@ def parse_slices(text: Any) -> tuple[int, int] | None:
         return None
     raw = str(text).strip()
     first, sep, last = raw.partition("-")
-    a = _whole(first, "slice")
-    b = _whole(last, "slice") if sep else a
+    a = parse_whole(first, name="slice")
+    b = parse_whole(last, name="slice") if sep else a
     if b < a:
         raise ValueError(f"slice {raw!r}: FIRST must not be after LAST")
     return a, b
@@ -243,34 +211,7 @@ def slice_text(slices: Sequence[int]) -> str:
 
 def parse_window(text: Any) -> tuple[float, float]:
     """``"LOW,HIGH"`` (or a two-number list) -> ``(low, high)`` with ``low < high``."""
-    values = list(text) if isinstance(text, (list, tuple)) else str(text).split(",")
-    try:
-        numbers = [float(str(v).strip()) for v in values]
-    except ValueError:
-        raise ValueError(f"window {text!r}: expected LOW,HIGH as numbers") from None
-    if len(numbers) != 2 or not all(math.isfinite(v) for v in numbers):
-        raise ValueError(f"window {text!r}: expected LOW,HIGH (two finite numbers)")
-    if numbers[0] >= numbers[1]:
-        raise ValueError(f"window {text!r}: LOW must be less than HIGH")
-    return numbers[0], numbers[1]
-
-
-def _number(text: Any, what: str, *, minimum: float | None = None) -> float:
-    try:
-        value = float(str(text).strip())
-    except ValueError:
-        raise ValueError(f"{what} {text!r}: expected a number") from None
-    if not math.isfinite(value) or (minimum is not None and value < minimum):
-        raise ValueError(f"{what} {text!r}: expected a finite number" + (f" >= {minimum:g}" if minimum is not None
-                                                                          else ""))
-    return value
-
-
-def _name(text: Any, what: str) -> str:
-    name = str(text if text is not None else "").strip()
-    if not name or name in (".", "..") or any(c in _BAD_NAME_CHARS for c in name) or len(name) > 64:
-        raise ValueError(f"{what} {text!r}: expected a name of 1 to 64 characters without / \\ : * ? \" < > |")
-    return name
+    return parse_window_text(text, name="window")
 
 
 def _blank(value: Any) -> bool:
@@ -292,7 +233,7 @@ def parse_case(row: Mapping[str, Any], *, number: int, base: str | os.PathLike[s
         if _blank(row.get(key)):
             raise ValueError(f"{key}: missing")
     path = Path(os.fspath(base)) / str(row["path"]).strip()
-    label = _name(row["label"], "label")
+    label = check_file_name(row["label"], name="label")
     seeds = parse_seeds(row["seeds"])
     model = str(row["model"]).strip().lower()
     if model not in MODELS:
@@ -308,13 +249,11 @@ def parse_case(row: Mapping[str, Any], *, number: int, base: str | os.PathLike[s
             raise ValueError(f"window: only used with the window model (the row's model is {model})")
         params["window"] = parse_window(row["window"])
     if not _blank(row.get("smoothness")):
-        params["smoothness"] = _number(row["smoothness"], "smoothness", minimum=0.0)
+        params["smoothness"] = parse_number(row["smoothness"], name="smoothness", minimum=0.0)
     if not _blank(row.get("drive")):
-        params["drive"] = _number(row["drive"], "drive")
+        params["drive"] = parse_number(row["drive"], name="drive")
     if not _blank(row.get("max_steps")):
-        params["max_steps"] = _whole(row["max_steps"], "max_steps")
-        if params["max_steps"] < 1:
-            raise ValueError(f"max_steps {row['max_steps']!r}: expected a whole number >= 1")
+        params["max_steps"] = parse_whole(row["max_steps"], name="max_steps", minimum=1)
     FrontSettings(model=model).updated(**params)  # refuses values the front would refuse
     if slices is not None:
         unplaced = [s for s in seeds if s[0] is None]
@@ -327,7 +266,8 @@ def parse_case(row: Mapping[str, Any], *, number: int, base: str | os.PathLike[s
     reference = None
     if not _blank(row.get("reference")):
         reference = os.path.abspath(Path(os.fspath(base)) / str(row["reference"]).strip())
-    name = _name(row["case"], "case") if not _blank(row.get("case")) else _name(case_stem(path), "case name of path")
+    name = (check_file_name(row["case"], name="case") if not _blank(row.get("case"))
+            else check_file_name(case_stem(path), name="case name of path"))
     return CaseSpec(row=number, name=name, path=os.path.abspath(path), label=label, seeds=seeds, model=model,
                     series=series, slices=slices, params=tuple(sorted(params.items())), reference=reference)
 

@@ -35,6 +35,7 @@ from typing import TYPE_CHECKING, TextIO
 from engine.commands.progress import wants_progress
 from engine.commands.segment import fail
 from engine.commands.segment_options import one_line_errors
+from engine.validation import parse_whole
 
 if TYPE_CHECKING:
     from engine.batch import CaseResult
@@ -68,13 +69,7 @@ def parse_workers(text: str | None) -> int | None:
     """``--workers`` -> a count (None: the default)."""
     if text is None:
         return None
-    try:
-        value = int(str(text).strip())
-    except ValueError:
-        raise ValueError(f"--workers {text!r}: expected a whole number") from None
-    if value < 0:
-        raise ValueError(f"--workers {text!r}: must be >= 0")
-    return value
+    return parse_whole(text, name="--workers", minimum=0)
 
 
 def check_out(out: str | None) -> Path:

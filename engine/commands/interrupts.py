@@ -1,19 +1,19 @@
 """Ctrl-C on the command line: one "interrupted" line and exit code 130, whenever it comes.
 
 Python turns SIGINT into a ``KeyboardInterrupt`` raised wherever the main
-thread happens to be. On the command line that went wrong three ways:
+thread happens to be. Left so, it goes wrong three ways on the command line:
 
 - The engine's nearest-neighbour queries (``scipy.spatial.cKDTree.query``
   with ``workers=2``) run in helper threads that the main thread joins. A
   ``KeyboardInterrupt`` raised inside that join abandons the helpers while
   they still work on the tree's arrays in native code; the interpreter then
-  shut down around them: a segmentation fault (exit 139) after the
+  shuts down around them: a segmentation fault (exit 139) after the
   "interrupted" line.
-- Raised while an extension module ran Python code through the C API, the
-  exception was caught and reported, yet CPython remembered it as
-  unhandled and killed itself with SIGINT at exit (exit −2, not 130).
-- Raised before the command's own handler was reached (importing numpy and
-  the rest), it printed a traceback of some fifty lines.
+- Raised while an extension module runs Python code through the C API, the
+  exception is caught and reported, yet CPython remembers it as unhandled
+  and kills itself with SIGINT at exit (exit −2, not 130).
+- Raised before the command's own handler is reached (importing numpy and
+  the rest), it prints a long traceback.
 
 So :func:`install` replaces the handler with one that only records the
 request; the commands call :func:`check` at safe points (as files load,

@@ -21,6 +21,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from engine.validation import parse_whole
+
 HELP = "record a sign-off step (submit, approve, return) on a saved result"
 
 EPILOG = """exit codes:
@@ -85,9 +87,9 @@ def _marks(args: argparse.Namespace, labels: dict[str, int]) -> list[dict]:
                 names = ", ".join(sorted(labels)) or "none"
                 raise _Usage(f"--label: the result has no label {label!r} (its labels: {names})") from None
         try:
-            slice_index = int(k)
-        except ValueError:
-            raise _Usage(f"--slice: expected a whole number, got {k!r}") from None
+            slice_index = parse_whole(k, name="--slice")
+        except ValueError as exc:
+            raise _Usage(str(exc)) from None
         out.append({"label": index, "slice": slice_index, "note": note})
     return out
 

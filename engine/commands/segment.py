@@ -57,8 +57,9 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from engine.commands.progress import LoadingBar, TextProgress, wants_progress
-from engine.commands.segment_options import PROG, Settings, UsageError, parse_settings
+from engine.commands.segment_options import PROG, Settings, UsageError, as_usage, parse_settings
 from engine.commands.segment_options import add_arguments, one_line_errors  # noqa: F401 - the verb's interface
+from engine.validation import check_seed, check_slice
 
 if TYPE_CHECKING:
     from engine.front import Front
@@ -208,19 +209,12 @@ def _pick_slice(volume: "Volume", requested: int | None) -> int:
     n = volume.shape[0]
     if requested is None:
         return n // 2
-    if not 0 <= requested < n:
-        raise UsageError(f"--slice {requested}: the image has {n} slice{'s' if n != 1 else ''} (0..{n - 1})")
-    return requested
+    return as_usage(check_slice, requested, n, name="--slice")
 
 
 def _check_seeds(seeds: tuple[tuple[float, float, float], ...], shape: tuple[int, int]) -> None:
-    rows, cols = shape
     for row, col, radius in seeds:
-        if not (-0.5 <= row <= rows - 0.5 and -0.5 <= col <= cols - 0.5):
-            raise UsageError(
-                f"--seed {row:g},{col:g},{radius:g}: centre (row {row:g}, col {col:g}) lies outside the image "
-                f"({rows} rows x {cols} columns: rows 0..{rows - 1}, columns 0..{cols - 1})"
-            )
+        as_usage(check_seed, row, col, radius, shape, name=f"--seed {row:g},{col:g},{radius:g}")
 
 
 def _on_border(seed: tuple[float, float, float], shape: tuple[int, int]) -> bool:

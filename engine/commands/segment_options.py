@@ -7,17 +7,22 @@ value gives exit code 2 and one line naming the flag.
 from __future__ import annotations
 
 import argparse
-import math
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any, TypeVar
 
-__all__ = ["UsageError", "Settings", "add_arguments", "one_line_errors", "parse_settings", "parse_seed",
+from engine import validation
+
+__all__ = ["UsageError", "as_usage", "Settings", "add_arguments", "one_line_errors", "parse_settings", "parse_seed",
            "parse_window", "result_prefix"]
 
 PROG = "isotide segment"
 
 _RESULT_SUFFIXES = ("_dseg.nii.gz", "_dseg.json", "_dseg.tsv", ".seg.dcm")
+
+T = TypeVar("T")
 
 
 class UsageError(ValueError):
@@ -114,67 +119,43 @@ class Settings:
     operator: str = ""
 
 
+def as_usage(check: Callable[..., T], *args: Any, **kwargs: Any) -> T:
+    """``check(*args, **kwargs)`` with its ``ValueError`` raised as :class:`UsageError` (exit code 2)."""
+    try:
+        return check(*args, **kwargs)
+    except UsageError:
+        raise
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+
+
 def parse_seed(text: str) -> tuple[float, float, float]:
-    """``"ROW,COL,RADIUS"`` -> ``(row, col, radius_px)``.
+    """``"ROW,COL,RADIUS"`` -> ``(row, col, radius_px)`` (:func:`engine.validation.parse_seed`).
 
     Raises
     ------
     UsageError
         Not three finite numbers, a radius <= 0, or a 3-D seed.
     """
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        values = [float(p) for p in parts]
-    except ValueError:
-        raise UsageError(f"--seed {text!r}: expected ROW,COL,RADIUS as numbers") from None
-    if len(values) == 4:
+    if str(text).count(",") == 3:
         raise UsageError(
             f"--seed {text!r}: 3-D seeds (SLICE,ROW,COL,RADIUS) are not supported; "
             "choose the slice with --slice K and give ROW,COL,RADIUS"
         )
-    if len(values) != 3:
-        raise UsageError(f"--seed {text!r}: expected ROW,COL,RADIUS (three numbers)")
-    if not all(math.isfinite(v) for v in values):
-        raise UsageError(f"--seed {text!r}: values must be finite numbers")
-    if values[2] <= 0:
-        raise UsageError(f"--seed {text!r}: radius must be > 0 pixels")
-    return values[0], values[1], values[2]
+    return as_usage(validation.parse_seed, text, name="--seed")  # type: ignore[return-value]
 
 
 def parse_window(text: str) -> tuple[float, float]:
     """``"LOW,HIGH"`` -> ``(low, high)`` with ``low < high``."""
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        values = [float(p) for p in parts]
-    except ValueError:
-        raise UsageError(f"--window {text!r}: expected LOW,HIGH as numbers") from None
-    if len(values) != 2 or not all(math.isfinite(v) for v in values):
-        raise UsageError(f"--window {text!r}: expected LOW,HIGH (two finite numbers)")
-    if values[0] >= values[1]:
-        raise UsageError(f"--window {text!r}: LOW must be less than HIGH")
-    return values[0], values[1]
+    return as_usage(validation.parse_window, text, name="--window")
 
 
 def _number(text: str, flag: str, *, minimum: float | None = None, strict: bool = False) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise UsageError(f"{flag} {text!r}: expected a number") from None
-    if not math.isfinite(value):
-        raise UsageError(f"{flag} {text!r}: expected a finite number")
-    if minimum is not None and (value <= minimum if strict else value < minimum):
-        raise UsageError(f"{flag} {text!r}: must be {'>' if strict else '>='} {minimum:g}")
-    return value
+    return as_usage(validation.parse_number, text, name=flag, minimum=minimum, strict=strict)
 
 
 def _integer(text: str, flag: str, *, minimum: int) -> int:
-    try:
-        value = int(str(text).strip())
-    except ValueError:
-        raise UsageError(f"{flag} {text!r}: expected a whole number") from None
-    if value < minimum:
-        raise UsageError(f"{flag} {text!r}: must be >= {minimum}")
-    return value
+    return as_usage(validation.parse_whole, text, name=flag, minimum=minimum)
 
 
 def result_prefix(out: str) -> str:
@@ -213,24 +194,15 @@ def parse_settings(args: argparse.Namespace) -> Settings:
         params["edge_contrast"] = _number(args.edge_contrast, "--edge-contrast", minimum=0.0, strict=True)
     if args.outline_averaging is not None:
         params["outline_averaging"] = _number(args.outline_averaging, "--outline-averaging", minimum=0.0)
-    detail = _integer(args.detail, "--detail", minimum=1)
-    if detail not in (1, 2, 4):
-        raise UsageError(f"--detail {args.detail!r}: must be 1, 2 or 4")
-    nodes = str(args.nodes).strip().lower()
-    if nodes not in ("lattice", "scattered"):
-        raise UsageError(f"--nodes {args.nodes!r}: must be lattice or scattered")
+    detail = as_usage(validation.check_detail, _integer(args.detail, "--detail", minimum=1), name="--detail")
+    nodes = as_usage(validation.check_nodes, str(args.nodes).strip().lower(), name="--nodes")
     coarse = None
-    if nodes == "scattered" and str(args.coarse).strip().lower() not in ("auto", "1"):
-        raise UsageError(f"--coarse {args.coarse!r}: the coarse start is for lattice nodes (use --coarse 1)")
     if str(args.coarse).strip().lower() != "auto":
-        coarse = _integer(args.coarse, "--coarse", minimum=1)
-        if coarse not in (1, 2, 4, 8):
-            raise UsageError(f"--coarse {args.coarse!r}: must be auto, 1, 2, 4 or 8")
+        coarse = as_usage(validation.check_coarse, _integer(args.coarse, "--coarse", minimum=1), nodes=nodes,
+                        name="--coarse", automatic="auto")
     max_steps = None if args.max_steps is None else _integer(args.max_steps, "--max-steps", minimum=1)
     slice_index = None if args.slice is None else _integer(args.slice, "--slice", minimum=0)
-    label = str(args.label)
-    if not label.strip() or "\t" in label or "\n" in label:
-        raise UsageError("--label: expected a non-empty one-line name without tabs")
+    label = as_usage(validation.check_label_name, args.label, name="--label")
     if not args.out:
         raise UsageError("--out: required (DIR/NAME for the result files, or FILE.png)")
     png = str(args.out).lower().endswith(".png")

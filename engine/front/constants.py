@@ -16,9 +16,9 @@ REINIT_DRIFT = 0.05
 REINIT_EVERY = 10
 #: Rebuild and reinitialise between band rebuilds once that percentile has
 #: grown by more than this since the last rebuild (checked every
-#: STATISTICS_EVERY steps): a small structure grown from a smaller seed never
-#: needs a rebuild, and inside it φ flattens (|∇φ| 0.03–0.12 next to the
-#: front of a 3 px disk grown from 1.5 px) where growth lags at the centre.
+#: STATISTICS_EVERY steps): a small structure grown from a smaller seed may
+#: never reach the band's edge, and φ inside it flattens where growth lags
+#: at the centre, so only this check restores the distance there.
 FLAT_DRIFT = 0.25
 #: Outside pixels this close to the front (plus two smoothing scales) are
 #: partial-volume rim and do not count toward the local outside mean.

@@ -346,9 +346,9 @@ class Evolution:
                 self._layer_drift(self._phi) > self._rebuild_drift + REINIT_DRIFT):
             # φ next to the outline is no longer a distance: its speeds were read at
             # the wrong closest points, and the resting place may be a false one (a
-            # 3 px disk grown from a flood rested at 86 % of its area, 95 % once
-            # reinitialised); reinitialise and watch the outline again (once: where φ
-            # cannot stay a distance, as in a strip two nodes wide, the next rest counts)
+            # small structure rests short of its boundary); reinitialise and watch the
+            # outline again (once: where φ cannot stay a distance, as in a strip two
+            # nodes wide, the next rest counts)
             self._rest_reinitialised = True
             try:
                 self.rebuild(reinitialise=True)

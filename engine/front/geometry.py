@@ -13,8 +13,7 @@ def grid_crossing_points(values: NDArray[np.floating], step: NDArray[np.floating
     """:func:`engine.nodes.lattice_band.crossing_points` of values on a whole pixel grid (shape = the image's), without a lookup.
 
     The same points in the same order (row-major per axis), from slices of
-    the grid: a lookup of every pixel's neighbours cost 15 s on a
-    120 × 512 × 512 volume.
+    the grid, so a large volume needs no lookup of every pixel's neighbours.
     """
     v = np.asarray(values, dtype=float)
     out = []

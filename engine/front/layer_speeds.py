@@ -85,8 +85,8 @@ class LayerSpeeds:
         The region and window models scale their smoothness by min(1, ρ /
         ((d − 1)·SMALL_STRUCTURE)), ρ a part's mean radius (mm): curvature
         motion holds a resting front where the image speed equals a·κ, an
-        inward shift of about a·κ / (the speed's slope); for a disk of radius
-        3 px at smoothness 1 that left 56 % of its area. κ sums d − 1
+        inward shift of about a·κ / (the speed's slope), a large part of a
+        small structure's radius at full smoothness. κ sums d − 1
         principal curvatures, hence the (d − 1): a ball and a disk of the same
         radius shift alike. Each part of the front (:meth:`_part_scales`) has
         its own scale; this is the smallest at the last step (before the first

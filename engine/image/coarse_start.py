@@ -31,7 +31,7 @@ MIN_COARSE_SIDE = {2: 96, 3: 48}
 #: Smallest radius of the structure's largest inscribed disk, in blocks, for a
 #: coarse front: its band stencils reach about four coarse pixels, and a
 #: structure two blocks wide leaks through the blocks it shares with its
-#: surroundings (a 256² spleen at 8 × 8 blocks grew to 14 times its area).
+#: surroundings.
 MIN_COARSE_SEED = 4.0
 #: The coarse front only has to come within a fraction of a block of the
 #: boundary: it counts as converged at this many times the fine front's
@@ -44,8 +44,8 @@ def resolvable_factor(inside: NDArray[np.bool_], spacing: NDArray[np.floating], 
     """The largest block size up to ``requested`` that the image and the structure ``inside`` can hold.
 
     The block-averaged image must keep MIN_COARSE_SIDE pixels on its
-    shortest side (a 256² image allows blocks of 2: on a 64² block mean the
-    brain of the head sample crept along the 2 px layer of fluid around it),
+    shortest side (a 256² image allows blocks of 2: on coarser block means a
+    thin layer around a structure disappears and the front creeps along it),
     and the radius of the largest disk (ball) inside ``inside``, in pixels
     along the coarsest axis (exact Euclidean distance transform, Maurer, Qi
     & Raghavan, IEEE Trans. PAMI 25(2) (2003) 265-270, as scipy implements

@@ -30,8 +30,8 @@ class ImageFeatures:
 
     The smoothed image is made at once; the edge map g, its gradient and the
     automatic edge contrast K on first use (only the edge model and a region
-    model with an edge weight read them: on a 200 × 512 × 512 volume they
-    were most of a front's set-up time and memory).
+    model with an edge weight read them; on a large volume they would be
+    most of a front's set-up time and memory).
     """
 
     image: NDArray[np.floating]

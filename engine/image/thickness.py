@@ -4,7 +4,7 @@ Curvature motion holds a resting front where the image speed equals a·κ. At
 the end of a strip of half-width w the outline's curvature is 1/w (2/w for a
 tube in 3-D), so with a fixed smoothness a a strip narrower than about 2a
 cannot be held: its tip retreats wherever partial volume weakens the image's
-pull (a 2 px strip at 25° lost its last 8 px). Scaling the smoothness by the
+pull. Scaling the smoothness by the
 local half-width, as the small-structure rule scales it by a structure's
 mean radius, keeps the curvature force at a strip's tip the same whatever
 its width.

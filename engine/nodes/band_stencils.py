@@ -250,7 +250,7 @@ def curvature_damping(stencil: "BandStencil", step: NDArray[np.floating], *, saf
     for n in directions:
         # curvature motion of a front with normal n applies the trace of the Hessian over the
         # tangent plane, tr((I − nnᵀ) H): one tangent in 2-D, the sum over two in 3-D (taking
-        # the tangents one at a time underestimated the 3-D spectral radius, 29 against 41)
+        # the tangents one at a time underestimates the 3-D spectral radius)
         proj = np.eye(dim) - np.outer(n, n)
         sym = sum(proj[i, j] * symbol[f"d{min(i, j)}{max(i, j)}"] for i in range(dim) for j in range(dim))
         tangential.append(sym)

@@ -28,6 +28,7 @@ from engine.front.geometry import stroke_distance
 from engine.segmenter import EXACT_WITHIN, Segmenter
 from engine.session.outline import Outline
 from engine.session.settings import FrontSettings
+from engine.validation import check_stroke
 
 __all__ = ["FrontCache", "stroke_mask", "stroke_points_mm", "grow_from_seeds", "start_from_seeds", "start_from_outline",
            "start_from_stroke", "window_for_mask"]
@@ -95,7 +96,7 @@ def start_from_outline(image: NDArray[np.floating], outline: Outline, spacing: S
         return ndimage.map_coordinates(values, (points_mm / sp).T, order=1, mode="nearest")
 
     # the stored φ is the committed front's signed distance: only the nodes near its zero set
-    # need Newton closest points (all of them were most of a carry's time)
+    # need Newton closest points (for all nodes they would be most of a carry's time)
     return Front.from_function(phi, image.shape, image=image, spacing=sp, signed_distance=True,
                                exact_within=EXACT_WITHIN * float(np.max(sp)), **kwargs)
 
@@ -104,7 +105,7 @@ def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floatin
                       spacing: Sequence[float], settings: FrontSettings) -> Front:
     """A front whose inside is the area a brush stroke sweeps (a disk around every point of its polyline)."""
     sp = np.asarray(spacing, dtype=float)
-    pts_mm = stroke_points_mm(points_px, sp)
+    pts_mm = stroke_points_mm(points_px, sp, radius_mm)
     kwargs = _front_kwargs(settings)
     if settings.model == "window" and "window" not in settings.front_params:
         kwargs["window"] = window_for_mask(image, sp, stroke_mask(image.shape, points_px, radius_mm, sp))
@@ -137,11 +138,10 @@ def restore_front(image: NDArray[np.floating], snapshot: FrontSnapshot, spacing:
     return front
 
 
-def stroke_points_mm(points_px: NDArray[np.floating], spacing: NDArray[np.floating]) -> NDArray[np.floating]:
-    """A stroke's polyline in mm (checked: finite pixel coordinates, at least one point)."""
-    pts = np.asarray(points_px, dtype=float).reshape(-1, 2)
-    if len(pts) == 0 or not np.all(np.isfinite(pts)):
-        raise ValueError("stroke: expected one or more finite (row, col) points")
+def stroke_points_mm(points_px: NDArray[np.floating], spacing: NDArray[np.floating], radius_mm: float
+                     ) -> NDArray[np.floating]:
+    """A stroke's polyline in mm (checked by :func:`engine.validation.check_stroke`)."""
+    pts, _ = check_stroke(points_px, radius_mm)
     return pts * np.asarray(spacing, dtype=float)
 
 
@@ -152,7 +152,7 @@ def stroke_mask(shape: tuple[int, int], points_px: NDArray[np.floating], radius_
     Only the pixels in the stroke's bounding box are measured.
     """
     sp = np.asarray(spacing, dtype=float)
-    pts_mm = stroke_points_mm(points_px, sp)
+    pts_mm = stroke_points_mm(points_px, sp, radius_mm)
     reach = np.ceil(radius_mm / sp).astype(int) + 1
     lo = np.maximum(np.floor(pts_mm.min(axis=0) / sp).astype(int) - reach, 0)
     hi = np.minimum(np.ceil(pts_mm.max(axis=0) / sp).astype(int) + reach + 1, np.array(shape))

@@ -38,12 +38,18 @@ from engine.session import fronts
 from engine.session.outline import Outline, frozen_array, outline_from_front, shown_curvature
 from engine.session.settings import FrontSettings
 from engine.session.state import Command, Frame, Label, LiveState, SessionState, UndoStack
+from engine.validation import (
+    check_colour,
+    check_label_name,
+    check_margin,
+    check_seed,
+    check_slice,
+    check_spacing,
+    check_steps,
+    check_stroke,
+)
 
 __all__ = ["Session", "SessionBusy"]
-
-#: Longest name of a label (characters).
-MAX_NAME = 64
-
 
 class SessionBusy(RuntimeError):
     """A front is evolving: pause it before changing anything else."""
@@ -120,11 +126,11 @@ class Session:
             raise ValueError(f"image: expected a 2-D slice or a 3-D volume of at least 4 x 4 pixels, got {arr.shape}")
         if arr.size == 0 or not np.all(np.isfinite(arr)):
             raise ValueError("image: holds NaN or infinite values")
-        sp = [1.0] * (np.ndim(image)) if spacing is None else [float(s) for s in spacing]
+        # spacing: (row, col) of a slice or (slice, row, col), in mm; a slice's alone puts slices 1 mm apart
+        given = 0 if spacing is None else int(np.size(spacing))
+        sp = [float(s) for s in check_spacing(spacing, given if given in (2, 3) else np.ndim(image))]
         if len(sp) == 2:
             sp = [1.0] + sp
-        if len(sp) != 3 or not all(np.isfinite(s) and s > 0 for s in sp):
-            raise ValueError(f"spacing: expected positive millimetres per axis, got {spacing!r}")
         affine = np.diag(sp + [1.0])
         vol = Volume(np.ascontiguousarray(arr), tuple(sp), affine, "OT", (), "array", {}, kind="raster")
         return cls(vol, operator=operator)
@@ -219,11 +225,7 @@ class Session:
 
     # --------------------------------------------------------------- commands
     def _check_slice(self, slice_index: int) -> int:
-        if isinstance(slice_index, bool) or not isinstance(slice_index, (int, np.integer)):
-            raise ValueError(f"slice: expected a whole number, got {slice_index!r}")
-        if not 0 <= int(slice_index) < self.slices:
-            raise ValueError(f"slice: {slice_index} is outside 0..{self.slices - 1}")
-        return int(slice_index)
+        return check_slice(slice_index, self.slices)
 
     def _idle(self) -> None:
         if self._running:
@@ -262,17 +264,11 @@ class Session:
             used = {lab.colour.upper() for lab in state.labels}
             if colour is None:
                 colour = next((c for c in OKABE_ITO if c.upper() not in used), OKABE_ITO[(index - 1) % len(OKABE_ITO)])
-            label = Label(index, self._check_name(name or f"Label {index}"), _check_colour(colour))
+            label = Label(index, check_label_name(name or f"Label {index}"), check_colour(colour))
             after = replace(state, labels=state.labels + (label,)).with_settings(index, self._default_settings)
             self._push(f"Add label {label.name}", "label_add", after, label=index,
                        details={"name": label.name, "colour": label.colour})
             return label
-
-    def _check_name(self, name: str) -> str:
-        text = str(name).strip()
-        if not text or any(c in text for c in "\t\n\r") or len(text) > MAX_NAME:
-            raise ValueError(f"name: expected one line of 1 to {MAX_NAME} characters without tabs, got {name!r}")
-        return text
 
     def _replace_label(self, index: int, text: str, action: str, details: Mapping[str, Any], **changes: Any) -> None:
         with self._lock:
@@ -288,11 +284,11 @@ class Session:
 
     def rename_label(self, index: int, name: str) -> None:
         old = self.label(index).name
-        new = self._check_name(name)
+        new = check_label_name(name)
         self._replace_label(index, f"Rename {old} to {new}", "label_rename", {"from": old, "to": new}, name=new)
 
     def set_label_colour(self, index: int, colour: str) -> None:
-        c = _check_colour(colour)
+        c = check_colour(colour)
         self._replace_label(index, f"Colour {c}", "label_colour", {"colour": c}, colour=c)
 
     def set_label_locked(self, index: int, locked: bool) -> None:
@@ -397,7 +393,7 @@ class Session:
             self._idle()
             self._writable(label)
             k = self._check_slice(slice)
-            seed = _check_seed(row, col, radius_px, self.volume.shape[1:])
+            seed = check_seed(row, col, radius_px, self.volume.shape[1:])
             self._settle_live(label, k)
             state = self._stack.state
             live = state.live
@@ -451,8 +447,8 @@ class Session:
         ``frame_interval`` seconds (never more often on average) and once at the end. The whole run is one
         command on the undo stack. Returns the last frame.
         """
-        if steps is not None and (isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) or steps < 1):
-            raise ValueError(f"steps: expected a whole number >= 1 or None, got {steps!r}")
+        if steps is not None:
+            check_steps(steps)
         stop = _cancelled(cancel)
         with self._lock:
             self._idle()
@@ -619,7 +615,7 @@ class Session:
         With no front or outline of the label on the slice, the stroke itself
         starts a front.
         """
-        pts, r = _check_stroke(points_px, radius_mm)
+        pts, r = check_stroke(points_px, radius_mm)
         with self._lock:
             self._idle()
             self._writable(label)
@@ -640,13 +636,13 @@ class Session:
 
     def trim(self, points_px: ArrayLike, radius_mm: float, *, label: int, slice: int) -> None:  # noqa: A002
         """Cut the area a brush stroke sweeps out of the outline."""
-        pts, r = _check_stroke(points_px, radius_mm)
+        pts, r = check_stroke(points_px, radius_mm)
         radius_px = r / min(self.spacing)
         self._edit(label, slice, "trim", "Trim", lambda f: f.trim((pts, radius_px)), _stroke_details(pts, r))
 
     def pin(self, points_px: ArrayLike, radius_mm: float, *, label: int, slice: int) -> None:  # noqa: A002
         """Freeze the front where a brush stroke sweeps (the front cannot move there)."""
-        pts, r = _check_stroke(points_px, radius_mm)
+        pts, r = check_stroke(points_px, radius_mm)
         area = fronts.stroke_mask(self.volume.shape[1:], pts, r, self.spacing)
         self._edit(label, slice, "pin", "Pin", lambda f: f.pin(area), _stroke_details(pts, r))
 
@@ -656,10 +652,7 @@ class Session:
 
     def margin(self, mm: float, *, label: int, slice: int) -> None:  # noqa: A002
         """Grow (``mm`` > 0) or shrink (``mm`` < 0) the outline by a margin."""
-        if isinstance(mm, bool) or not np.isfinite(mm) or mm == 0:
-            raise ValueError(f"mm: expected a non-zero finite margin, got {mm!r}")
-        if abs(mm) > 0.25 * max(self.volume.shape[1:]) * max(self.spacing):
-            raise ValueError(f"mm: a margin of {mm} mm is larger than a quarter of the slice")
+        mm = check_margin(mm, limit_mm=0.25 * max(self.volume.shape[1:]) * max(self.spacing))
         self._edit(label, slice, "margin", f"Margin {mm:+g} mm", lambda f: f.margin(float(mm)), {"mm": float(mm)})
 
     # ----------------------------------------------------- commit and carry
@@ -833,33 +826,6 @@ def _changes(old: FrontSettings, new: FrontSettings) -> dict[str, Any]:
     out.update({k: None for k in a["params"] if k not in b["params"]})
     out.update({k: b[k] for k in ("model", "detail", "max_steps") if a[k] != b[k]})
     return out
-
-
-def _check_colour(colour: str) -> str:
-    text = str(colour).strip()
-    if len(text) != 7 or not text.startswith("#") or any(c not in "0123456789abcdefABCDEF" for c in text[1:]):
-        raise ValueError(f"colour: expected #RRGGBB, got {colour!r}")
-    return text.upper()
-
-
-def _check_seed(row: float, col: float, radius: float, shape: tuple[int, ...]) -> tuple[float, float, float]:
-    values = [float(row), float(col), float(radius)]
-    if not all(np.isfinite(values)):
-        raise ValueError("seed: row, col and radius must be finite numbers")
-    if values[2] <= 0:
-        raise ValueError(f"seed: radius must be > 0 pixels, got {radius!r}")
-    if not (-0.5 <= values[0] <= shape[0] - 0.5 and -0.5 <= values[1] <= shape[1] - 0.5):
-        raise ValueError(f"seed: centre ({row:g}, {col:g}) lies outside the slice ({shape[0]} x {shape[1]} pixels)")
-    return values[0], values[1], values[2]
-
-
-def _check_stroke(points_px: ArrayLike, radius_mm: float) -> tuple[NDArray[np.floating], float]:
-    pts = np.asarray(points_px, dtype=float).reshape(-1, 2)
-    if len(pts) == 0 or not np.all(np.isfinite(pts)):
-        raise ValueError("stroke: expected one or more finite (row, col) points")
-    if isinstance(radius_mm, bool) or not np.isfinite(radius_mm) or radius_mm <= 0:
-        raise ValueError(f"radius_mm: expected a positive brush radius in mm, got {radius_mm!r}")
-    return pts, float(radius_mm)
 
 
 def _stroke_details(points: NDArray[np.floating], radius_mm: float) -> dict[str, Any]:

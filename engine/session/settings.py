@@ -7,11 +7,11 @@ from dataclasses import dataclass, fields
 from typing import Any
 
 from engine.front import FrontParams
+from engine.segmenter import DEFAULT_MAX_STEPS
+from engine.validation import check_detail, check_names, check_steps
 
 __all__ = ["FrontSettings", "DEFAULT_MAX_STEPS"]
 
-#: Step limit of one front unless set (the same as :func:`engine.segment.segment`'s).
-DEFAULT_MAX_STEPS = 20000
 #: Settings that are not front parameters.
 _RUN_KEYS = ("model", "detail", "max_steps")
 #: Front parameters a user sets (the rest are fixed by the engine or derived).
@@ -38,16 +38,12 @@ class FrontSettings:
 
     def __post_init__(self) -> None:
         FrontParams(model=self.model, **dict(self.params))  # validates model and parameters
-        if self.detail not in (1, 2, 4):
-            raise ValueError(f"detail must be 1, 2 or 4, got {self.detail!r}")
-        if isinstance(self.max_steps, bool) or not isinstance(self.max_steps, int) or self.max_steps < 1:
-            raise ValueError(f"max_steps must be a whole number >= 1, got {self.max_steps!r}")
+        check_detail(self.detail)
+        check_steps(self.max_steps, name="max_steps")
 
     def updated(self, **changes: Any) -> "FrontSettings":
         """A copy with ``changes``; ``None`` for a parameter returns it to its default."""
-        unknown = set(changes) - set(_RUN_KEYS) - set(_PARAM_KEYS)
-        if unknown:
-            raise ValueError(f"unknown front setting(s): {', '.join(sorted(unknown))}")
+        check_names(changes, set(_RUN_KEYS) | set(_PARAM_KEYS), "a front")
         params = dict(self.params)
         for key, value in changes.items():
             if key in _PARAM_KEYS:

@@ -39,7 +39,12 @@ def validate_seeds(seeds: Sequence[Sequence[float]], shape: tuple[int, ...]) -> 
     centres = arr[:, :dim]
     if np.any(centres < -0.5) or np.any(centres > np.array(shape) - 0.5):
         bad = int(np.flatnonzero(np.any((centres < -0.5) | (centres > np.array(shape) - 0.5), axis=1))[0])
-        raise ValueError(f"seeds: seed {bad} at {tuple(centres[bad])} lies outside the image of shape {shape}")
+        axes = ("slice", "row", "col")[3 - dim:]
+        where = ", ".join(f"{axis} {value:g}" for axis, value in zip(axes, centres[bad]))
+        extent = " x ".join(str(int(n)) for n in shape)
+        ranges = ", ".join(f"{axis}s 0..{int(n) - 1}" for axis, n in zip(axes, shape))
+        unit = "voxels" if dim == 3 else "pixels"
+        raise ValueError(f"seeds: seed {bad}: centre ({where}) lies outside the image ({extent} {unit}: {ranges})")
     return arr
 
 

@@ -5,22 +5,19 @@ because their useful range depends on the image:
 
 - ``outline_averaging`` (σ along the outline, mm): the average is k steps of
   a random walk with k ≈ (σ / node spacing)², repeated at every step of the
-  front (σ = 10⁶ mm never finished its first step). Beyond the radius of the
-  largest circle the image holds (half its smaller side) the average spans
-  the whole of any round outline in it — a circle of radius R keeps
-  exp(−m²σ²/(2R²)) of its mode m, under 0.61 of mode 1 at σ = R — so that
-  is the limit.
+  front, so its cost grows with σ². Beyond the radius of the largest circle
+  the image holds (half its smaller side) the average spans the whole of any
+  round outline in it — a circle of radius R keeps exp(−m²σ²/(2R²)) of its
+  mode m, under 0.61 of mode 1 at σ = R — so that is the limit.
 - ``edge_sigma`` (σ of the edge map's Gaussian, mm) and ``local_radius``
   (σ of the region model's local means, mm): beyond half the image's smaller
-  side the Gaussian spreads over the whole image; the filter's cost grows
-  with σ (σ = 10⁶ mm ran for minutes).
+  side the Gaussian spreads over the whole image, while the filter's cost
+  keeps growing with σ.
 - pixel spacing: the lattice steps by the finest axis in time while its band
   spans ``band_width`` steps of the coarsest, so steps grow with the ratio
-  of the two. At a ratio of 3 a 96² disk converged in 421 steps (6 s, 9 ×
-  the square-pixel time); at 4 and 6 it had not converged after 3 000 steps
-  (convergence is measured in steps of the finest axis, along which the
-  outline keeps stepping back and forth), at 10 it ran 300 s. Ratios above
-  :data:`MAX_ANISOTROPY` are refused.
+  of the two, and convergence, measured in steps of the finest axis, is
+  reached ever later (the outline keeps stepping back and forth along it).
+  Ratios above :data:`MAX_ANISOTROPY` are refused.
 
 References
 ----------
@@ -36,7 +33,8 @@ import numpy as np
 
 __all__ = ["MAX_ANISOTROPY", "SettingLimitError", "largest_sigma_mm", "check_limits"]
 
-#: Largest ratio of the coarsest to the finest pixel spacing the front handles.
+#: Largest ratio of the coarsest to the finest pixel spacing the front handles: beyond it a
+#: front takes minutes and does not come to rest.
 MAX_ANISOTROPY = 3.0
 
 
