@@ -105,6 +105,9 @@ LINE_PIXELS = 9
 LINE_DIRECTIONS = 8
 #: Side of the neighbourhood (pixels) in which the segments' test must hold on less than half the pixels.
 THIN_WINDOW = 7
+#: Share of a side's contrast that the segments' noise at MARGIN deviations must stay within for them to count
+#: (the bar itself lies three quarters of the way from the outside: 4.5 of their deviations above it).
+LINE_SHARE = 0.5
 #: Region speed the unsmoothed pixel itself needs for a segment's mean to count (a quarter of the way from the
 #: outside to the inside): a gap of background between two parts of the structure is a line of outside
 #: pixels, whose segments across the gap still average well inside.
@@ -381,7 +384,7 @@ class RegionGrowth:
                 contrast = np.where(distinct, c_in - c_out, 1.0)
                 # only against a side whose contrast the segments' noise cannot mimic (a weak edge
                 # at a tenth of the contrast is left to the tests above)
-                clear = 0.25 * np.abs(c_in - c_out) >= MARGIN * self.noise / np.sqrt(LINE_PIXELS)
+                clear = LINE_SHARE * np.abs(c_in - c_out) >= MARGIN * self.noise / np.sqrt(LINE_PIXELS)
                 along &= ~distinct | (clear & ((2.0 * line - c_in - c_out) / contrast >= CLEAR_INSIDE)
                                       & ((2.0 * raw - c_in - c_out) / contrast >= OWN_PIXEL))
             decided |= distinct
@@ -431,12 +434,12 @@ class RegionGrowth:
         direction: there the mean keeps its full contrast with the noise
         divided by √LINE_PIXELS (oriented line averages, the line detectors
         of vessel enhancement; Ricci & Perfetti 2007). None where the pass
-        does not smooth, in 3-D, or where that noise still spans more than a
-        quarter of the contrast at MARGIN deviations.
+        does not smooth, in 3-D, or where that noise at MARGIN deviations still
+        spans more than LINE_SHARE of the contrast.
         """
         if self.image.ndim != 2 or smoothing <= 0 or self._first or not np.allclose(self.spacing, self.spacing[0]):
             return None
-        if MARGIN * self.noise / np.sqrt(LINE_PIXELS) > 0.25 * self.contrast:
+        if MARGIN * self.noise / np.sqrt(LINE_PIXELS) > LINE_SHARE * self.contrast:
             return None
         half = LINE_PIXELS // 2
         wide = tuple(slice(max(s.start - half, 0), min(s.stop + half, n)) for s, n in zip(box, self.image.shape))
