@@ -73,12 +73,19 @@ def test_thin_strip_fills_at_the_default_detail(width: float, angle: float) -> N
     assert result.params["detail"] == 2 and result.params["detail_requested"] == 1
 
 
-@pytest.mark.xfail(strict=True, reason="at SNR 5 the flood stops where the strip leaves the disk and the "
-                   "front at one node per pixel rests a few pixels into the strip, reported converged "
-                   "(a 2 px strip: Dice 0.76, the tip at column 44 of 230)")
 def test_a_noisy_thin_strip_fills_or_is_not_called_converged() -> None:
-    # The strip of the test above with noise 0.2 of the contrast (SNR 5).
+    # The strip of the test above with noise 0.2 of the contrast (SNR 5): the smoothing the noise
+    # calls for takes the strip's middle below the flood's bar; before segments along the strip
+    # counted, the front rested a few pixels into it and reported convergence (Dice 0.76).
     case = gp.strip(2.0, noise=0.2)
+    result = segment(case.image, [case.seed], spacing=case.spacing, max_steps=3000)
+    assert not result.converged or _far_end_filled(result.mask, case)
+
+
+@pytest.mark.xfail(strict=True, reason="at SNR 5 a 2 px strip at 25° (another noise draw) still stops a "
+                   "few pixels in, at detail 2, reported converged (Dice 0.79, the tip at column 59 of 211)")
+def test_a_noisy_thin_strip_at_an_angle_fills_or_is_not_called_converged() -> None:
+    case = gp.strip(2.0, angle=25.0, noise=0.2, seed=2)
     result = segment(case.image, [case.seed], spacing=case.spacing, max_steps=3000)
     assert not result.converged or _far_end_filled(result.mask, case)
 
