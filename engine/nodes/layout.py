@@ -151,7 +151,11 @@ class NodeLayout(Protocol):
     def pixel_grid_values(self, band: Band, phi: NDArray[np.floating], grid: NDArray[np.int64],
                           base: NDArray[np.floating], spacing: NDArray[np.floating]
                           ) -> tuple[NDArray[np.floating], NDArray[np.floating], NDArray[np.floating]]:
-        """φ at every pixel centre ``grid`` (``base`` beyond the band), their positions (mm) and pixel coordinates."""
+        """φ at every pixel centre ``grid`` (``base`` beyond the band), their positions (mm) and pixel coordinates.
+
+        ``grid`` holds every pixel of a box of the image in row-major order
+        (the whole image, or the box around a brush stroke).
+        """
 
     def surface_grid(self, band: Band, phi: NDArray[np.floating],
                      far: Callable[[NDArray[np.int64]], NDArray[np.floating]]

@@ -211,7 +211,10 @@ class ScatteredLayout:
     def pixel_grid_values(self, band: Band, phi: NDArray[np.floating], grid: NDArray[np.int64],
                           base: NDArray[np.floating], spacing: NDArray[np.floating]
                           ) -> tuple[NDArray[np.floating], NDArray[np.floating], NDArray[np.floating]]:
-        base[np.ravel_multi_index(band.pixel_index, self.node_set.shape)] = self.pixel_values(band, phi)
+        corner, size = grid[0], grid[-1] - grid[0] + 1  # the box's first pixel and extent
+        pixels = np.stack(band.pixel_index, axis=1)
+        in_box = np.all((pixels >= corner) & (pixels < corner + size), axis=1)
+        base[np.ravel_multi_index(tuple((pixels[in_box] - corner).T), tuple(size))] = self.pixel_values(band, phi)[in_box]
         return base, grid * spacing, grid.astype(float)
 
     def surface_grid(self, band: Band, phi: NDArray[np.floating],
