@@ -1,4 +1,4 @@
-"""Tests for engine.nodes.node_set (edge-adaptive spacing, scattered band operators).
+"""Tests for the scattered node set: edge-adaptive spacing (engine.nodes.edge_spacing), band operators (engine.nodes.node_set).
 
 External references used here:
 - Franke's test function and its derivatives: R. Franke, "Scattered data
@@ -30,12 +30,10 @@ from scipy.interpolate import RBFInterpolator
 
 from engine.nodes.band_stencils import band_stencil
 from engine.image.features import compute_features
-from engine.nodes.node_set import (
-    ScatteredNodeSet,
-    edge_adaptive_spacing,
-    operator_labels,
-)
-from engine.nodes.scattered_nodes import spacing_quality
+from engine.nodes.edge_spacing import edge_adaptive_spacing
+from engine.nodes.node_set import ScatteredNodeSet
+from engine.nodes.scattered_weights import operator_labels
+from engine.nodes.spacing_quality import spacing_quality
 from engine.numerics.time_stepping import rkl2, rkl2_stages
 
 CENTRE = np.array([0.5, 0.5])

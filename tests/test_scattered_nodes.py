@@ -18,13 +18,8 @@ import numpy as np
 import pytest
 from scipy.spatial import cKDTree
 
-from engine.nodes.scattered_nodes import (
-    DENSITY_2D,
-    DENSITY_3D,
-    mask_region,
-    scattered_nodes,
-    spacing_quality,
-)
+from engine.nodes.scattered_nodes import DENSITY_2D, DENSITY_3D, mask_region, scattered_nodes
+from engine.nodes.spacing_quality import spacing_quality
 from engine.numerics.neighbours import knn_stencils
 
 HEX_AREA_PER_NODE = math.sqrt(3.0) / 2.0  # times r^2 (common geometry, from memory)

@@ -16,7 +16,7 @@ from engine.front.convergence import OutlineMotion
 from engine.front.core import Front
 from engine.front.speeds import INTEGRATORS, MODELS, FrontParams
 from engine.front.state import FrontSnapshot, FrontVanished
-from engine.nodes.layout import NODE_LAYOUTS
+from engine.nodes.layout_options import NODE_LAYOUTS
 
 __all__ = ["Front", "FrontParams", "FrontSnapshot", "FrontVanished", "NODE_LAYOUTS", "MODELS", "INTEGRATORS",
            "OutlineMotion"]

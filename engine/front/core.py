@@ -49,8 +49,10 @@ from engine.image.features import ImageFeatures, compute_features
 from engine.image.statistics import estimate_window
 from engine.nodes.band_stencils import BandStencil
 from engine.nodes.lattice import LatticeLookup
-from engine.nodes.layout import Band, NodeLayout, check_layout_options, make_layout, node_options
+from engine.nodes.layout import Band, NodeLayout
+from engine.nodes.layout_options import check_layout_options, make_layout
 from engine.nodes.node_set import ScatteredNodeSet
+from engine.nodes.scattered_layout import node_options
 from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 
 

@@ -48,27 +48,45 @@ class Edits:
     def _apply_to_pixels(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating],
                                                   NDArray[np.floating]], NDArray[np.floating]],
                          near: tuple[NDArray[np.floating], float] | None = None) -> None:
-        """Re-evaluate the edit at every pixel centre it can change (with ``near``: those in the stroke's box)."""
+        """Re-evaluate the edit at every pixel centre it can change (with ``near``: those in the stroke's box).
+
+        Outside the stroke's box a stroke changes no pixel's φ sign, so there a
+        pixel beyond the band keeps its side (φ there is ±far by its side). A
+        band pixel keeps it too on a lattice, where its inside bit is φ's sign;
+        on scattered nodes a barrier holds band pixels outside against φ, so
+        those are read again as the whole image would read them.
+        """
+        sp = self.features.spacing
         box = tuple(slice(0, n) for n in self.shape)
-        if near is not None and self.layout.name == "lattice":
+        if near is not None:
             points_mm, radius_mm = near
-            sp = self.features.spacing
             lo = np.floor((points_mm.min(axis=0) - radius_mm) / sp).astype(int) - 1
             hi = np.ceil((points_mm.max(axis=0) + radius_mm) / sp).astype(int) + 2
             box = tuple(slice(max(a, 0), min(b, n)) for a, b, n in zip(lo, hi, self.shape))
-            if any(b.stop <= b.start for b in box):
-                return  # the stroke lies outside the image
         corner = np.array([b.start for b in box])
-        size = tuple(b.stop - b.start for b in box)
-        grid = np.indices(size).reshape(len(size), -1).T + corner
-        part = self._inside[box]
-        base = np.where(part.reshape(-1), -1.0, 1.0) * FAR * self.band_half_width
-        values, mm, px = self.layout.pixel_grid_values(self._band, self._phi, grid, base, self.features.spacing)
-        new_part = (combine(values, mm, px) < 0).reshape(size)
-        if np.array_equal(new_part, part):
+        size = tuple(max(b.stop - b.start, 0) for b in box)
+        new_inside = None
+        if all(size):  # else the stroke lies outside the image
+            grid = np.indices(size).reshape(len(size), -1).T + corner
+            part = self._inside[box]
+            base = np.where(part.reshape(-1), -1.0, 1.0) * FAR * self.band_half_width
+            values, mm, px = self.layout.pixel_grid_values(self._band, self._phi, grid, base, sp)
+            new_part = (combine(values, mm, px) < 0).reshape(size)
+            if not np.array_equal(new_part, part):
+                new_inside = self._inside.copy()
+                new_inside[box] = new_part
+        if near is not None and self.layout.holds_barrier_on_pixels:
+            pixels = np.stack(self._band.pixel_index, axis=1)
+            beyond = ~np.all((pixels >= corner) & (pixels < corner + np.array(size)), axis=1)
+            if np.any(beyond):
+                pixels = pixels[beyond]
+                now = combine(self._pixel_band_values()[beyond], pixels * sp, pixels.astype(float)) < 0
+                at = tuple(pixels.T)
+                if not np.array_equal(now, (self._inside if new_inside is None else new_inside)[at]):
+                    new_inside = self._inside.copy() if new_inside is None else new_inside
+                    new_inside[at] = now
+        if new_inside is None:
             return
-        new_inside = self._inside.copy()
-        new_inside[box] = new_part
         self._inside = new_inside
         self._reset_sums()
 

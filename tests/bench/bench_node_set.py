@@ -28,8 +28,9 @@ except ImportError:  # run from a checkout without installing
 
 from engine.nodes.band_stencils import band_stencil
 from engine.image.features import compute_features
-from engine.nodes.node_set import ScatteredNodeSet, edge_adaptive_spacing
-from engine.nodes.scattered_nodes import spacing_quality
+from engine.nodes.edge_spacing import edge_adaptive_spacing
+from engine.nodes.node_set import ScatteredNodeSet
+from engine.nodes.spacing_quality import spacing_quality
 
 
 def timed(label: str, fn, repeats: int = 1):

@@ -26,7 +26,8 @@ try:
 except ImportError:  # run from a checkout without installing
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from engine.nodes.scattered_nodes import DENSITY_2D, DENSITY_3D, scattered_nodes, spacing_quality
+from engine.nodes.scattered_nodes import DENSITY_2D, DENSITY_3D, scattered_nodes
+from engine.nodes.spacing_quality import spacing_quality
 from engine.numerics.neighbours import knn_stencils
 
 
