@@ -150,7 +150,7 @@ def _encode_snapshot(snap: FrontSnapshot, arrays: _Arrays) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for f in fields(snap):
         value = getattr(snap, f.name)
-        if f.name == "inside":  # stored bit-packed, a slice's shape long
+        if f.name == "inside":  # stored bit-packed; the slice's shape unpacks it
             out["inside_bits"] = {"array": arrays.put("s", snap.inside_bits)}
         elif value is None:
             out[f.name] = None
