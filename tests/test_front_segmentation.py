@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import pickle
+
 import numpy as np
 import pytest
 from scipy import ndimage
@@ -162,6 +164,41 @@ def test_snapshot_restore_reproduces_stepping_bit_for_bit() -> None:
     assert front.steps == steps_a
     assert np.array_equal(front.phi, phi_a)
     assert snap.nbytes < 2_000_000
+
+
+def test_snapshot_is_the_frozen_state_and_survives_later_changes() -> None:
+    # The state is one value: snapshot() hands it out without a copy, nothing can write into
+    # it, and steps, strokes and pins build new states instead of changing it.
+    image = disk_image(noise=8.0, seed=5)
+    front = Front.from_seeds(image, [(48, 48, 5)], model="region")
+    front.step(5)
+    snap = front.snapshot()
+    assert front.snapshot() is snap
+    kept = {name: np.array(getattr(snap, name)) for name in ("indices", "phi", "phi_at_rebuild", "inside")}
+    for name in kept:
+        with pytest.raises(ValueError, match="read-only"):
+            getattr(snap, name).reshape(-1)[0] = 0
+    with pytest.raises(AttributeError):
+        snap.steps = 0  # type: ignore[misc]
+    front.step(10)
+    front.extend(([(48.0, 62.0)], 3.0))
+    pins = np.zeros(image.shape, dtype=bool)
+    pins[40:44, 40:44] = True
+    front.pin(pins)
+    assert front.snapshot() is not snap and front.steps == 15 and snap.steps == 5
+    for name, values in kept.items():
+        assert np.array_equal(getattr(snap, name), values), name
+    # a pickled state (inside image bit-packed) restores a new front to the same steps
+    copied = pickle.loads(pickle.dumps(snap))
+    assert np.array_equal(copied.inside, snap.inside) and copied.sums == snap.sums
+    assert len(pickle.dumps(snap)) < len(pickle.dumps(dict(vars(snap)))) - snap.inside.nbytes * 3 // 4
+    other = Front.from_seeds(image, [(30, 30, 4)], model="region")
+    other.restore(copied)
+    front.restore(snap)
+    assert front.snapshot() is snap
+    front.step(30)
+    other.step(30)
+    assert np.array_equal(front.phi, other.phi) and front.time == other.time
 
 
 @pytest.mark.slow

@@ -1,7 +1,7 @@
 """The level-set front: a function φ on a narrow band of nodes, evolved with RBF-FD.
 
 - ``core``: the :class:`Front` façade (constructors, settings, snapshots, stepping entry points)
-- ``state``: :class:`FrontSnapshot`, the whole state as one frozen value; :class:`FrontVanished`
+- ``state``: :class:`FrontState` (alias ``FrontSnapshot``), the whole state as one frozen value; :class:`FrontVanished`
 - ``band``: the band's first build, its layer next to the front, rebuilds
 - ``evolution``: one step (derivatives, front curvature, rates, time step, convergence)
 - ``layer_speeds``: speeds at the layer next to the front, smoothness per part
@@ -15,8 +15,8 @@
 from engine.front.convergence import OutlineMotion
 from engine.front.core import Front
 from engine.front.speeds import INTEGRATORS, MODELS, FrontParams
-from engine.front.state import FrontSnapshot, FrontVanished
+from engine.front.state import FrontSnapshot, FrontState, FrontVanished
 from engine.nodes.layout_options import NODE_LAYOUTS
 
-__all__ = ["Front", "FrontParams", "FrontSnapshot", "FrontVanished", "NODE_LAYOUTS", "MODELS", "INTEGRATORS",
-           "OutlineMotion"]
+__all__ = ["Front", "FrontParams", "FrontSnapshot", "FrontState", "FrontVanished", "NODE_LAYOUTS", "MODELS",
+           "INTEGRATORS", "OutlineMotion"]

@@ -38,15 +38,15 @@ class BandBuilding:
             pixel_values = _pixel_values(oracle, self.shape, sp)
         else:
             pixel_values = _boundary_pixel_values(oracle, inside, self.shape, sp)
-        self._inside = pixel_values < 0
+        self._swap(inside=pixel_values < 0)
         if not self._inside.any():
             raise ValueError("the initial front is empty: no pixel centre lies inside it")
         if estimate_window:
             region = self._inside if window_from is None else np.asarray(window_from, dtype=bool)
             if region.shape != self.shape or not region.any():
                 raise ValueError("window_from must be a non-empty boolean mask of the image's shape")
-            self.params = self.params.updated(window=estimate_window_from_mask(self.features.smoothed, region))
-        self._noise = robust_std(self.features.smoothed[self._inside])
+            self._swap(params=self.params.updated(window=estimate_window_from_mask(self.features.smoothed, region)))
+        self._swap(noise=robust_std(self.features.smoothed[self._inside]))
         self._reset_sums()
         starts = grid_crossing_points(pixel_values, sp)
         if len(starts) == 0:
@@ -117,7 +117,7 @@ class BandBuilding:
                 phi[todo] = np.where(approx[todo] < 0, -1.0, 1.0) * cp.distance
         keep = np.abs(phi) <= width
         self._install_band(nodes[keep], phi[keep])
-        self._rebuild_drift = self._layer_drift(self._phi)
+        self._swap(rebuild_drift=self._layer_drift(self._phi))
         self.timings["rebuild"] += _time.perf_counter() - t0
         self.timings["rebuilds"] += 1
 
@@ -159,8 +159,7 @@ class BandBuilding:
         band, phi = self.layout.build_band(keys, phi, self._front_layer, self.band_half_width)
         band.frozen, band.barrier = self._node_masks(band.pixels)
         self._band = band
-        self._phi = phi
-        self._phi_at_rebuild = np.abs(phi)
+        self._swap(indices=band.indices, phi=phi, phi_at_rebuild=np.abs(phi))
         self._coeffs = None
         band.layer_phi = phi[band.active[band.layer]]
         self._sync_inside()
@@ -179,7 +178,7 @@ class BandBuilding:
         b.held = None
         if not self.vanished:
             self._sync_inside()  # a barrier holds pixel centres too (scattered nodes)
-        self.converged = False
+        self._swap(converged=False)
         self._restart_convergence()
 
     def _layer_drift(self, phi: NDArray[np.floating]) -> float:
@@ -259,7 +258,7 @@ class BandBuilding:
         nodes = self.layout.rebuild_nodes(b, starts, moved, self.band_half_width)
         trusted = None if reinitialise else self._band_positions(nodes) >= 0
         self._build_band(starts, self._current_values, nodes=nodes, trusted=trusted)
-        self._since_reinit = 0 if reinitialise else self._since_reinit + 1
+        self._swap(since_reinit=0 if reinitialise else self._since_reinit + 1)
 
 
 #: Pixels per call of an initial front's function in :func:`_pixel_values`.

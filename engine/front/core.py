@@ -4,8 +4,9 @@ State: the band's node keys (lattice indices or scattered node ids) and φ
 (signed distance in mm, negative inside) at them, the time, a pixel
 inside/outside image (valid everywhere, exact wherever the band does not
 reach), running sums for region statistics, pins and barriers, and the
-settings; :meth:`Front.snapshot` returns all of it as one frozen
-:class:`~engine.front.state.FrontSnapshot`. The class is assembled from parts
+settings, all in one frozen :class:`~engine.front.state.FrontState` that
+every step and edit replaces whole; :meth:`Front.snapshot` returns it as it
+is. The class is assembled from parts
 by job (:mod:`engine.front.band`, :mod:`~engine.front.evolution`,
 :mod:`~engine.front.layer_speeds`, :mod:`~engine.front.statistics`,
 :mod:`~engine.front.edits`, :mod:`~engine.front.readouts`); whatever differs
@@ -23,7 +24,8 @@ and waits at most one step. Read-outs never change the state (φ, band, inside
 image, sums, time, steps, pins, barrier); they may fill caches derived from
 it, such as the interpolant's coefficients, which depend on φ alone. Plain
 attributes (``steps``, ``time``, ``converged``) may be read without the lock;
-a consistent set of them comes from :meth:`Front.snapshot`.
+a consistent set of them comes from :meth:`Front.snapshot`, a state no later
+change can touch.
 """
 
 from __future__ import annotations
@@ -43,7 +45,7 @@ from engine.front.geometry import seed_function
 from engine.front.layer_speeds import LayerSpeeds
 from engine.front.readouts import ReadOuts
 from engine.front.speeds import SETTING_NAMES, FrontParams
-from engine.front.state import FrontSnapshot, _locked
+from engine.front.state import FrontState, StateAccess, _locked
 from engine.front.statistics import RegionStatistics
 from engine.image.features import ImageFeatures, compute_features
 from engine.image.statistics import estimate_window
@@ -56,7 +58,7 @@ from engine.nodes.scattered_layout import node_options
 from engine.validation import check_limits, check_names, check_spacing, validate_seeds
 
 
-class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadOuts):
+class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadOuts):
     """A level-set front on one 2-D slice or one 3-D volume (see module docstring).
 
     Build with :meth:`from_seeds`, :meth:`from_mask` or :meth:`from_function`.
@@ -66,27 +68,16 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
 
     def __init__(self, features: ImageFeatures, params: FrontParams, layout: NodeLayout) -> None:
         self.features = features
-        self.params = params
         self.layout = layout  # where the nodes sit (engine.nodes.layout): lattice or scattered
-        self.time = 0.0
-        self.steps = 0
-        self.converged = False
+        # the whole state, replaced (never changed) by every step and edit; the rest are caches
+        self._state = FrontState(np.zeros((0, layout.key_ndim), dtype=np.int64), np.zeros(0), np.zeros(0),
+                                 None, (0.0, 0.0, 0.0, 0.0), 0.0, 0, False, (), params, None, None,
+                                 noise=0.0)  # type: ignore[arg-type]
         self.timings: dict = {"step": 0.0, "rebuild": 0.0, "rebuilds": 0}
-        self._phi: NDArray[np.floating] = None  # type: ignore[assignment]
-        self._phi_at_rebuild: NDArray[np.floating] = None  # type: ignore[assignment]
-        self._band: Band = None  # type: ignore[assignment]
-        self._inside: NDArray[np.bool_] = None  # type: ignore[assignment]
-        self._sums: list = [0.0, 0.0, 0.0, 0.0]
+        self._band: Band = None  # type: ignore[assignment]  # derived from the state's indices and layer
         self._outline: OutlineMotion | None = None
-        self._pins: NDArray[np.bool_] | None = None
-        self._barrier: NDArray[np.bool_] | None = None
         self._coeffs: NDArray[np.floating] | None = None
         self._node_sets: dict = {}  # node sets per (stencil size, degree, phs)
-        self._vanished = False
-        self._noise = 0.0  # robust std of the smoothed intensities inside the initial front
-        self._rebuild_drift = 1.0  # the layer's ||∇φ| − 1| percentile right after the last rebuild
-        self._since_reinit = 0  # rebuilds since the last reinitialisation
-        self._rest_reinitialised = False  # reinitialised once already at the present rest
         self._curvature_gain = 1.0  # gain of the curvature's extension along normals (for the time step)
         self._last_kappa_max = 0.0
         self._applied_scale: float | None = None  # the smallest smoothness scale of the last step
@@ -98,7 +89,7 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
     def __repr__(self) -> str:
         size = "×".join(str(s) for s in self.shape)
         layout = self.layout.name + (f" detail {self.detail}" if self.detail != 1 else "")
-        nodes = 0 if self._phi is None else len(self._phi)
+        nodes = len(self._phi)
         status = "vanished" if self.vanished else "converged" if self.converged else "moving"
         return (f"<Front {self.ndim}-D {size}, {self.params.model}, {layout}, {nodes} nodes, "
                 f"step {self.steps}, t={self.time:.4g}, {status}>")
@@ -208,7 +199,7 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
                             {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
                             where="Front.from_seeds()")
         if estimate:
-            front.params = front.params.updated(window=estimate_window(front.features.smoothed, seeds_arr))
+            front._swap(params=front.params.updated(window=estimate_window(front.features.smoothed, seeds_arr)))
         front._initialise(seed_function(seeds_arr, front.features.spacing))
         return front
 
@@ -333,7 +324,7 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
         new = self.params.updated(**changes)
         rebuild = any(getattr(new, k) != getattr(self.params, k) for k in ("band_width", "stencil_size", "degree", "phs"))
         features = any(getattr(new, k) != getattr(self.params, k) for k in ("edge_sigma", "edge_contrast"))
-        self.params = new
+        self._swap(params=new)
         if features:
             self.features = compute_features(self.features.image, self.features.spacing,
                                              sigma_mm=new.edge_sigma, contrast=new.edge_contrast)
@@ -345,7 +336,7 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
             self.rebuild(reinitialise=True if rebuild else None)
         else:
             self._update_layer_statistics()
-        self.converged = False
+        self._swap(converged=False)
         self._restart_convergence()
 
     def _new_stencils(self, params: FrontParams) -> None:
@@ -353,50 +344,39 @@ class Front(BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadO
         self.layout = self.layout.with_settings(params, self._node_sets)
 
     @_locked
-    def snapshot(self) -> FrontSnapshot:
-        """Exact copy of the evolving state (band arrays and a bit-packed inside image)."""
-        b = self._band
-        return FrontSnapshot(b.indices.copy(), self._phi.copy(), self._phi_at_rebuild.copy(),
-                             np.packbits(self._inside.reshape(-1)), tuple(self._sums), self.time, self.steps,
-                             self.converged, self._motion_monitor().state(), self.params, self._pins, self._barrier,
-                             None if b.local_out is None else b.local_out.copy(), self._since_reinit,
-                             self._rebuild_drift,
-                             (b.layer.copy(), b.source.copy(), b.edge_source.copy(), b.layer_phi.copy()),
-                             None if b.thickness is None else b.thickness.copy(), self._rest_reinitialised,
-                             self._noise)
+    def snapshot(self) -> FrontState:
+        """The present state itself: a frozen value that later steps and edits replace, never change."""
+        return self._state
 
     @_locked
-    def restore(self, snap: FrontSnapshot) -> None:
-        """Return to ``snap``; stepping afterwards reproduces the same φ bit for bit."""
-        if not isinstance(snap, FrontSnapshot):
+    def restore(self, snap: FrontState) -> None:
+        """Return to the state ``snap``; stepping afterwards reproduces the same φ bit for bit."""
+        if not isinstance(snap, FrontState):
             raise ValueError("snapshot must come from Front.snapshot()")
         if snap.indices.ndim != self.layout.key_ndim:
             raise ValueError("snapshot was taken on another node layout (lattice against scattered nodes)")
-        size = int(np.prod(self.shape))
-        inside = np.unpackbits(snap.inside_bits, count=size).astype(bool).reshape(self.shape)
-        self._pins, self._barrier = snap.pins, snap.barrier
-        if snap.params != self.params:
-            self.params = snap.params
+        if snap.inside.shape != self.shape:
+            raise ValueError(f"snapshot was taken on an image of shape {snap.inside.shape}, not {self.shape}")
+        if snap.noise is None:  # a state stored without it keeps this front's
+            snap = snap.updated(noise=self._noise)
+        old_params = self.params
+        self._state = snap
+        if snap.params != old_params:
             self.features = compute_features(self.features.image, self.features.spacing,
                                              sigma_mm=snap.params.edge_sigma, contrast=snap.params.edge_contrast)
             self._new_stencils(snap.params)
-        self._inside = inside
-        self._sums = list(snap.sums)
-        if snap.noise is not None:
-            self._noise = snap.noise
-        self._install_band(snap.indices.copy(), snap.phi.copy())
-        self._phi_at_rebuild = snap.phi_at_rebuild.copy()
-        # the layer and statistics of the last rebuild, not recomputed from the present φ
+        # the band's derived arrays, then the layer and statistics of the state's last refresh
+        self._install_band(snap.indices, snap.phi)
+        b = self._band
         if snap.layer:
-            (self._band.layer, self._band.source, self._band.edge_source,
-             self._band.layer_phi) = (a.copy() for a in snap.layer)
-            self._band.layer_operators = self._band.layer_parts = self._band.layer_pairs = None
+            b.layer, b.source, b.edge_source, b.layer_phi = snap.layer
+            b.layer_operators = b.layer_parts = b.layer_pairs = None
+        else:
+            snap = snap.updated(layer=(b.layer, b.source, b.edge_source, b.layer_phi))
         if snap.local_out is not None:
-            self._band.local_out = snap.local_out.copy()
-        self._band.thickness = None if snap.thickness is None else snap.thickness.copy()
-        self._rest_reinitialised = snap.rest_reinitialised
-        self._since_reinit = snap.since_reinit
-        self._rebuild_drift = snap.rebuild_drift
-        self._vanished = False
-        self.time, self.steps, self.converged = snap.time, snap.steps, snap.converged
+            b.local_out = snap.local_out
+        else:
+            snap = snap.updated(local_out=b.local_out)
+        b.thickness = snap.thickness
+        self._state = snap
         self._motion_monitor().restore(snap.motion)

@@ -42,7 +42,7 @@ class Edits:
         # the inside image must follow the edit beyond the band as well
         self._apply_to_pixels(combine, near)
         self._build_band(starts, values_at)
-        self.converged = False
+        self._swap(converged=False)
         self._restart_convergence()
 
     def _apply_to_pixels(self, combine: Callable[[NDArray[np.floating], NDArray[np.floating],
@@ -87,7 +87,7 @@ class Edits:
                     new_inside[at] = now
         if new_inside is None:
             return
-        self._inside = new_inside
+        self._swap(inside=new_inside)
         self._reset_sums()
 
     def _stroke(self, stroke: object) -> tuple[NDArray[np.floating], float]:
@@ -173,13 +173,13 @@ class Edits:
     @_locked
     def pin(self, mask: ArrayLike | None, *, replace: bool = False) -> None:
         """Freeze the front inside ``mask`` (pixel array); ``None`` clears all pins."""
-        self._pins = self._merge_mask(self._pins, mask, replace, "mask")
+        self._swap(pins=self._merge_mask(self._pins, mask, replace, "mask"))
         self._refresh_node_masks()
 
     @_locked
     def set_barrier(self, mask: ArrayLike | None) -> None:
         """Area the front may not enter (other labels' locked outlines); ``None`` clears it."""
-        self._barrier = self._merge_mask(None, mask, True, "mask")
+        self._swap(barrier=self._merge_mask(None, mask, True, "mask"))
         self._refresh_node_masks()
 
     def _merge_mask(self, old: NDArray[np.bool_] | None, mask: ArrayLike | None, replace: bool,

@@ -269,7 +269,7 @@ class Evolution:
     def _one_step(self, dt_max: float | None) -> None:
         rk3 = self.params.integrator == "ssp_rk3"
         if self.vanished:
-            self.steps += 1
+            self._swap(steps=self.steps + 1)
             return
         t0 = _time.perf_counter()
         b = self._band
@@ -302,10 +302,8 @@ class Evolution:
             new[b.frozen] = phi0[b.frozen]
         if np.any(b.barrier):
             new[b.barrier] = np.maximum(new[b.barrier], phi0[b.barrier])
-        self._phi = new
+        self._swap(phi=new, time=self.time + dt, steps=self.steps + 1)
         self._coeffs = None
-        self.time += dt
-        self.steps += 1
         self._record_motion()
         self.timings["evaluations"] = self.timings.get("evaluations", 0) + stages
         self._sync_inside()
@@ -329,10 +327,9 @@ class Evolution:
 
         Not converged: there is no outline left to have come to rest (see :attr:`vanished`).
         """
-        self._inside[:] = bool(np.all(self._phi < 0))
+        self._swap(inside=np.full(self.shape, bool(np.all(self._phi < 0))))
         self._reset_sums()
-        self._vanished = True
-        self.converged = False
+        self._swap(vanished=True, converged=False)
 
     def _record_motion(self) -> None:
         """Track the outline's motion (:mod:`engine.front.convergence`) after a step; set ``converged`` when it stopped."""
@@ -341,7 +338,11 @@ class Evolution:
         if monitor.due(self.steps):
             b = self._band
             crossings = self._crossings(b.indices, self._phi, b.lookup)
-        self.converged = monitor.update(self.steps, crossings)
+        converged = monitor.update(self.steps, crossings)
+        if crossings is None:
+            self._swap(converged=converged)
+        else:
+            self._swap(converged=converged, motion=_motion_state(monitor))
         if self.converged and not self._rest_reinitialised and not self._vanished and (
                 self._layer_drift(self._phi) > self._rebuild_drift + REINIT_DRIFT):
             # φ next to the outline is no longer a distance: its speeds were read at
@@ -349,19 +350,20 @@ class Evolution:
             # small structure rests short of its boundary); reinitialise and watch the
             # outline again (once: where φ cannot stay a distance, as in a strip two
             # nodes wide, the next rest counts)
-            self._rest_reinitialised = True
+            self._swap(rest_reinitialised=True)
             try:
                 self.rebuild(reinitialise=True)
             except FrontVanished:
                 self._vanish()
                 return
             monitor.clear()
-            self.converged = False
+            self._swap(converged=False, motion=_motion_state(monitor))
 
     def _restart_convergence(self) -> None:
         """Forget the outline's recent motion (after an edit, pins or new settings)."""
-        self._motion_monitor().clear()
-        self._rest_reinitialised = False
+        monitor = self._motion_monitor()
+        monitor.clear()
+        self._swap(rest_reinitialised=False, motion=_motion_state(monitor))
 
     def _motion_monitor(self) -> OutlineMotion:
         """The convergence monitor, made for the present settings (tolerance in mm, window in steps)."""
@@ -379,7 +381,7 @@ class Evolution:
                 break
             if self.vanished:  # nothing left to move: the time simply passes
                 if until_time is not None:
-                    self.time = max(self.time, float(until_time))
+                    self._swap(time=max(self.time, float(until_time)))
                 break
             if until_time is not None:
                 remaining = until_time - self.time
@@ -393,6 +395,11 @@ class Evolution:
                 progress(self.steps, self.time)
             if until_time is None and self.converged:
                 break
+
+
+def _motion_state(monitor: OutlineMotion) -> tuple:
+    """The monitor's checkpoints and last displacement as a state holds them (its arrays are never changed)."""
+    return tuple(monitor.checkpoints) + (monitor.displacement_mm,)
 
 
 @lru_cache(maxsize=4)

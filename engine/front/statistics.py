@@ -21,8 +21,8 @@ class RegionStatistics:
     def _reset_sums(self) -> None:
         img = self.features.smoothed
         inside = self._inside
-        self._sums = [float(img[inside].sum()), float(inside.sum()), float(img[~inside].sum()),
-                      float((~inside).sum())]
+        self._swap(sums=(float(img[inside].sum()), float(inside.sum()), float(img[~inside].sum()),
+                         float((~inside).sum())))
 
     def _sync_inside(self) -> None:
         """Update the pixel inside image (and the region sums) at pixel-centre band nodes."""
@@ -37,11 +37,10 @@ class RegionStatistics:
         gained = now[changed]
         delta_sum = float(vals[gained].sum() - vals[~gained].sum())
         delta_n = float(gained.sum() - (~gained).sum())
-        self._sums[0] += delta_sum
-        self._sums[1] += delta_n
-        self._sums[2] -= delta_sum
-        self._sums[3] -= delta_n
-        self._inside[idx] = gained
+        s_in, n_in, s_out, n_out = self._sums
+        inside = self._inside.copy()  # the state's image is read-only: the next state gets its own
+        inside[idx] = gained
+        self._swap(inside=inside, sums=(s_in + delta_sum, n_in + delta_n, s_out - delta_sum, n_out - delta_n))
 
     def _band_pixels_inside(self) -> NDArray[np.bool_]:
         """Which of the band's pixel centres (``_band.pixel_index``) lie inside."""
@@ -68,6 +67,9 @@ class RegionStatistics:
             self._update_local_statistics()
         if self.params.model in ("region", "window"):
             self._update_thickness()
+        b = self._band
+        self._swap(layer=(b.layer, b.source, b.edge_source, b.layer_phi), local_out=b.local_out,
+                   thickness=b.thickness)
 
     def _update_thickness(self) -> None:
         """Half-width of the inside behind each layer node (:mod:`engine.image.thickness`), for the smoothness scale."""

@@ -43,7 +43,7 @@ FrontLayer = Callable[..., tuple[NDArray[np.int64], NDArray[np.int64], NDArray[n
 
 @dataclass
 class Band:
-    """Derived per-band arrays (rebuilt from the band indices; never part of a snapshot)."""
+    """Derived per-band arrays (rebuilt from the state's band keys; the layer fields repeat the state's)."""
 
     indices: NDArray[np.int64]
     positions: NDArray[np.floating]  # mm

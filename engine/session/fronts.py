@@ -127,7 +127,7 @@ def restore_front(image: NDArray[np.floating], snapshot: FrontSnapshot, spacing:
                   settings: FrontSettings) -> Front:
     """A new front object in the state ``snapshot`` (started from the snapshot's inside, then restored)."""
     shape = np.shape(image)
-    inside = np.unpackbits(snapshot.inside_bits, count=int(np.prod(shape))).astype(bool).reshape(shape)
+    inside = snapshot.inside
     kwargs = _front_kwargs(settings)
     if not inside.any() or inside.all():
         inside = np.zeros(shape, dtype=bool)

@@ -494,6 +494,9 @@ class Session:
                         self._publish(running=True, rate=taken / max(now - t0, 1e-9))
                         if on_frame is not None:
                             on_frame(self._frame)
+                # a thread waiting for the lock (a setting, a busy edit) takes it now: a lock
+                # released and taken again at once would keep it waiting for many steps
+                time.sleep(0)
         finally:
             with self._lock:
                 if self._grower is not None and taken:

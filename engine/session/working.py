@@ -150,7 +150,9 @@ def _encode_snapshot(snap: FrontSnapshot, arrays: _Arrays) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for f in fields(snap):
         value = getattr(snap, f.name)
-        if value is None:
+        if f.name == "inside":  # stored bit-packed; the slice's shape unpacks it
+            out["inside_bits"] = {"array": arrays.put("s", snap.inside_bits)}
+        elif value is None:
             out[f.name] = None
         elif f.name == "motion":  # convergence checkpoints (step, crossings) and the last displacement
             *marks, last = value if value else (float("inf"),)
@@ -169,11 +171,14 @@ def _encode_snapshot(snap: FrontSnapshot, arrays: _Arrays) -> dict[str, Any]:
     return out
 
 
-def _decode_snapshot(record: Mapping[str, Any], arrays: _Arrays) -> FrontSnapshot:
+def _decode_snapshot(record: Mapping[str, Any], arrays: _Arrays, shape: tuple[int, ...]) -> FrontSnapshot:
     values: dict[str, Any] = {}
     for f in fields(FrontSnapshot):
         item = record.get(f.name)
-        if item is None:
+        if f.name == "inside":
+            bits = arrays.get(record["inside_bits"]["array"])
+            values[f.name] = np.unpackbits(bits, count=int(np.prod(shape))).astype(bool).reshape(shape)
+        elif item is None:
             values[f.name] = None if f.name in ("pins", "barrier", "local_out") else f.default
         elif "motion" in item:
             marks = tuple((int(k), arrays.get(key, readonly=False)) for k, key in item["motion"]["marks"])
@@ -371,7 +376,7 @@ def open_working(path: str | os.PathLike[str], *, study: str | None = None,
     live = None
     if manifest.get("live") is not None:
         d = manifest["live"]
-        snapshot = None if d["snapshot"] is None else _decode_snapshot(d["snapshot"], arrays)
+        snapshot = None if d["snapshot"] is None else _decode_snapshot(d["snapshot"], arrays, tuple(volume.shape[1:]))
         live = LiveState(int(d["label"]), int(d["slice"]), tuple(tuple(float(v) for v in s) for s in d["seeds"]),
                          snapshot, bool(d["vanished"]), str(d["origin"]), None)
         if snapshot is not None:
