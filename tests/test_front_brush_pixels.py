@@ -46,7 +46,7 @@ def test_a_stroke_re_reads_only_the_pixels_in_its_box(monkeypatch, nodes, scatte
 
 def _edit_pixels(front: Front, stroke_px: np.ndarray, radius_px: float, sign: int, boxed: bool) -> np.ndarray:
     """The inside image after an Extend (sign 1) or Trim (sign −1) stroke's pixel pass, boxed or over the whole image."""
-    inside, sums = front._inside, list(front._sums)
+    before = front._state  # the front's state value: put back as it was after the pass
     stroke = stroke_px * front.features.spacing
     radius = radius_px * float(np.min(front.features.spacing))
     if sign > 0:
@@ -55,7 +55,7 @@ def _edit_pixels(front: Front, stroke_px: np.ndarray, radius_px: float, sign: in
         combine = lambda v, mm, px: np.maximum(v, -stroke_distance(mm, stroke, radius))  # noqa: E731
     front._apply_to_pixels(combine, (stroke, radius) if boxed else None)
     out = front._inside
-    front._inside, front._sums = inside, sums
+    front._state = before
     return out
 
 
