@@ -55,7 +55,7 @@ from engine.nodes.layout import Band, NodeLayout
 from engine.nodes.layout_options import check_layout_options, make_layout
 from engine.nodes.node_set import ScatteredNodeSet
 from engine.nodes.scattered_layout import node_options
-from engine.validation import check_limits, check_names, check_spacing, validate_seeds
+from engine.validation import check_detail, check_limits, check_names, check_spacing, validate_seeds
 
 
 class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution, Edits, ReadOuts):
@@ -113,8 +113,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
             raise ValueError("image contains NaN or infinite values")
         sp = check_spacing(spacing, img.ndim)
         check_limits(img.shape, sp, params)
-        if detail not in (1, 2, 4):
-            raise ValueError(f"detail must be 1, 2 or 4, got {detail!r}")
+        check_detail(detail)
         options = dict(layout or {})
         check_layout_options(options, detail)
         fp = FrontParams(model=model, **params)

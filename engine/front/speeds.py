@@ -41,6 +41,8 @@ from dataclasses import dataclass, fields, replace
 import numpy as np
 from numpy.typing import NDArray
 
+from engine.validation.inputs import check_names
+
 MODELS = ("region", "edge", "window", "curvature", "constant")
 #: Time integrators of a front step (:mod:`engine.numerics.time_stepping`).
 INTEGRATORS = ("rkl2", "ssp_rk3")
@@ -130,10 +132,7 @@ class FrontParams:
 
     def updated(self, **changes: object) -> "FrontParams":
         """A copy with ``changes`` applied (unknown names raise ``ValueError``)."""
-        names = {f.name for f in fields(self)}
-        unknown = set(changes) - names
-        if unknown:
-            raise ValueError(f"unknown front setting(s): {', '.join(sorted(unknown))}")
+        check_names(changes, {f.name for f in fields(self)}, "a front")
         if "window" in changes and changes["window"] is not None:
             changes["window"] = tuple(float(v) for v in changes["window"])  # type: ignore[union-attr]
         return replace(self, **changes)

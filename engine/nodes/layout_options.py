@@ -11,18 +11,15 @@ from engine.nodes.lattice_layout import LatticeLayout
 from engine.nodes.layout import NodeLayout
 from engine.nodes.node_set import ScatteredNodeSet
 from engine.nodes.scattered_layout import ScatteredLayout, node_options
+from engine.validation.arguments import NODE_LAYOUTS, check_nodes
 
 __all__ = ["NODE_LAYOUTS", "check_layout_options", "make_layout"]
-
-#: Node layouts of a front.
-NODE_LAYOUTS = ("lattice", "scattered")
 
 
 def check_layout_options(options: dict, detail: int) -> None:
     """ValueError naming a layout option that does not fit ``options["nodes"]`` (before any work is done)."""
     nodes = options.get("nodes", "lattice")
-    if nodes not in NODE_LAYOUTS:
-        raise ValueError(f"nodes must be one of {NODE_LAYOUTS}, got {nodes!r}")
+    check_nodes(nodes)
     if nodes == "lattice":
         for name in ("finest", "coarsest", "node_set"):
             if options.get(name) is not None:
