@@ -21,6 +21,7 @@ import numpy as np
 import pytest
 from PIL import Image
 from scipy import ndimage
+from independent_metrics import dice
 
 import engine.io as eio
 from engine.cli import main
@@ -29,11 +30,6 @@ from engine.commands.demo import DEMO_SLICE, STRUCTURES, demo_phantom, draw_cont
 ROOT = Path(__file__).resolve().parents[1]
 FILES = ("image.png", "abdomen_dseg.nii.gz", "abdomen_dseg.tsv", "abdomen_dseg.json", "overlay.png", "summary.json")
 
-
-def dice(a, b):
-    """2|A and B| / (|A| + |B|) (Dice 1945)."""
-    a, b = np.asarray(a, bool), np.asarray(b, bool)
-    return 2.0 * np.count_nonzero(a & b) / (np.count_nonzero(a) + np.count_nonzero(b))
 
 
 @pytest.fixture(scope="module")

@@ -21,6 +21,7 @@ import nibabel as nib
 import numpy as np
 import pytest
 from PIL import Image
+from independent_metrics import dice
 
 import engine.io as eio
 from engine.cli import main
@@ -43,11 +44,6 @@ def disk_picture(shape=(96, 96), centre=CENTRE, radius=RADIUS, *, seed=0):
     img = np.where(disk(shape, centre, radius), 180.0, 60.0) + rng.normal(0.0, 8.0, shape)
     return np.clip(np.rint(img), 0, 255).astype(np.uint8)
 
-
-def dice(a, b):
-    """2|A and B| / (|A| + |B|) (Dice 1945), computed here independently of engine.analysis.metrics."""
-    a, b = np.asarray(a, bool), np.asarray(b, bool)
-    return 2.0 * np.count_nonzero(a & b) / (np.count_nonzero(a) + np.count_nonzero(b))
 
 
 def printed(out: str, key: str) -> str:

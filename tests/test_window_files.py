@@ -122,7 +122,8 @@ def test_a_dropped_file_opens_and_joins_the_recent_list(qtbot, tmp_path):
 def test_the_demo_seeds_two_structures_and_evolves_them(qtbot, tmp_path):
     from app.demo import DemoScript
     from engine.commands.demo import DEMO_SLICE, STRUCTURES
-    from tests.window_helpers import dice, live_mask, truth
+    from independent_metrics import dice
+    from tests.window_helpers import live_mask, truth
 
     w = make_window(qtbot, tmp_path)
     demo = DemoScript(w)
@@ -143,7 +144,8 @@ def test_the_demo_seeds_two_structures_and_evolves_them(qtbot, tmp_path):
 def test_without_the_sample_study_the_demo_renders_its_slice(qtbot, tmp_path, monkeypatch):
     from app.demo import DemoScript
     from engine.commands.demo import STRUCTURES, demo_phantom
-    from tests.window_helpers import dice, live_mask
+    from independent_metrics import dice
+    from tests.window_helpers import live_mask
 
     monkeypatch.setattr("app.demo.sample_study", lambda: None)
     w = make_window(qtbot, tmp_path)

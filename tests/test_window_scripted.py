@@ -17,7 +17,8 @@ import pytest
 from PySide6.QtCore import Qt
 from scipy import ndimage
 
-from tests.window_helpers import ABDOMEN, click, dice, drag, key, live_mask, make_window, open_and_wait, truth, wait_idle
+from independent_metrics import dice
+from tests.window_helpers import ABDOMEN, click, drag, key, live_mask, make_window, open_and_wait, truth, wait_idle
 
 pytestmark = pytest.mark.gui
 

@@ -91,10 +91,5 @@ def live_mask(session) -> np.ndarray:
     return np.unpackbits(snap.inside_bits, count=int(np.prod(shape))).astype(bool).reshape(shape)
 
 
-def dice(a: np.ndarray, b: np.ndarray) -> float:
-    """2|A∩B| / (|A| + |B|) (L. R. Dice, Ecology 26(3) (1945) 297-302)."""
-    a, b = np.asarray(a, bool), np.asarray(b, bool)
-    return 2.0 * np.count_nonzero(a & b) / max(np.count_nonzero(a) + np.count_nonzero(b), 1)
-
 
 gui = pytest.mark.gui
