@@ -501,8 +501,8 @@ def average_along_polyline(values: ArrayLike, polyline: ArrayLike, sigma: float,
     for k in range(1, reach + 1):
         for step in (k, -k):
             j = index + step
-            if closed:
-                gap = np.abs(s[j % n] - s + (total if step > 0 else -total) * (j >= n if step > 0 else j < 0))
+            if closed:  # past either end: the arc length wraps round the outline
+                gap = np.abs(s[j % n] + np.where(j >= n, total, np.where(j < 0, -total, 0.0)) - s)
                 j = j % n
             else:
                 valid = (j >= 0) & (j < n)

@@ -8,6 +8,8 @@ from collections.abc import Callable
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from engine.nodes.checks import positive
+
 __all__ = ["RadiusLike", "NodeRadius"]
 
 #: A node spacing (mm): a constant, or a callable taking (N, d) points (mm) to N spacings.
@@ -23,14 +25,8 @@ class NodeRadius:
             self.func: Callable | None = radius
             self.const = math.nan
         else:
-            try:
-                value = float(radius)  # type: ignore[arg-type]
-            except (TypeError, ValueError) as exc:
-                raise ValueError(f"radius: expected a positive number or a callable, got {radius!r}") from exc
-            if not (0.0 < value < math.inf):
-                raise ValueError(f"radius: must be positive and finite, got {value!r}")
             self.func = None
-            self.const = value
+            self.const = positive(radius, "radius")  # a number: positive and finite
 
     @property
     def is_constant(self) -> bool:
