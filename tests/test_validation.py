@@ -183,3 +183,17 @@ def test_validate_seeds_names_the_seed_and_the_image_in_plain_numbers():
     for seeds, words in [([(1, 2)], "tuples"), ([(1, np.nan, 2)], "NaN"), ([(1, 2, 0)], "radius must be > 0")]:
         with pytest.raises(ValueError, match=f"^seeds.*{words}"):
             v.validate_seeds(seeds, (20, 30))
+
+
+def test_front_settings_refuse_a_fractional_detail_or_step_limit_instead_of_rounding():
+    from engine.session import FrontSettings
+
+    base = FrontSettings()
+    assert base.updated(detail=2, max_steps=np.int64(300)).detail == 2
+    assert FrontSettings.from_record({"detail": 4, "max_steps": 50}).max_steps == 50
+    for changes, words in [({"detail": 1.7}, "detail"), ({"detail": 3}, "detail"), ({"max_steps": 2.5}, "max_steps"),
+                           ({"max_steps": 0}, "max_steps")]:
+        with pytest.raises(ValueError, match=words):
+            base.updated(**changes)
+        with pytest.raises(ValueError, match=words):
+            FrontSettings.from_record(changes)

@@ -41,7 +41,7 @@ def _freeze(value: object) -> None:
             _freeze(item)
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class FrontState:
     """Everything a front is at one moment; a front holds one and replaces it whole at every change.
 

@@ -54,8 +54,8 @@ class FrontSettings:
         if changes.get("model", self.model) != "window":
             params.pop("window", None)
         return FrontSettings(model=str(changes.get("model", self.model)), params=tuple(sorted(params.items())),
-                             detail=int(changes.get("detail", self.detail)),
-                             max_steps=int(changes.get("max_steps", self.max_steps)))
+                             detail=check_detail(changes.get("detail", self.detail)),
+                             max_steps=check_steps(changes.get("max_steps", self.max_steps), name="max_steps"))
 
     @property
     def front_params(self) -> dict[str, Any]:
@@ -75,4 +75,5 @@ class FrontSettings:
     def from_record(cls, record: Mapping[str, Any]) -> "FrontSettings":
         params = {k: _plain(v) for k, v in dict(record.get("params", {})).items()}
         return cls(model=str(record.get("model", "region")), params=tuple(sorted(params.items())),
-                   detail=int(record.get("detail", 1)), max_steps=int(record.get("max_steps", DEFAULT_MAX_STEPS)))
+                   detail=check_detail(record.get("detail", 1)),
+                   max_steps=check_steps(record.get("max_steps", DEFAULT_MAX_STEPS), name="max_steps"))
