@@ -57,9 +57,9 @@ class BandBuilding:
 
         if signed_distance:
             nodes = self.layout.candidates(starts, self.band_half_width)
-            trusted = (np.ones(len(nodes), dtype=bool) if exact_within is None
-                       else np.abs(values_at(nodes)) > exact_within)
-            self._build_band(starts, values_at, nodes=nodes, trusted=trusted)
+            values = values_at(nodes)  # read once: the band is built on these very nodes
+            trusted = np.ones(len(nodes), dtype=bool) if exact_within is None else np.abs(values) > exact_within
+            self._build_band(starts, lambda _: values, nodes=nodes, trusted=trusted)
         else:
             self._build_band(starts, values_at)
 
