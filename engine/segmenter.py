@@ -441,10 +441,11 @@ class Segmenter:
         from skimage.measure import find_contours
 
         inside = self._growth.inside if self._growth is not None else seed_disks(self._image.shape, self._seeds)
-        nz = np.argwhere(inside)
-        if len(nz) == 0:
+        rows, cols = np.flatnonzero(inside.any(axis=1)), np.flatnonzero(inside.any(axis=0))
+        if len(rows) == 0:
             return []
-        lo, hi = nz.min(axis=0), nz.max(axis=0) + 1  # the pixels' box: the rest of the image holds no outline
+        # the pixels' box (from the projections: a list of every pixel took a third of a frame's time)
+        lo, hi = np.array([rows[0], cols[0]]), np.array([rows[-1], cols[-1]]) + 1
         padded = np.pad(inside[lo[0]:hi[0], lo[1]:hi[1]], 1).astype(float)
         return [c - 1.0 + lo for c in find_contours(0.5 - padded, 0.0, positive_orientation="low")]
 
