@@ -52,7 +52,21 @@ def make_application(argv: list[str] | None = None) -> QApplication:
     if ICON.is_file():
         app.setWindowIcon(QIcon(str(ICON)))
     pg.setConfigOptions(imageAxisOrder="row-major", antialias=True)
+    single_blas_thread()
     return app
+
+
+def single_blas_thread() -> None:
+    """One BLAS thread for the window's process, for as long as it runs.
+
+    The engine's dense products are small (a band's stencils, thousands of
+    3 × 3 systems): a second BLAS thread saves nothing on them and then
+    spins waiting for work on the core the GUI thread draws with (about a
+    tenth of a core while a front evolves).
+    """
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=1, user_api="blas")
 
 
 def settle_memory() -> None:

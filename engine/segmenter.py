@@ -39,7 +39,7 @@ from engine.front.geometry import seed_disks
 from engine.front.speeds import SETTING_NAMES
 from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds,
                                        resolvable_factor, upsample_phi)
-from engine.image.features import compute_features
+from engine.image.features import ImageFeatures, check_features, compute_features
 from engine.image.growth import GROWTH_MODELS, RegionGrowth
 from engine.image.statistics import estimate_window
 from engine.image.thickness import THIN_LENGTH, thin_length
@@ -78,13 +78,17 @@ class Segmenter:
     Built like :func:`engine.segment.segment` (same arguments, without
     ``progress``), plus ``barrier``: a mask of pixels no stage enters (other
     labels' locked outlines; the flood never takes them and every front
-    holds them). Attributes: ``stage``, ``finished``, ``steps``, ``time``,
-    ``converged``, ``vanished``.
+    holds them), and ``features``: the image's
+    :func:`~engine.image.features.compute_features`, kept by a caller that
+    starts several fronts on one image (used where they fit the settings'
+    edge scale and contrast). Attributes: ``stage``, ``finished``, ``steps``,
+    ``time``, ``converged``, ``vanished``.
     """
 
     def __init__(self, image: ArrayLike, seeds: Sequence[Sequence[float]], *, spacing: ArrayLike | None = None,
                  model: str = "region", max_steps: int | None = None, detail: int = 1, coarse: int | None = None,
-                 nodes: str = "lattice", barrier: ArrayLike | None = None, **params: object) -> None:
+                 nodes: str = "lattice", barrier: ArrayLike | None = None, features: ImageFeatures | None = None,
+                 **params: object) -> None:
         t0 = time.perf_counter()
         check_names(params, SETTING_NAMES | set(LAYOUT_OPTIONS), "segment()")
         if max_steps is not None:
@@ -99,6 +103,9 @@ class Segmenter:
         sp = check_spacing(spacing, img.ndim)
         check_limits(img.shape, sp, params)
         settings = FrontParams(model=model, **params)  # validates every setting once, here
+        if features is not None:
+            check_features(features, img, sp, sigma_mm=features.sigma_mm, contrast=features.contrast_given)
+        self._features = features
         self._image, self._spacing, self._model, self._detail, self._nodes = img, sp, model, detail, nodes
         self._barrier = None
         if barrier is not None:
@@ -111,7 +118,8 @@ class Segmenter:
         self._budget = DEFAULT_MAX_STEPS if max_steps is None else int(max_steps)
         self._params = dict(params)
         if model == "window" and settings.window is None:
-            smoothed = compute_features(img, sp, sigma_mm=settings.edge_sigma).smoothed
+            kept = self._kept_features(settings)
+            smoothed = (kept if kept is not None else compute_features(img, sp, sigma_mm=settings.edge_sigma)).smoothed
             self._params["window"] = estimate_window(smoothed, self._seeds)
         self._requested = None if coarse is None else int(coarse)
         self._asked_detail = detail  # the detail asked for, when the flood found a thin part and raised it
@@ -250,6 +258,13 @@ class Segmenter:
     def _front_params(self) -> dict:
         return dict(self._params)
 
+    def _kept_features(self, settings: FrontParams) -> ImageFeatures | None:
+        """The image features given to the segmenter, when they fit ``settings``' edge scale and contrast."""
+        f = self._features
+        if f is None or f.sigma_mm != settings.edge_sigma or f.contrast_given != settings.edge_contrast:
+            return None
+        return f
+
     def _leave_growth(self) -> None:
         """The flood is done: choose the block size and the detail, and start the next stage."""
         if self._requested is not None and self._requested > 1 and self._nodes == "lattice":
@@ -352,21 +367,23 @@ class Segmenter:
         """The full-resolution front: from the coarse φ (``start``), the flood's outline, or the seeds."""
         layout = {} if self._nodes == "lattice" else {"nodes": self._nodes}
         params = self._front_params()
+        features = self._kept_features(FrontParams(model=self._model, **params))
         coarse_time = self._coarse.time if self._coarse is not None else 0.0
         if start is not None:
             front = Front.from_function(start, self._image.shape, image=self._image, spacing=self._spacing,
                                         model=self._model, detail=self._detail, signed_distance=True,
-                                        window_from=seed_disks(self._image.shape, self._seeds), **params)
+                                        window_from=seed_disks(self._image.shape, self._seeds), features=features,
+                                        **params)
         else:
             grown = self._grown_start() if self._coarse is None else None
             if grown is not None:
                 front = Front.from_function(grown, self._image.shape, image=self._image, spacing=self._spacing,
                                             model=self._model, detail=self._detail, signed_distance=True,
                                             exact_within=EXACT_WITHIN * float(np.max(self._spacing)),
-                                            inside=self._growth.inside, **layout, **params)
+                                            inside=self._growth.inside, features=features, **layout, **params)
             else:
                 front = Front.from_seeds(self._image, self._seeds, spacing=self._spacing, model=self._model,
-                                         detail=self._detail, **layout, **params)
+                                         detail=self._detail, features=features, **layout, **params)
         front.time = coarse_time
         front.steps = self._extra_steps
         if self._barrier is not None:
@@ -408,22 +425,27 @@ class Segmenter:
                 self.stage = "fine"  # settle again under the new settings
 
     # ------------------------------------------------------------------ read-outs
-    def contours(self) -> list[NDArray[np.floating]]:
-        """Outlines (2-D) at full-resolution pixel coordinates ``(row, col)``, at any stage (3-D: empty)."""
+    def contours(self, *, refine: bool = True) -> list[NDArray[np.floating]]:
+        """Outlines (2-D) at full-resolution pixel coordinates ``(row, col)``, at any stage (3-D: empty).
+
+        ``refine``: project the fronts' vertices onto their zero sets (see
+        :meth:`engine.front.Front.contours`; a live view leaves it off).
+        """
         if self._image.ndim != 2:
             return []
         if self._fine is not None:
-            return self._fine.contours()
+            return self._fine.contours(refine=refine)
         if self._coarse is not None:
             f = self._factor
-            return [c * f + 0.5 * (f - 1) for c in self._coarse.contours()]
+            return [c * f + 0.5 * (f - 1) for c in self._coarse.contours(refine=refine)]
         from skimage.measure import find_contours
 
         inside = self._growth.inside if self._growth is not None else seed_disks(self._image.shape, self._seeds)
-        nz = np.argwhere(inside)
-        if len(nz) == 0:
+        rows, cols = np.flatnonzero(inside.any(axis=1)), np.flatnonzero(inside.any(axis=0))
+        if len(rows) == 0:
             return []
-        lo, hi = nz.min(axis=0), nz.max(axis=0) + 1  # the pixels' box: the rest of the image holds no outline
+        # the pixels' box (from the projections: a list of every pixel took a third of a frame's time)
+        lo, hi = np.array([rows[0], cols[0]]), np.array([rows[-1], cols[-1]]) + 1
         padded = np.pad(inside[lo[0]:hi[0], lo[1]:hi[1]], 1).astype(float)
         return [c - 1.0 + lo for c in find_contours(0.5 - padded, 0.0, positive_orientation="low")]
 

@@ -259,3 +259,49 @@ def test_frames_from_another_thread_while_a_worker_evolves():
     assert s._front.steps - before <= 1
     assert not s.running and s.history[-1].action == "evolve"
     assert s.frame().contours and not s.frame().converged
+
+
+def test_fronts_on_a_slice_share_its_features_and_grow_as_with_their_own():
+    """Features kept per slice (Session.features) give the very front a front computing its own gives.
+
+    Reference: a Segmenter on the same image and seed without features
+    (compute_features inside the front); φ must agree bit for bit.
+    """
+    from engine.session.fronts import grow_from_seeds
+
+    image = np.full((96, 96), 100.0)
+    rr, cc = np.mgrid[0:96, 0:96]
+    image[np.hypot(rr - 48, cc - 50) < 20] = 40.0
+    image += np.random.default_rng(5).normal(0.0, 4.0, image.shape)
+    s = Session.from_array(np.stack([image, image]), spacing=(1.0, 1.0, 1.0))
+    lab = s.add_label().index
+    settings = s.settings(lab)
+    shared = s.features(0, settings)
+    assert s.features(0, settings) is shared
+    assert s.features(1, settings) is not shared
+    assert s.features(0, settings.updated(edge_sigma=2.0)).sigma_mm == 2.0
+    s.seed(48, 50, 4, label=lab, slice=0)
+    s.evolve(steps=12)
+    assert s._front.features is shared
+
+    own = grow_from_seeds(s.image(0), [(48, 50, 4)], s.spacing, settings)
+    kept = grow_from_seeds(s.image(0), [(48, 50, 4)], s.spacing, settings, features=shared)
+    own.step(12)
+    kept.step(12)
+    assert np.array_equal(own.front().pixel_phi(), kept.front().pixel_phi())
+
+
+def test_features_of_another_image_or_edge_scale_are_refused():
+    from engine.front import Front
+    from engine.image.features import compute_features
+
+    image = np.random.default_rng(2).normal(100.0, 5.0, (48, 48))
+    feats = compute_features(image, np.array([1.0, 1.0]))
+    with pytest.raises(ValueError, match="features: they were computed from another image"):
+        Front.from_seeds(image + 1.0, [(24, 24, 4)], features=feats)
+    with pytest.raises(ValueError, match="features: computed with edge_sigma"):
+        Front.from_seeds(image, [(24, 24, 4)], features=feats, edge_sigma=2.0)
+    with pytest.raises(ValueError, match="features: computed at spacing"):
+        Front.from_seeds(image, [(24, 24, 4)], spacing=(0.5, 0.5), features=feats)
+    front = Front.from_seeds(image, [(24, 24, 4)], features=feats)
+    assert front.features is feats

@@ -47,7 +47,7 @@ from engine.front.readouts import ReadOuts
 from engine.front.speeds import SETTING_NAMES, FrontParams
 from engine.front.state import FrontState, StateAccess, _locked
 from engine.front.statistics import RegionStatistics
-from engine.image.features import ImageFeatures, compute_features
+from engine.image.features import ImageFeatures, check_features, compute_features
 from engine.image.statistics import estimate_window
 from engine.nodes.band_stencils import BandStencil
 from engine.nodes.lattice import LatticeLookup
@@ -97,7 +97,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
     @classmethod
     def _create(cls, image: ArrayLike | None, shape: Sequence[int] | None, spacing: ArrayLike | None,
                 model: str, detail: int, params: dict, layout: dict | None = None, *,
-                where: str = "Front") -> "Front":
+                where: str = "Front", features: ImageFeatures | None = None) -> "Front":
         check_names(params, SETTING_NAMES, where)
         if image is None:
             if shape is None:
@@ -117,7 +117,10 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
         options = dict(layout or {})
         check_layout_options(options, detail)
         fp = FrontParams(model=model, **params)
-        feats = compute_features(img, sp, sigma_mm=fp.edge_sigma, contrast=fp.edge_contrast)
+        if features is None:
+            feats = compute_features(img, sp, sigma_mm=fp.edge_sigma, contrast=fp.edge_contrast)
+        else:
+            feats = check_features(features, img, sp, sigma_mm=fp.edge_sigma, contrast=fp.edge_contrast)
         front = cls(feats, fp, make_layout(feats, fp, detail, options))
         front._node_sets[node_options(fp, img.ndim)] = front.node_set  # the set new stencils start from
         return front
@@ -129,7 +132,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
                       exact_within: float | None = None, inside: ArrayLike | None = None,
                       window_from: ArrayLike | None = None, nodes: str = "lattice", finest: float | None = None,
                       coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
-                      **params: object) -> "Front":
+                      features: ImageFeatures | None = None, **params: object) -> "Front":
         """Front whose initial zero set is that of ``phi`` (callable on (N, d) points in mm).
 
         With ``signed_distance`` the values of ``phi`` within the band are
@@ -145,7 +148,10 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
         mask of the image's shape), when the caller knows which pixel centres
         lie inside, spares evaluating ``phi`` at every pixel: it is read only
         at the pixels next to the mask's boundary (and must agree in sign
-        there).
+        there). ``features``: the image's
+        :func:`~engine.image.features.compute_features` at the front's
+        ``edge_sigma`` and ``edge_contrast``, when the caller keeps them for
+        several fronts on one image (every constructor takes it).
 
         Every constructor takes ``nodes``: ``"lattice"`` (default; ``detail``
         lattice nodes per pixel) or ``"scattered"`` (2-D or 3-D, detail 1; in 3-D the front must not
@@ -165,7 +171,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(image, shape, spacing, model, detail, params,
                             {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
-                            where="Front.from_function()")
+                            where="Front.from_function()", features=features)
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:
             values = np.asarray(phi(points_mm), dtype=float).reshape(-1)
@@ -184,10 +190,10 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
     def from_seeds(cls, image: ArrayLike, seeds: Sequence[Sequence[float]], *, spacing: ArrayLike | None = None,
                    model: str = "region", detail: int = 1, nodes: str = "lattice", finest: float | None = None,
                    coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
-                   **params: object) -> "Front":
+                   features: ImageFeatures | None = None, **params: object) -> "Front":
         """Front starting from seed disks ``(row, col, radius_px)`` (3-D: ``(slice, row, col, r)``).
 
-        ``nodes``, ``finest``, ``coarsest``, ``node_set``: see :meth:`from_function`.
+        ``nodes``, ``finest``, ``coarsest``, ``node_set``, ``features``: see :meth:`from_function`.
         """
         img = np.asarray(image, dtype=float)
         seeds_arr = validate_seeds(seeds, img.shape)
@@ -196,7 +202,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params,
                             {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
-                            where="Front.from_seeds()")
+                            where="Front.from_seeds()", features=features)
         if estimate:
             front._swap(params=front.params.updated(window=estimate_window(front.features.smoothed, seeds_arr)))
         front._initialise(seed_function(seeds_arr, front.features.spacing))
@@ -206,10 +212,10 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
     def from_mask(cls, image: ArrayLike, mask: ArrayLike, *, spacing: ArrayLike | None = None,
                   model: str = "region", detail: int = 1, nodes: str = "lattice", finest: float | None = None,
                   coarsest: float | None = None, node_set: ScatteredNodeSet | None = None,
-                  **params: object) -> "Front":
+                  features: ImageFeatures | None = None, **params: object) -> "Front":
         """Front whose initial inside is the boolean ``mask`` (outline through pixel edges).
 
-        ``nodes``, ``finest``, ``coarsest``, ``node_set``: see :meth:`from_function`.
+        ``nodes``, ``finest``, ``coarsest``, ``node_set``, ``features``: see :meth:`from_function`.
         """
         img = np.asarray(image, dtype=float)
         m = np.asarray(mask, dtype=bool)
@@ -223,20 +229,21 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
         half = 0.5 * float(np.min(sp))
         pixel_phi = np.where(m, -(inside - half), outside - half)
         return cls.from_pixel_phi(img, pixel_phi, spacing=spacing, model=model, detail=detail, nodes=nodes,
-                                  finest=finest, coarsest=coarsest, node_set=node_set, **params)
+                                  finest=finest, coarsest=coarsest, node_set=node_set, features=features, **params)
 
     @classmethod
     def from_pixel_phi(cls, image: ArrayLike, pixel_phi: ArrayLike, *, spacing: ArrayLike | None = None,
                        model: str = "region", detail: int = 1, window_from: ArrayLike | None = None,
                        nodes: str = "lattice", finest: float | None = None, coarsest: float | None = None,
-                       node_set: ScatteredNodeSet | None = None, **params: object) -> "Front":
+                       node_set: ScatteredNodeSet | None = None, features: ImageFeatures | None = None,
+                       **params: object) -> "Front":
         """Front whose initial zero set is that of ``pixel_phi`` (mm, negative inside), one value per pixel.
 
         Between pixel centres the values are interpolated linearly; near the
         zero set they should be close to a signed distance. With the
         ``window`` model and no ``window`` given, the window is estimated from
         the pixels of the boolean ``window_from`` (default: the initial inside).
-        ``nodes``, ``finest``, ``coarsest``, ``node_set``: see :meth:`from_function`.
+        ``nodes``, ``finest``, ``coarsest``, ``node_set``, ``features``: see :meth:`from_function`.
         """
         img = np.asarray(image, dtype=float)
         values = np.asarray(pixel_phi, dtype=float)
@@ -251,7 +258,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
             params = dict(params, window=(0.0, 1.0))
         front = cls._create(img, None, spacing, model, detail, params,
                             {"nodes": nodes, "finest": finest, "coarsest": coarsest, "node_set": node_set},
-                            where="Front.from_pixel_phi()")
+                            where="Front.from_pixel_phi()", features=features)
         sp = front.features.spacing
 
         def oracle(points_mm: NDArray[np.floating]) -> NDArray[np.floating]:

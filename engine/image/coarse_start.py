@@ -64,14 +64,25 @@ def resolvable_factor(inside: NDArray[np.bool_], spacing: NDArray[np.floating], 
 
 
 def block_mean(image: NDArray[np.floating], factor: int) -> NDArray[np.floating]:
-    """Mean over ``factor`` × ``factor`` blocks; the last partial blocks repeat the edge pixels."""
+    """Mean over ``factor`` × ``factor`` blocks; the last partial blocks repeat the edge pixels.
+
+    Summed axis by axis, the last first, from strided slices (a reduction
+    over the axes of a reshaped view is ten times slower): the same sums
+    in the same order as numpy's mean in 2-D for blocks up to 4 pixels,
+    equal to rounding otherwise.
+    """
     img = np.asarray(image, dtype=float)
     pad = [(0, (-n) % factor) for n in img.shape]
-    padded = np.pad(img, pad, mode="edge")
-    shape = []
-    for n in padded.shape:
-        shape += [n // factor, factor]
-    return padded.reshape(shape).mean(axis=tuple(range(1, 2 * img.ndim, 2)))
+    out = np.pad(img, pad, mode="edge") if any(after for _, after in pad) else img
+    if factor == 1:
+        return out.copy()
+    for axis in reversed(range(img.ndim)):
+        lead = (slice(None),) * axis
+        total = out[lead + (slice(0, None, factor),)] + out[lead + (slice(1, None, factor),)]
+        for offset in range(2, factor):
+            total += out[lead + (slice(offset, None, factor),)]
+        out = total
+    return out / factor ** img.ndim
 
 
 def to_coarse(points_px: NDArray[np.floating], factor: int) -> NDArray[np.floating]:

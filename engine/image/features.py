@@ -108,6 +108,27 @@ def robust_scale(image: NDArray[np.floating]) -> float:
     return scale if scale > 0 else 1.0
 
 
+def check_features(features: ImageFeatures, image: NDArray[np.floating], spacing: NDArray[np.floating], *,
+                   sigma_mm: float, contrast: float | None) -> ImageFeatures:
+    """``features`` when they are :func:`compute_features` of ``image`` at ``spacing``, ``sigma_mm`` and ``contrast``.
+
+    Raises ``ValueError`` naming ``features`` otherwise (another image, spacing, smoothing or edge contrast).
+    """
+    if not isinstance(features, ImageFeatures):
+        raise ValueError(f"features: expected ImageFeatures, got {type(features).__name__}")
+    same_image = features.image is image or (features.image.shape == np.shape(image)
+                                              and np.array_equal(features.image, image))
+    if not same_image:
+        raise ValueError("features: they were computed from another image")
+    if not np.array_equal(features.spacing, spacing):
+        raise ValueError(f"features: computed at spacing {tuple(features.spacing)}, not {tuple(spacing)}")
+    if features.sigma_mm != float(sigma_mm) or features.contrast_given != (None if contrast is None
+                                                                            else float(contrast)):
+        raise ValueError(f"features: computed with edge_sigma {features.sigma_mm} and edge_contrast "
+                         f"{features.contrast_given}, not {sigma_mm} and {contrast}")
+    return features
+
+
 def compute_features(
     image: ArrayLike, spacing: ArrayLike, *, sigma_mm: float = 1.0, contrast: float | None = None
 ) -> ImageFeatures:

@@ -102,24 +102,26 @@ def thin_midline(inside: NDArray[np.bool_], spacing: NDArray[np.floating]) -> ND
     R. L. Kashyap, C.-N. Chu, CVGIP: Graphical Models and Image Processing
     56(6) (1994) 462-478.
     """
-    from skimage.morphology import skeletonize
-
     full = np.asarray(inside, dtype=bool)
     out = np.zeros(full.shape, dtype=bool)
     if not full.any():
         return out
-    nz = np.nonzero(full)
-    box = tuple(slice(max(int(a.min()) - 1, 0), int(a.max()) + 2) for a in nz)
-    m = full[box]
-    sp = np.asarray(spacing, dtype=float)
-    inner = tuple(slice(1, -1) for _ in range(m.ndim))
-    depth = ndimage.distance_transform_edt(np.pad(m, 1), sampling=sp / float(np.min(sp)))[inner]
+    box = []
+    for axis in range(full.ndim):
+        along = np.flatnonzero(np.any(full, axis=tuple(j for j in range(full.ndim) if j != axis)))
+        box.append(slice(max(int(along[0]) - 1, 0), int(along[-1]) + 2))
+    m = full[tuple(box)]
     radius = int(np.ceil(THIN_HALF_WIDTH))
     ball = np.sqrt(np.sum((np.indices((2 * radius + 1,) * m.ndim) - radius) ** 2, axis=0)) <= radius
     wide = tuple(slice(radius + 1, -radius - 1) for _ in range(m.ndim))
     residue = m & ~ndimage.binary_opening(np.pad(m, radius + 1), structure=ball)[wide]
-    if not residue.any():
+    if not residue.any():  # nothing is thin (most outlines): the distances and the skeleton are not needed
         return out
+    from skimage.morphology import skeletonize
+
+    sp = np.asarray(spacing, dtype=float)
+    inner = tuple(slice(1, -1) for _ in range(m.ndim))
+    depth = ndimage.distance_transform_edt(np.pad(m, 1), sampling=sp / float(np.min(sp)))[inner]
     midline = skeletonize(residue) & (depth <= THIN_HALF_WIDTH)
     if not midline.any():
         return out
@@ -127,7 +129,7 @@ def thin_midline(inside: NDArray[np.bool_], spacing: NDArray[np.floating]) -> ND
     sizes = np.bincount(labels.ravel(), minlength=count + 1)
     long_runs = sizes >= THIN_LENGTH
     long_runs[0] = False
-    out[box] = long_runs[labels]
+    out[tuple(box)] = long_runs[labels]
     return out
 
 

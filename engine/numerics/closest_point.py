@@ -101,7 +101,7 @@ def closest_points(
     converged = np.zeros(len(x), dtype=bool)
     iterations = 0  # Newton steps taken (by the slowest point)
     eye = np.eye(dim)[None]
-    for _ in range(max_iter):
+    for iteration in range(max_iter):
         ia = np.flatnonzero(active)
         if len(ia) == 0:
             break
@@ -128,7 +128,9 @@ def closest_points(
         done = norm < tol
         converged[ia[done]] = True
         active[ia[done]] = False
-        value[ia], grad[ia], hess[ia] = interp.evaluate(y[ia], coeffs)
+        going = ia[~done]  # (a converged point's φ and derivatives are not read again, nor any after the last step)
+        if len(going) and iteration + 1 < max_iter:
+            value[going], grad[going], hess[going] = interp.evaluate(y[going], coeffs)
     still = np.flatnonzero(~converged)
     if len(still):
         y[still] = _chopp_fallback(interp, coeffs, x[still], y[still], trust=trust, tol=tol)

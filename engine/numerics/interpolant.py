@@ -154,17 +154,25 @@ class LocalInterpolant:
         own = self.owners(q) if owners is None else owners
         delta = self.radius[own]
         xq = (q - self.points[self.owner_nodes[own]]) / delta[:, None]
+        dim = q.shape[1]
         if len(self.inverses) == 1:  # all stencils are translates: no gather needed
-            diff = xq[:, None, :] - self.scaled[0][None]
+            # axis by axis: a broadcast over the stencil with the short axis innermost is several times slower
+            shape = self.scaled[0]
+            diff = np.empty((len(q),) + shape.shape)
+            for i in range(dim):
+                np.subtract(xq[:, i, None], shape[None, :, i], out=diff[:, :, i])
         else:
             diff = xq[:, None, :] - self.scaled[own]  # (Q, n, d)
-        r2 = np.einsum("qnd,qnd->qn", diff, diff)
+        if dim == 2:  # the sum einsum takes, written out (the same rounding, a quarter of the time)
+            r2 = diff[:, :, 0] * diff[:, :, 0]
+            r2 += diff[:, :, 1] * diff[:, :, 1]
+        else:
+            r2 = np.einsum("qnd,qnd->qn", diff, diff)
         n = self.stencils.shape[1]
         coef = coefficients[own]
         alpha = coef[:, :n]
         beta = coef[:, n:]
         m = self.phs
-        dim = q.shape[1]
         poly = monomial_values(xq, self.exponents)
         r = np.sqrt(r2)
         value = np.einsum("qn,qn->q", alpha, _power(r, r2, m)) + np.einsum("qk,qk->q", beta, poly)

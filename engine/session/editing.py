@@ -50,7 +50,8 @@ class Editing:
             live = state.live
             has_seeds = live is not None and bool(live.seeds) and not live.vanished
             if (live is None or live.snapshot is None) and not has_seeds and (label, k) not in state.outlines:
-                front = fronts.start_from_stroke(self.image(k), pts, r, self.spacing, self.settings(label))
+                front = fronts.start_from_stroke(self.image(k), pts, r, self.spacing, self.settings(label),
+                                                 self.features(k, self.settings(label)))
                 self._adopt(front, state, label, k)
                 after = replace(state, live=LiveState(label, k, origin="stroke", snapshot=front.snapshot(),
                                                       front_id=self._front_id))
@@ -153,7 +154,7 @@ class Editing:
             if from_slice == k:
                 raise ValueError("carry: the target slice is the outline's own slice")
             settings = self.settings(label)
-            front = fronts.start_from_outline(self.image(k), source, self.spacing, settings)
+            front = fronts.start_from_outline(self.image(k), source, self.spacing, settings, self.features(k, settings))
             self._adopt(front, state, label, k)
             new_live = LiveState(label, k, origin="carry", snapshot=front.snapshot(), front_id=self._front_id)
             self._push(f"Carry from slice {from_slice}", "carry", replace(state, live=new_live), label=label,

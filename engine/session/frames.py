@@ -30,7 +30,7 @@ class Publishing:
                     vanished=live.vanished, running=running, undo_index=self._stack.index,
                     steps_per_s=self._frame.steps_per_s if rate is None else rate)
         if front is None and self._grower is not None:
-            self._frame = self._growth_frame(base, running)
+            self._frame = self._growth_frame(base, running, refine)
             return
         if front is None:
             self._frame = Frame(**base, stage="seeds" if not live.vanished else "vanished",
@@ -52,12 +52,12 @@ class Publishing:
                             area_mm2=area, perimeter_mm=perimeter, converged=bool(front.converged),
                             stage="evolving" if running else "paused")
 
-    def _growth_frame(self, base: dict[str, Any], running: bool) -> Frame:
-        """A frame of the flood (the pixels it has taken, outlined along their edges)."""
+    def _growth_frame(self, base: dict[str, Any], running: bool, refine: bool) -> Frame:
+        """A frame of the flood (the pixels it has taken, outlined along their edges), or of the front built from it."""
         from engine.analysis.contours import polyline_length, signed_area
 
         grower = self._grower
-        contours = tuple(frozen_array(c, float) for c in grower.contours())
+        contours = tuple(frozen_array(c, float) for c in grower.contours(refine=refine))
         sp = np.asarray(self.spacing)
         area = float(sum(signed_area(c * sp) for c in contours))
         perimeter = float(sum(polyline_length(c * sp) for c in contours))

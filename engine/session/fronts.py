@@ -25,6 +25,7 @@ from scipy import ndimage
 
 from engine.front import Front, FrontSnapshot
 from engine.front.geometry import stroke_distance
+from engine.image.features import ImageFeatures
 from engine.segmenter import EXACT_WITHIN, Segmenter
 from engine.session.outline import Outline
 from engine.session.settings import FrontSettings
@@ -69,21 +70,23 @@ def _front_kwargs(settings: FrontSettings) -> dict[str, Any]:
 
 
 def start_from_seeds(image: NDArray[np.floating], seeds: Sequence[Sequence[float]], spacing: Sequence[float],
-                     settings: FrontSettings) -> Front:
-    """A front grown from seed disks ``(row, col, radius_px)`` with ``settings``."""
-    return Front.from_seeds(image, [tuple(s) for s in seeds], spacing=spacing, **_front_kwargs(settings))
+                     settings: FrontSettings, features: ImageFeatures | None = None) -> Front:
+    """A front grown from seed disks ``(row, col, radius_px)`` with ``settings`` (``features``: the image's, kept)."""
+    return Front.from_seeds(image, [tuple(s) for s in seeds], spacing=spacing, features=features,
+                            **_front_kwargs(settings))
 
 
 def grow_from_seeds(image: NDArray[np.floating], seeds: Sequence[Sequence[float]], spacing: Sequence[float],
-                    settings: FrontSettings, barrier: NDArray[np.bool_] | None = None) -> Segmenter:
+                    settings: FrontSettings, barrier: NDArray[np.bool_] | None = None,
+                    features: ImageFeatures | None = None) -> Segmenter:
     """A :class:`engine.segmenter.Segmenter` from seed disks ``(row, col, radius_px)``: the flood first
     (region and window models), then the front from its outline, as :func:`engine.segment.segment` does."""
     return Segmenter(image, [tuple(s) for s in seeds], spacing=spacing, max_steps=settings.max_steps,
-                     barrier=barrier, **_front_kwargs(settings))
+                     barrier=barrier, features=features, **_front_kwargs(settings))
 
 
 def start_from_outline(image: NDArray[np.floating], outline: Outline, spacing: Sequence[float],
-                       settings: FrontSettings) -> Front:
+                       settings: FrontSettings, features: ImageFeatures | None = None) -> Front:
     """A front whose zero set is a committed outline (its stored φ), e.g. on the next slice when carried."""
     sp = np.asarray(spacing, dtype=float)
     far = 3.0 * float(np.max(sp)) * 10
@@ -98,11 +101,12 @@ def start_from_outline(image: NDArray[np.floating], outline: Outline, spacing: S
     # the stored φ is the committed front's signed distance: only the nodes near its zero set
     # need Newton closest points (for all nodes they would be most of a carry's time)
     return Front.from_function(phi, image.shape, image=image, spacing=sp, signed_distance=True,
-                               exact_within=EXACT_WITHIN * float(np.max(sp)), **kwargs)
+                               exact_within=EXACT_WITHIN * float(np.max(sp)), features=features, **kwargs)
 
 
 def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floating], radius_mm: float,
-                      spacing: Sequence[float], settings: FrontSettings) -> Front:
+                      spacing: Sequence[float], settings: FrontSettings, features: ImageFeatures | None = None
+                      ) -> Front:
     """A front whose inside is the area a brush stroke sweeps (a disk around every point of its polyline)."""
     sp = np.asarray(spacing, dtype=float)
     pts_mm = stroke_points_mm(points_px, sp, radius_mm)
@@ -110,7 +114,7 @@ def start_from_stroke(image: NDArray[np.floating], points_px: NDArray[np.floatin
     if settings.model == "window" and "window" not in settings.front_params:
         kwargs["window"] = window_for_mask(image, sp, stroke_mask(image.shape, points_px, radius_mm, sp))
     return Front.from_function(lambda mm: stroke_distance(mm, pts_mm, radius_mm), image.shape, image=image,
-                               spacing=sp, signed_distance=False, **kwargs)
+                               spacing=sp, signed_distance=False, features=features, **kwargs)
 
 
 def window_for_mask(image: NDArray[np.floating], spacing: Sequence[float], mask: NDArray[np.bool_]
@@ -124,7 +128,7 @@ def window_for_mask(image: NDArray[np.floating], spacing: Sequence[float], mask:
 
 
 def restore_front(image: NDArray[np.floating], snapshot: FrontSnapshot, spacing: Sequence[float],
-                  settings: FrontSettings) -> Front:
+                  settings: FrontSettings, features: ImageFeatures | None = None) -> Front:
     """A new front object in the state ``snapshot`` (started from the snapshot's inside, then restored)."""
     shape = np.shape(image)
     inside = snapshot.inside
@@ -132,8 +136,8 @@ def restore_front(image: NDArray[np.floating], snapshot: FrontSnapshot, spacing:
     if not inside.any() or inside.all():
         inside = np.zeros(shape, dtype=bool)
         inside[shape[0] // 2, shape[1] // 2] = True
-    front = Front.from_mask(image, inside, spacing=spacing, **dict(kwargs, window=snapshot.params.window)
-                            if settings.model == "window" else kwargs)
+    front = Front.from_mask(image, inside, spacing=spacing, features=features,
+                            **dict(kwargs, window=snapshot.params.window) if settings.model == "window" else kwargs)
     front.restore(snapshot)
     return front
 

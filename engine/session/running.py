@@ -58,9 +58,10 @@ class Running:
             if live.snapshot is None:
                 if not live.seeds:
                     raise ValueError("the front vanished and has no seeds to start again from")
-                self._grower = fronts.grow_from_seeds(self.image(live.slice), live.seeds, self.spacing,
-                                                      self.settings(live.label),
-                                                      barrier=self._barrier(before, live.label, live.slice))
+                settings = self.settings(live.label)
+                self._grower = fronts.grow_from_seeds(self.image(live.slice), live.seeds, self.spacing, settings,
+                                                      barrier=self._barrier(before, live.label, live.slice),
+                                                      features=self.features(live.slice, settings))
             self._run_settings = self.settings(live.label)
             self._running = True
             t0 = time.perf_counter()
@@ -189,7 +190,8 @@ class Running:
             live = self.live
             phi = front.pixel_phi()
             rebuilt = Front.from_pixel_phi(self.image(live.slice), phi, spacing=self.spacing, model=new.model,
-                                           detail=new.detail, **new.front_params)
+                                           detail=new.detail, features=self.features(live.slice, new),
+                                           **new.front_params)
             rebuilt.steps, rebuilt.time = front.steps, front.time
             self._adopt(rebuilt, self._stack.state, live.label, live.slice)
             return

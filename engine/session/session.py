@@ -36,6 +36,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from engine.front import Front
 from engine.io.sidecar import OKABE_ITO, utc_now
+from engine.image.features import ImageFeatures, compute_features
 from engine.io.volume import Volume
 from engine.segmenter import Segmenter
 from engine.session import fronts
@@ -80,6 +81,7 @@ class Session(Running, Editing, Publishing):
         self._frame = Frame(0)
         self._hidden: frozenset[int] = frozenset()
         self._images: dict[int, NDArray[np.floating]] = {}
+        self._features: dict[tuple[int, float, float | None], ImageFeatures] = {}
         self._default_settings = FrontSettings()
         self._run_settings: FrontSettings | None = None  # settings changed during a run
         self.curvature_colours = False
@@ -149,8 +151,24 @@ class Session(Running, Editing, Publishing):
             img = np.asarray(self.volume.array[k], dtype=float)
             if len(self._images) > 8:
                 self._images.clear()
+                self._features.clear()
             self._images[k] = img
         return img
+
+    def features(self, slice_index: int, settings: FrontSettings | None = None) -> ImageFeatures:
+        """The image features of slice ``slice_index`` at the edge scale and contrast of ``settings``.
+
+        Cached with the slice (:meth:`image`): every front started on the
+        slice shares them (the smoothed image and its spline coefficients).
+        """
+        image = self.image(slice_index)
+        params = (settings or self._default_settings).resolved()
+        key = (self._check_slice(slice_index), float(params.edge_sigma), params.edge_contrast)
+        found = self._features.get(key)
+        if found is None:
+            found = self._features[key] = compute_features(image, np.asarray(self.spacing, dtype=float),
+                                                           sigma_mm=params.edge_sigma, contrast=params.edge_contrast)
+        return found
 
     def outlines(self, slice_index: int | None = None, label: int | None = None) -> tuple[Outline, ...]:
         """Committed outlines on a slice (all slices when None), optionally of one label, in label order."""
@@ -328,7 +346,8 @@ class Session(Running, Editing, Publishing):
         front = self._fronts.get(live.front_id)
         if front is None:
             settings = state.settings.get(live.label, self._default_settings)
-            front = fronts.restore_front(self.image(live.slice), live.snapshot, self.spacing, settings)
+            front = fronts.restore_front(self.image(live.slice), live.snapshot, self.spacing, settings,
+                                         self.features(live.slice, settings))
             self._fronts.put(live.front_id, front)
         else:
             front.restore(live.snapshot)
@@ -363,9 +382,10 @@ class Session(Running, Editing, Publishing):
             return state
         settings = self.settings(label)
         if live is not None and live.seeds and not live.vanished:
-            front = fronts.start_from_seeds(self.image(k), live.seeds, self.spacing, settings)
+            front = fronts.start_from_seeds(self.image(k), live.seeds, self.spacing, settings, self.features(k, settings))
         elif (label, k) in state.outlines:
-            front = fronts.start_from_outline(self.image(k), state.outlines[(label, k)], self.spacing, settings)
+            front = fronts.start_from_outline(self.image(k), state.outlines[(label, k)], self.spacing, settings,
+                                              self.features(k, settings))
             live = LiveState(label, k, origin="outline")
         else:
             raise ValueError(f"nothing to {action}: {self._name(label)} has no outline or front on slice {k}")
