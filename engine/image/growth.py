@@ -28,8 +28,9 @@ the contrast away hides in the noise of single pixels, not in that average.
 Where the smoothing hides the middle of a strip two or three pixels wide, the
 means of the unsmoothed image along short segments through a pixel (the best
 of ``LINE_DIRECTIONS``) stand in for it, in thin parts only (Ricci &
-Perfetti 2007); pixels more than half inside along some segment join those
-within ``BRIDGE_REACH`` steps (hysteresis, Canny 1986), which carries the
+Perfetti 2007); pixels more than half inside along some segment and mostly
+outside across it join those within ``BRIDGE_REACH`` steps (hysteresis,
+Canny 1986), which carries the
 flood along a strip at an angle to the pixel axes, whose middle passes the
 segments' test on pieces joined through corners.
 
@@ -124,10 +125,14 @@ LINE_SHARE = 0.5
 #: pixels, whose segments across the gap still average well inside.
 OWN_PIXEL = -0.5
 #: Region speed of a segment's mean (more than half the way from the outside to the inside) at which a pixel
-#: within BRIDGE_REACH face steps of pixels that pass the segments' test joins them (through such pixels).
+#: within BRIDGE_REACH face steps of pixels that pass the segments' test joins them (a gap of two pixels in
+#: a strip's middle is bridged from both sides; more lets the flood creep along the blurred rim of an organ).
 BRIDGE_SPEED = 0.0
-BRIDGE_REACH = LINE_PIXELS // 2
-#: Side of the neighbourhood (pixels) in which such pixels must make up less than half.
+BRIDGE_REACH = 1
+#: Region speed that such a pixel's least segment mean must stay below: across a strip the segment is mostly
+#: outside (a quarter of the way at most), across an organ's rim it is half inside.
+ACROSS_SPEED = -0.5
+#: Side of the neighbourhood (pixels) in which such pixels and the flooded ones must make up less than half.
 BRIDGE_WINDOW = THIN_WINDOW + 2
 #: A pass that adds fewer pixels than this fraction of the region ends the flood.
 SETTLED = 0.002
@@ -406,7 +411,9 @@ class RegionGrowth:
                 line_speed = (2.0 * line - c_in - c_out) / contrast
                 own = (2.0 * raw - c_in - c_out) / contrast
                 along &= ~distinct | (clear & (line_speed >= CLEAR_INSIDE) & (own >= OWN_PIXEL))
-                bridging &= ~distinct | (clear & (line_speed >= BRIDGE_SPEED) & (own >= OWN_PIXEL))
+                across = (2.0 * np.where(c_in > c_out, lines[0], lines[1]) - c_in - c_out) / contrast
+                bridging &= ~distinct | (clear & (line_speed >= BRIDGE_SPEED) & (own >= OWN_PIXEL)
+                                         & (across <= ACROSS_SPEED))
             decided |= distinct
             weakest = np.where(distinct, np.minimum(weakest, np.abs(c_in - c_out)), weakest)
         homogeneous = np.abs(smooth - c_in) < HOMOGENEITY * noise
@@ -430,8 +437,7 @@ class RegionGrowth:
             # and alike the inside along that line (seeded region growing on the segments' means):
             # a neighbour a tenth of the contrast away is not, though it lies well beyond CLEAR_INSIDE
             line = lines[1] if inside_mean > outside_mean else lines[0]
-            line_noise = max(noise, self.noise / np.sqrt(LINE_PIXELS))
-            along &= np.abs(line - c_in) < HOMOGENEITY * line_noise
+            along &= np.abs(line - c_in) < HOMOGENEITY * max(noise, self.noise / np.sqrt(LINE_PIXELS))
             # only in thin parts: where the segments' test holds over less than half of the pixel's
             # 7 × 7 neighbourhood (a strip 2-3 px wide), not across a whole neighbouring tissue
             along &= decided
@@ -439,11 +445,13 @@ class RegionGrowth:
             along &= ndimage.uniform_filter((along & ~region).astype(float), size=THIN_WINDOW, mode="nearest") < 0.5
             # where noise dims a strip, or it runs at an angle to the pixel axes, the segments' test may hold
             # on pieces of its middle joined only through corners or short gaps: pixels more than half
-            # inside along some direction join them within BRIDGE_REACH face steps (hysteresis, the low
-            # bar reached only from pixels past the high one; Canny 1986), in thin parts only (less than half
-            # of a BRIDGE_WINDOW² neighbourhood: a strip 3 px wide at an angle, not a neighbouring tissue)
+            # inside along some direction and mostly outside across it join them within BRIDGE_REACH face
+            # steps (hysteresis, the low bar reached only from pixels past the high one; Canny 1986), in
+            # thin parts only (with the flooded pixels, less than half of a BRIDGE_WINDOW² neighbourhood:
+            # a strip 3 px wide at an angle, not a neighbouring tissue)
             bridging &= decided
-            bridging &= ndimage.uniform_filter(bridging.astype(float), size=BRIDGE_WINDOW, mode="nearest") < 0.5
+            bridging &= ndimage.uniform_filter((bridging | region).astype(float), size=BRIDGE_WINDOW,
+                                               mode="nearest") < 0.5
             accept |= ndimage.binary_dilation(along, iterations=BRIDGE_REACH, mask=bridging) | along
         accept = np.where(decided, accept, homogeneous)
         # a pixel on an edge steeper than twice the weakest contrast around the region (where
