@@ -82,12 +82,36 @@ def test_a_noisy_thin_strip_fills_or_is_not_called_converged() -> None:
     assert not result.converged or _far_end_filled(result.mask, case)
 
 
-@pytest.mark.xfail(strict=True, reason="at SNR 5 a 2 px strip at 25° (another noise draw) still stops a "
-                   "few pixels in, at detail 2, reported converged (Dice 0.79, the tip at column 59 of 211)")
 def test_a_noisy_thin_strip_at_an_angle_fills_or_is_not_called_converged() -> None:
+    # Another noise draw at 25°: the middle of a 2 px strip at an angle passes the segments' test
+    # only on a chain of pixels joined through corners; before the flood bridged such steps it
+    # stopped at the strip's mouth and the front rested there, converged (Dice 0.79).
     case = gp.strip(2.0, angle=25.0, noise=0.2, seed=2)
     result = segment(case.image, [case.seed], spacing=case.spacing, max_steps=3000)
     assert not result.converged or _far_end_filled(result.mask, case)
+
+
+#: Draws of the noisy strip family.
+STRIP_DRAWS = 10
+
+
+@pytest.mark.slow
+def test_noisy_thin_strips_at_angles_fill_or_are_not_called_converged() -> None:
+    # A seeded family: strips 2-3 px wide, 10-25° off the pixel axes, SNR 3-5 (noise a third to a
+    # fifth of the contrast), the seed disk moved up to 5 px from the attached disk's centre.
+    rng = np.random.default_rng(2026)
+    scores, false_rests = [], []
+    for _ in range(STRIP_DRAWS):
+        width = float(rng.choice([2.0, 3.0]))
+        case = gp.strip(width, angle=float(rng.uniform(10.0, 25.0)), noise=1.0 / float(rng.uniform(3.0, 5.0)),
+                        seed=int(rng.integers(1 << 16)))
+        turn, reach = rng.uniform(0.0, 2.0 * np.pi), rng.uniform(0.0, 5.0)
+        seed = (case.seed[0] + reach * np.sin(turn), case.seed[1] + reach * np.cos(turn), float(rng.uniform(3.0, 5.0)))
+        result = segment(case.image, [seed], spacing=case.spacing, max_steps=1500)
+        scores.append(dice(result.mask, case.truth))
+        false_rests.append(result.converged and not _far_end_filled(result.mask, case))
+    assert not any(false_rests), f"converged short of the strip's end: {false_rests}, Dice {np.round(scores, 4)}"
+    assert np.percentile(scores, 10) >= 0.95, f"Dice {np.round(scores, 4).tolist()}"
 
 
 def test_noise_only_image_stops_within_its_budget_unconverged() -> None:

@@ -25,6 +25,15 @@ Where most of a pixel's neighbourhood is alike, it must also be alike in
 the image averaged over ``CALM_SMOOTHING`` pixels: a neighbour a tenth of
 the contrast away hides in the noise of single pixels, not in that average.
 
+Where the smoothing hides the middle of a strip two or three pixels wide, the
+means of the unsmoothed image along short segments through a pixel (the best
+of ``LINE_DIRECTIONS``) stand in for it, in thin parts only (Ricci &
+Perfetti 2007); pixels more than half inside along some segment and mostly
+outside across it join those within ``BRIDGE_REACH`` steps (hysteresis,
+Canny 1986), which carries the
+flood along a strip at an angle to the pixel axes, whose middle passes the
+segments' test on pieces joined through corners.
+
 Means are local (Gaussian-weighted, the radius of the region model's local
 statistics); a smooth bias field slows the flood (the local mean lags
 behind it) and the level set finishes. Pixels connect through faces only (a
@@ -57,6 +66,9 @@ References
 .. [5] E. Ricci, R. Perfetti, "Retinal blood vessel segmentation using line
    operators and support vector classification", IEEE Trans. Med. Imaging
    26(10) (2007) 1357-1365 (mean intensity along oriented line segments).
+.. [6] J. Canny, "A computational approach to edge detection", IEEE Trans.
+   Pattern Anal. Mach. Intell. 8(6) (1986) 679-698 (hysteresis: a low bar
+   reached only through pixels connected to ones past a high bar).
 """
 
 from __future__ import annotations
@@ -102,7 +114,7 @@ MIXTURE = 3.0
 MAX_PASSES = 40
 #: Pixels (odd) of the segments whose means find strips thinner than the pass's smoothing, and their directions.
 LINE_PIXELS = 9
-LINE_DIRECTIONS = 8
+LINE_DIRECTIONS = 16
 #: Side of the neighbourhood (pixels) in which the segments' test must hold on less than half the pixels.
 THIN_WINDOW = 7
 #: Share of a side's contrast that the segments' noise at MARGIN deviations must stay within for them to count
@@ -112,6 +124,16 @@ LINE_SHARE = 0.5
 #: outside to the inside): a gap of background between two parts of the structure is a line of outside
 #: pixels, whose segments across the gap still average well inside.
 OWN_PIXEL = -0.5
+#: Region speed of a segment's mean (more than half the way from the outside to the inside) at which a pixel
+#: within BRIDGE_REACH face steps of pixels that pass the segments' test joins them (a gap of two pixels in
+#: a strip's middle is bridged from both sides; more lets the flood creep along the blurred rim of an organ).
+BRIDGE_SPEED = 0.0
+BRIDGE_REACH = 1
+#: Region speed that such a pixel's least segment mean must stay below: across a strip the segment is mostly
+#: outside (a quarter of the way at most), across an organ's rim it is half inside.
+ACROSS_SPEED = -0.5
+#: Side of the neighbourhood (pixels) in which such pixels and the flooded ones must make up less than half.
+BRIDGE_WINDOW = THIN_WINDOW + 2
 #: A pass that adds fewer pixels than this fraction of the region ends the flood.
 SETTLED = 0.002
 #: Half-side (pixels) of the box around each seed whose wavelet coefficients give the noise.
@@ -365,6 +387,7 @@ class RegionGrowth:
         weakest = np.full(smooth.shape, np.inf)  # the least contrast to a distinct side
         lines = self._line_means(box, smoothing)
         along = np.ones(smooth.shape, dtype=bool)  # clearly inside along some direction, against every side
+        bridging = np.ones(smooth.shape, dtype=bool)  # more than half inside along some direction, against every side
         for side in (-1.0, 1.0):
             # what borders the region on this side of its intensity (darker, brighter), beyond noise
             far = np.sign(outside_mean - inside_mean) != side
@@ -385,8 +408,12 @@ class RegionGrowth:
                 # only against a side whose contrast the segments' noise cannot mimic (a weak edge
                 # at a tenth of the contrast is left to the tests above)
                 clear = LINE_SHARE * np.abs(c_in - c_out) >= MARGIN * self.noise / np.sqrt(LINE_PIXELS)
-                along &= ~distinct | (clear & ((2.0 * line - c_in - c_out) / contrast >= CLEAR_INSIDE)
-                                      & ((2.0 * raw - c_in - c_out) / contrast >= OWN_PIXEL))
+                line_speed = (2.0 * line - c_in - c_out) / contrast
+                own = (2.0 * raw - c_in - c_out) / contrast
+                along &= ~distinct | (clear & (line_speed >= CLEAR_INSIDE) & (own >= OWN_PIXEL))
+                across = (2.0 * np.where(c_in > c_out, lines[0], lines[1]) - c_in - c_out) / contrast
+                bridging &= ~distinct | (clear & (line_speed >= BRIDGE_SPEED) & (own >= OWN_PIXEL)
+                                         & (across <= ACROSS_SPEED))
             decided |= distinct
             weakest = np.where(distinct, np.minimum(weakest, np.abs(c_in - c_out)), weakest)
         homogeneous = np.abs(smooth - c_in) < HOMOGENEITY * noise
@@ -405,6 +432,7 @@ class RegionGrowth:
             calm_alike = ~wide | (np.abs(calm - _local_mean(calm, core, radius_px)) < tolerance)
             homogeneous &= calm_alike
             along &= calm_alike  # a weak neighbour is told apart on the calm scale, along any line or not
+            bridging &= calm_alike
         if lines is not None:
             # and alike the inside along that line (seeded region growing on the segments' means):
             # a neighbour a tenth of the contrast away is not, though it lies well beyond CLEAR_INSIDE
@@ -413,7 +441,18 @@ class RegionGrowth:
             # only in thin parts: where the segments' test holds over less than half of the pixel's
             # 7 × 7 neighbourhood (a strip 2-3 px wide), not across a whole neighbouring tissue
             along &= decided
-            accept |= along & (ndimage.uniform_filter(along.astype(float), size=THIN_WINDOW, mode="nearest") < 0.5)
+            # (the flooded pixels do not count: the mouth of a strip leaving a flooded part is thin too)
+            along &= ndimage.uniform_filter((along & ~region).astype(float), size=THIN_WINDOW, mode="nearest") < 0.5
+            # where noise dims a strip, or it runs at an angle to the pixel axes, the segments' test may hold
+            # on pieces of its middle joined only through corners or short gaps: pixels more than half
+            # inside along some direction and mostly outside across it join them within BRIDGE_REACH face
+            # steps (hysteresis, the low bar reached only from pixels past the high one; Canny 1986), in
+            # thin parts only (with the flooded pixels, less than half of a BRIDGE_WINDOW² neighbourhood:
+            # a strip 3 px wide at an angle, not a neighbouring tissue)
+            bridging &= decided
+            bridging &= ndimage.uniform_filter((bridging | region).astype(float), size=BRIDGE_WINDOW,
+                                               mode="nearest") < 0.5
+            accept |= ndimage.binary_dilation(along, iterations=BRIDGE_REACH, mask=bridging) | along
         accept = np.where(decided, accept, homogeneous)
         # a pixel on an edge steeper than twice the weakest contrast around the region (where
         # nothing is distinct yet: the contrast found around the first region) is a mixture of
@@ -444,22 +483,23 @@ class RegionGrowth:
         half = LINE_PIXELS // 2
         wide = tuple(slice(max(s.start - half, 0), min(s.stop + half, n)) for s, n in zip(box, self.image.shape))
         # the box and LINE_PIXELS // 2 pixels around it (repeating the image's edge beyond it)
-        padded = np.pad(self.image[wide], [(half - (s.start - w.start), half - (w.stop - s.stop))
-                                           for s, w in zip(box, wide)], mode="edge")
+        # (single precision: a mean of LINE_PIXELS values needs no more, and the sums run twice as fast)
+        padded = np.pad(self.image[wide].astype(np.float32), [(half - (s.start - w.start), half - (w.stop - s.stop))
+                                                              for s, w in zip(box, wide)], mode="edge")
         rows, cols = box[0].stop - box[0].start, box[1].stop - box[1].start
-        low = np.full((rows, cols), np.inf)
-        high = np.full((rows, cols), -np.inf)
+        low = np.full((rows, cols), np.inf, dtype=np.float32)
+        high = np.full((rows, cols), -np.inf, dtype=np.float32)
+        total = np.empty((rows, cols), dtype=np.float32)
         offsets = np.arange(-half, half + 1)
         for angle in np.arange(LINE_DIRECTIONS) * np.pi / LINE_DIRECTIONS:
             dr = np.rint(offsets * np.sin(angle)).astype(int)
             dc = np.rint(offsets * np.cos(angle)).astype(int)
-            total = np.zeros((rows, cols))
+            total.fill(0.0)
             for r, c in zip(dr, dc):
-                total += padded[half + r:half + r + rows, half + c:half + c + cols]
-            total /= LINE_PIXELS
+                np.add(total, padded[half + r:half + r + rows, half + c:half + c + cols], out=total)
             np.minimum(low, total, out=low)
             np.maximum(high, total, out=high)
-        return low, high
+        return low.astype(float) / LINE_PIXELS, high.astype(float) / LINE_PIXELS
 
     def _fill_inside_holes(self) -> NDArray[np.bool_]:
         """The region with its enclosed holes that the two-phase model clearly calls inside filled.
