@@ -356,12 +356,13 @@ class RegionGrowth:
             values = smooth[core]
             noise = max(noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
         radius_px = self.local_radius_mm / self.spacing
-        c_in = _local_mean(smooth, core, radius_px)
+        core_weight = _gaussian_sum(core.astype(float), radius_px)  # shared by the pass's and the calm mean
+        c_in = _local_mean(smooth, core, radius_px, weight=core_weight)
         outside_mean = float(smooth[~region].mean()) if (~region).any() else float(smooth.mean())
         inside_mean = float(smooth[core].mean())
         accept = np.ones(smooth.shape, dtype=bool)
         decided = np.zeros(smooth.shape, dtype=bool)
-        ring_weight = _local_mean(smooth, ring, radius_px, weights=True)[1]
+        ring_weight = _gaussian_sum(ring.astype(float), radius_px)
         weakest = np.full(smooth.shape, np.inf)  # the least contrast to a distinct side
         lines = self._line_means(box, smoothing)
         along = np.ones(smooth.shape, dtype=bool)  # clearly inside along some direction, against every side
@@ -402,7 +403,7 @@ class RegionGrowth:
             # only where most of the pixel's 5 × 5 neighbourhood is alike: the average of a strip a few
             # pixels wide takes in its background, and the strip would stop at its first narrowing
             wide = ndimage.uniform_filter(homogeneous.astype(float), size=5, mode="nearest") >= WIDE_SHARE
-            calm_alike = ~wide | (np.abs(calm - _local_mean(calm, core, radius_px)) < tolerance)
+            calm_alike = ~wide | (np.abs(calm - _local_mean(calm, core, radius_px, weight=core_weight)) < tolerance)
             homogeneous &= calm_alike
             along &= calm_alike  # a weak neighbour is told apart on the calm scale, along any line or not
         if lines is not None:
@@ -501,13 +502,7 @@ class RegionGrowth:
                        ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
         """The region without its rim, and the ring of outside pixels beyond the rim (as the local statistics)."""
         rim = self.rim_mm + 2.0 * smoothing * float(np.min(self.spacing))
-        depth_in = ndimage.distance_transform_edt(region, sampling=self.spacing)
-        core = region & (depth_in > rim)
-        if not core.any():
-            core = region
-        depth_out = ndimage.distance_transform_edt(~region, sampling=self.spacing)
-        ring = (depth_out > rim) & (depth_out <= rim + self.ring_mm)
-        return core, ring
+        return _core_and_ring_of(region, self.spacing, rim, rim + self.ring_mm)
 
     def _choose_smoothing(self) -> None:
         """The least smoothing at which a quarter of the contrast around the first region spans MARGIN noise deviations."""
@@ -525,29 +520,62 @@ class RegionGrowth:
                 break
 
 
-def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px: NDArray[np.floating], *,
-                weights: bool = False):
-    """Gaussian-weighted mean of ``values`` over ``mask`` around every pixel (normalised convolution).
+def _core_and_ring_of(region: NDArray[np.bool_], spacing: NDArray[np.floating], rim: float, outer: float
+                      ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
+    """The pixels of ``region`` deeper than ``rim`` (mm; all of it if none is), and the outside pixels beyond
+    ``rim`` and within ``outer`` of it.
 
-    Where the mask has no weight nearby the mean of the whole mask stands in.
-    With ``weights`` the normalising weight is returned too. For radii of
-    several pixels the two Gaussian sums are taken on a grid of blocks
-    (about a third of the radius a side) and interpolated back: they are
-    smooth on that scale, and the passes over a 1024² image cost a quarter.
+    The two distance transforms run on the region's bounding box only: one
+    pixel wider for the depth inside (the nearest outside pixel of a pixel
+    in the box is never farther than one on that margin), ``outer`` wider
+    for the distance outside (farther pixels are beyond ``outer``). The
+    distances are those of the transforms on the whole array.
     """
-    m = mask.astype(float)
+    nz = [np.flatnonzero(np.any(region, axis=tuple(j for j in range(region.ndim) if j != i)))
+          for i in range(region.ndim)]
+    if any(len(a) == 0 for a in nz):
+        return region, np.zeros_like(region)
+    reach = np.ceil(outer / spacing).astype(int) + 1
+    inner = tuple(slice(max(int(a[0]) - 1, 0), min(int(a[-1]) + 2, n)) for a, n in zip(nz, region.shape))
+    wide = tuple(slice(max(int(a[0]) - r, 0), min(int(a[-1]) + r + 1, n))
+                 for a, r, n in zip(nz, reach, region.shape))
+    core = np.zeros_like(region)
+    core[inner] = region[inner] & (ndimage.distance_transform_edt(region[inner], sampling=spacing) > rim)
+    if not core.any():
+        core = region
+    depth_out = ndimage.distance_transform_edt(~region[wide], sampling=spacing)
+    ring = np.zeros_like(region)
+    ring[wide] = (depth_out > rim) & (depth_out <= outer)
+    return core, ring
+
+
+def _gaussian_sum(values: NDArray[np.floating], radius_px: NDArray[np.floating]) -> NDArray[np.floating]:
+    """Gaussian-weighted sum of ``values`` around every pixel, as :func:`_local_mean` takes it."""
     radius = np.asarray(radius_px, dtype=float)
     block = max(1, int(np.min(radius) // 3))
     if block > 1 and min(values.shape) >= 4 * block:
         from engine.image.coarse_start import block_mean
 
-        small_w = ndimage.gaussian_filter(block_mean(m, block), radius / block, mode="constant")
-        small_s = ndimage.gaussian_filter(block_mean(values * m, block), radius / block, mode="constant")
-        w = _upsample_linear(small_w, block, values.shape)
-        s = _upsample_linear(small_s, block, values.shape)
-    else:
-        w = ndimage.gaussian_filter(m, radius, mode="constant")
-        s = ndimage.gaussian_filter(values * m, radius, mode="constant")
+        return _upsample_linear(ndimage.gaussian_filter(block_mean(values, block), radius / block, mode="constant"),
+                                block, values.shape)
+    return ndimage.gaussian_filter(values, radius, mode="constant")
+
+
+def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px: NDArray[np.floating], *,
+                weights: bool = False, weight: NDArray[np.floating] | None = None):
+    """Gaussian-weighted mean of ``values`` over ``mask`` around every pixel (normalised convolution).
+
+    Where the mask has no weight nearby the mean of the whole mask stands in.
+    With ``weights`` the normalising weight is returned too; ``weight``
+    gives it (``_gaussian_sum`` of the mask, shared by means over one mask).
+    For radii of several pixels the two Gaussian sums are taken on a grid
+    of blocks (about a third of the radius a side) and interpolated back:
+    they are smooth on that scale, and the passes over a 1024² image cost a
+    quarter.
+    """
+    m = mask.astype(float)
+    w = _gaussian_sum(m, radius_px) if weight is None else weight
+    s = _gaussian_sum(values * m, radius_px)
     fallback = float(values[mask].mean()) if mask.any() else float(values.mean())
     mean = np.where(w > 1e-6, s / np.maximum(w, 1e-12), fallback)
     return (mean, w) if weights else mean
