@@ -69,6 +69,7 @@ from scipy import ndimage
 
 from engine.front.constants import SIDE_SHARE
 from engine.front.geometry import seed_disks
+from engine.image.ring_statistics import core_and_ring
 
 #: Models the flood serves (it follows their inside test).
 GROWTH_MODELS = ("region", "window")
@@ -502,7 +503,8 @@ class RegionGrowth:
                        ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
         """The region without its rim, and the ring of outside pixels beyond the rim (as the local statistics)."""
         rim = self.rim_mm + 2.0 * smoothing * float(np.min(self.spacing))
-        return _core_and_ring_of(region, self.spacing, rim, rim + self.ring_mm)
+        core, ring = core_and_ring(region, self.spacing, rim=rim, outer=rim + self.ring_mm)
+        return (core if core.any() else region), ring
 
     def _choose_smoothing(self) -> None:
         """The least smoothing at which a quarter of the contrast around the first region spans MARGIN noise deviations."""
@@ -518,35 +520,6 @@ class RegionGrowth:
             if self.noise * smoothing_factor(self._sigma_px(s)) * MARGIN <= 0.25 * self.contrast:
                 self.smoothing = s
                 break
-
-
-def _core_and_ring_of(region: NDArray[np.bool_], spacing: NDArray[np.floating], rim: float, outer: float
-                      ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
-    """The pixels of ``region`` deeper than ``rim`` (mm; all of it if none is), and the outside pixels beyond
-    ``rim`` and within ``outer`` of it.
-
-    The two distance transforms run on the region's bounding box only: one
-    pixel wider for the depth inside (the nearest outside pixel of a pixel
-    in the box is never farther than one on that margin), ``outer`` wider
-    for the distance outside (farther pixels are beyond ``outer``). The
-    distances are those of the transforms on the whole array.
-    """
-    nz = [np.flatnonzero(np.any(region, axis=tuple(j for j in range(region.ndim) if j != i)))
-          for i in range(region.ndim)]
-    if any(len(a) == 0 for a in nz):
-        return region, np.zeros_like(region)
-    reach = np.ceil(outer / spacing).astype(int) + 1
-    inner = tuple(slice(max(int(a[0]) - 1, 0), min(int(a[-1]) + 2, n)) for a, n in zip(nz, region.shape))
-    wide = tuple(slice(max(int(a[0]) - r, 0), min(int(a[-1]) + r + 1, n))
-                 for a, r, n in zip(nz, reach, region.shape))
-    core = np.zeros_like(region)
-    core[inner] = region[inner] & (ndimage.distance_transform_edt(region[inner], sampling=spacing) > rim)
-    if not core.any():
-        core = region
-    depth_out = ndimage.distance_transform_edt(~region[wide], sampling=spacing)
-    ring = np.zeros_like(region)
-    ring[wide] = (depth_out > rim) & (depth_out <= outer)
-    return core, ring
 
 
 def _gaussian_sum(values: NDArray[np.floating], radius_px: NDArray[np.floating]) -> NDArray[np.floating]:
