@@ -1,4 +1,4 @@
-"""The region statistics' shortcuts give what scipy's whole-array operations give, bit for bit.
+"""The region statistics' shortcuts (and the flood's 3 × 3 extremes) give what scipy's whole-array operations give, bit for bit.
 
 Reference: scipy.ndimage (``distance_transform_edt``, Maurer et al. 2003;
 ``gaussian_filter``) on the whole array. Seeded random families of regions
@@ -68,3 +68,15 @@ def test_gaussian_at_equals_the_whole_array_filter(seed: int) -> None:
 def test_gaussian_at_refuses_integer_values() -> None:
     with pytest.raises(ValueError, match="values"):
         gaussian_at(np.zeros((4, 4), dtype=int), 1.0, (np.array([0]), np.array([0])))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_the_floods_neighbourhood_extremes_equal_scipys_size_3_filters(seed: int) -> None:
+    from engine.image.growth import _extreme3
+
+    rng = np.random.default_rng(200 + seed)
+    ndim = 2 if seed < 4 else 3
+    shape = tuple(int(n) for n in rng.integers(1, 60 if ndim == 2 else 20, size=ndim))
+    values = rng.standard_normal(shape)
+    np.testing.assert_array_equal(_extreme3(values, np.maximum), ndimage.maximum_filter(values, size=3))
+    np.testing.assert_array_equal(_extreme3(values, np.minimum), ndimage.minimum_filter(values, size=3))

@@ -421,7 +421,7 @@ class RegionGrowth:
         # nothing is distinct yet: the contrast found around the first region) is a mixture of
         # two other tissues (the rim of a bone in soft tissue passes through the organ's
         # value): left to the level set
-        spread = ndimage.maximum_filter(smooth, size=3) - ndimage.minimum_filter(smooth, size=3)
+        spread = _extreme3(smooth, np.maximum) - _extreme3(smooth, np.minimum)
         steep = spread > 2.0 * np.where(np.isfinite(weakest), weakest, self.contrast) + 2.0 * MIXTURE * noise
         return accept & ~steep
 
@@ -554,6 +554,25 @@ def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px
     return (mean, w) if weights else mean
 
 
+def _extreme3(values: NDArray[np.floating], extreme: np.ufunc) -> NDArray[np.floating]:
+    """Greatest (``np.maximum``) or least (``np.minimum``) value of each pixel's 3 × 3 (3-D: 3 × 3 × 3) neighbourhood.
+
+    As ``ndimage.maximum_filter`` / ``minimum_filter`` with ``size=3`` give
+    it (the edge pixel stands for the one beyond it), axis by axis on
+    shifted views: a sixth of their time.
+    """
+    out = values
+    for axis in range(values.ndim):
+        if values.shape[axis] < 2:
+            continue
+        before = tuple(slice(None, -1) if j == axis else slice(None) for j in range(values.ndim))
+        after = tuple(slice(1, None) if j == axis else slice(None) for j in range(values.ndim))
+        source, out = out, out.copy()
+        extreme(out[after], source[before], out=out[after])  # with the neighbour before
+        extreme(out[before], source[after], out=out[before])  # and the one after
+    return out
+
+
 def _upsample_linear(small: NDArray[np.floating], block: int, shape: tuple[int, ...]) -> NDArray[np.floating]:
     """Values of a block grid (block i centred on pixel block·i + (block − 1)/2) at every pixel, linearly, axis by axis."""
     out = small
@@ -562,7 +581,12 @@ def _upsample_linear(small: NDArray[np.floating], block: int, shape: tuple[int, 
         low = np.floor(position).astype(np.int64)
         high = np.minimum(low + 1, out.shape[axis] - 1)
         weight = (position - low).reshape([-1 if j == axis else 1 for j in range(out.ndim)])
-        out = np.take(out, low, axis=axis) * (1.0 - weight) + np.take(out, high, axis=axis) * weight
+        lower = np.take(out, low, axis=axis)  # (the products and their sum in place: no temporaries)
+        lower *= 1.0 - weight
+        upper = np.take(out, high, axis=axis)
+        upper *= weight
+        lower += upper
+        out = lower
     return out
 
 
