@@ -1,4 +1,4 @@
-"""The region statistics' shortcuts (and the flood's 3 × 3 extremes) give what scipy's whole-array operations give, bit for bit.
+"""The region statistics' shortcuts, the flood's 3 × 3 extremes and hole filling equal scipy's whole-array results.
 
 Reference: scipy.ndimage (``distance_transform_edt``, Maurer et al. 2003;
 ``gaussian_filter``) on the whole array. Seeded random families of regions
@@ -56,6 +56,8 @@ def test_gaussian_at_equals_the_whole_array_filter(seed: int) -> None:
     sigma = rng.uniform(0.3, 7.0, size=ndim)
     if seed == 4:
         sigma[0] = 0.0  # an axis left unfiltered
+    if seed == 5:
+        sigma[-1] = 0.0  # the last axis left unfiltered
     count = int(rng.integers(0, 200))
     flat = np.unique(rng.integers(0, values.size, size=count))
     pixels = np.unravel_index(flat, shape)
@@ -80,3 +82,20 @@ def test_the_floods_neighbourhood_extremes_equal_scipys_size_3_filters(seed: int
     values = rng.standard_normal(shape)
     np.testing.assert_array_equal(_extreme3(values, np.maximum), ndimage.maximum_filter(values, size=3))
     np.testing.assert_array_equal(_extreme3(values, np.minimum), ndimage.minimum_filter(values, size=3))
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_the_floods_hole_filling_on_its_box_equals_scipys_on_the_whole_array(seed: int) -> None:
+    from engine.image.growth import _fill_small_holes, _filled
+
+    rng = np.random.default_rng(300 + seed)
+    ndim = 2 if seed < 6 else 3
+    shape = tuple(int(n) for n in rng.integers(1, 70 if ndim == 2 else 25, size=ndim))
+    noise = ndimage.gaussian_filter(rng.standard_normal(shape), rng.uniform(0.5, 3.0))
+    inside = noise > np.quantile(noise, rng.uniform(0.2, 0.9)) if seed else np.zeros(shape, bool)
+    filled = ndimage.binary_fill_holes(inside)
+    np.testing.assert_array_equal(_filled(inside), filled)
+    labels, count = ndimage.label(filled & ~inside)
+    small = np.bincount(labels.ravel(), minlength=count + 1) < 6
+    small[0] = False
+    np.testing.assert_array_equal(_fill_small_holes(inside, 6), inside | small[labels])

@@ -178,7 +178,7 @@ def _linear_read_pixels(points: NDArray[np.floating], shape: tuple[int, ...]) ->
     for axis, n in enumerate(shape):
         low = np.floor(np.clip(points[axis], 0, n - 1)).astype(np.int64)
         corners.append((low, np.minimum(low + 1, n - 1)))
-    flat = []
+    read = np.zeros(shape, dtype=bool)
     for pick in np.ndindex(*(2,) * len(shape)):
-        flat.append(np.ravel_multi_index(tuple(corners[a][p] for a, p in enumerate(pick)), shape))
-    return np.unravel_index(np.unique(np.concatenate(flat)), shape)
+        read[tuple(corners[a][p] for a, p in enumerate(pick))] = True
+    return np.nonzero(read)

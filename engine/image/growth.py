@@ -476,7 +476,7 @@ class RegionGrowth:
         quarter node spacing a step. A hole of the outside's intensity (the
         middle of a ring) stays open.
         """
-        filled = ndimage.binary_fill_holes(self.inside)
+        filled = _filled(self.inside)
         holes = filled & ~self.inside
         if not holes.any():
             return self.inside
@@ -555,7 +555,7 @@ def _local_mean(values: NDArray[np.floating], mask: NDArray[np.bool_], radius_px
 
 
 def _extreme3(values: NDArray[np.floating], extreme: np.ufunc) -> NDArray[np.floating]:
-    """Greatest (``np.maximum``) or least (``np.minimum``) value of each pixel's 3 × 3 (3-D: 3 × 3 × 3) neighbourhood.
+    """Greatest (``np.maximum``) or least (``np.minimum``) value of each pixel's 3 × 3 (× 3) neighbourhood.
 
     As ``ndimage.maximum_filter`` / ``minimum_filter`` with ``size=3`` give
     it (the edge pixel stands for the one beyond it), axis by axis on
@@ -592,12 +592,36 @@ def _upsample_linear(small: NDArray[np.floating], block: int, shape: tuple[int, 
 
 def _fill_small_holes(inside: NDArray[np.bool_], limit: int) -> NDArray[np.bool_]:
     """``inside`` with its holes (enclosed outside components) smaller than ``limit`` pixels filled."""
-    filled = ndimage.binary_fill_holes(inside)
-    holes = filled & ~inside
+    box = _hole_box(inside)
+    part = inside[box]
+    holes = ndimage.binary_fill_holes(part) & ~part
     if not holes.any():
         return inside
     labels, count = ndimage.label(holes)
     sizes = np.bincount(labels.ravel(), minlength=count + 1)
     small = sizes < limit
     small[0] = False
-    return inside | small[labels]
+    out = inside.copy()
+    out[box] = part | small[labels]
+    return out
+
+
+def _filled(inside: NDArray[np.bool_]) -> NDArray[np.bool_]:
+    """``ndimage.binary_fill_holes(inside)``, filled on the bounding box of ``inside`` (see :func:`_hole_box`)."""
+    box = _hole_box(inside)
+    out = inside.copy()
+    out[box] = ndimage.binary_fill_holes(inside[box])
+    return out
+
+
+def _hole_box(inside: NDArray[np.bool_]) -> tuple[slice, ...]:
+    """The bounding box of ``inside`` one pixel wider (within the array): every hole lies in it.
+
+    Its margin is outside and reaches the array's side outside the box, so
+    the holes found in it are the holes of the whole array.
+    """
+    nz = [np.flatnonzero(np.any(inside, axis=tuple(j for j in range(inside.ndim) if j != i)))
+          for i in range(inside.ndim)]
+    if any(len(a) == 0 for a in nz):
+        return tuple(slice(0, 0) for _ in inside.shape)
+    return tuple(slice(max(int(a[0]) - 1, 0), min(int(a[-1]) + 2, n)) for a, n in zip(nz, inside.shape))

@@ -88,15 +88,12 @@ def gaussian_at(values: NDArray[np.floating], sigma: ArrayLike, pixels: tuple[ND
     impulse = np.zeros(2 * half + 1)
     impulse[half] = 1.0
     taps = ndimage.gaussian_filter1d(impulse, s[last], mode="constant")
-    n = values.shape[last]
-    at = list(pixels)
-    index = pixels[last]
-
-    def tap(offset: int) -> NDArray[np.float64]:
-        at[last] = np.clip(index + offset, 0, n - 1)
-        return partial[tuple(at)].astype(np.float64)
-
-    out = tap(0) * taps[half]
+    # each pixel's taps along the last axis, edge repeated (scipy's "nearest"), one row per tap
+    pad = [(0, 0)] * values.ndim
+    pad[last] = (half, half)
+    windows = np.lib.stride_tricks.sliding_window_view(np.pad(partial, pad, mode="edge"), 2 * half + 1, axis=last)
+    along = np.ascontiguousarray(windows[pixels].T, dtype=np.float64)
+    out = along[half] * taps[half]
     for j in range(half, 0, -1):
-        out += (tap(-j) + tap(j)) * taps[half - j]
+        out += (along[half - j] + along[half + j]) * taps[half - j]
     return out.astype(values.dtype, copy=False)
