@@ -12,6 +12,7 @@ from scipy import ndimage
 from engine.front.constants import (DEFAULT_LOCAL_RADIUS, LOCAL_CONTRAST, RIM_PIXELS, RING_PIXELS, SIDE_SHARE,
                                     SMALL_STRUCTURE)
 from engine.front.state import _locked
+from engine.image.ring_statistics import core_and_ring, gaussian_at
 from engine.image.thickness import half_width
 
 
@@ -121,31 +122,43 @@ class RegionStatistics:
         # leave out the blurred rim of the edge (partial volume plus smoothing)
         coarse = float(np.max(self.features.spacing))
         rim = RIM_PIXELS * coarse + 2.0 * self.features.sigma_mm  # mm
-        depth = ndimage.distance_transform_edt(~self._inside[box], sampling=self.features.spacing)
-        ring = (depth > rim) & (depth <= rim + RING_PIXELS * coarse)
+        core, ring = core_and_ring(self._inside[box], self.features.spacing, rim=rim,
+                                   outer=rim + RING_PIXELS * coarse)
         local = (px - lo).T
         b.local_in = np.full(len(px), c_in)
+        # The Gaussian sums are read at the ring's pixels and at the pixels around the layer nodes
+        # that the linear read-out takes: they are filtered there only (gaussian_at).
+        ring_px = np.nonzero(ring)
+        read_px = _linear_read_pixels(local, img.shape)
+
+        def at_nodes(values: NDArray[np.floating]) -> NDArray[np.floating]:
+            filtered = np.zeros(values.shape, dtype=values.dtype)
+            filtered[read_px] = gaussian_at(values, radius_px, read_px)
+            return ndimage.map_coordinates(filtered, local, order=1, mode="nearest")
+
         # ring pixels are told apart from the inside by the inside mean near them (the inside
         # without its rim, Gaussian weights; the global mean where there is too little of it):
         # a smooth bias field across a large structure is not taken for a neighbouring tissue
-        core = (ndimage.distance_transform_edt(self._inside[box], sampling=self.features.spacing) > rim).astype(float)
-        w_core = ndimage.gaussian_filter(core, radius_px, mode="nearest")
-        near_in = np.where(w_core > 0.05, ndimage.gaussian_filter(img * core, radius_px, mode="nearest")
-                           / np.maximum(w_core, 1e-12), c_in)
+        core = core.astype(float)
+        w_core = gaussian_at(core, radius_px, ring_px)
+        near_in = np.where(w_core > 0.05, gaussian_at(img * core, radius_px, ring_px) / np.maximum(w_core, 1e-12),
+                           c_in)
         # the outside on each side of the inside mean (darker, brighter), beyond noise:
         # a structure between a darker and a brighter tissue (an organ on bone in CT) is
         # held by both, where their mixed mean could lie on the inside's own side
-        w_ring = ndimage.map_coordinates(ndimage.gaussian_filter(ring.astype(float), radius_px, mode="nearest"),
-                                         local, order=1, mode="nearest")
+        w_ring = at_nodes(ring.astype(float))
         sides = []
         for side in (-1.0, 1.0):
             far = np.sign(c_out - c_in) != side
             need = max(3.0 * noise, LOCAL_CONTRAST * abs(c_in - c_out)) if far else 3.0 * noise
-            beyond = (ring & (side * (img - near_in) > need)).astype(float)
-            w_side = ndimage.gaussian_filter(beyond, radius_px, mode="nearest")
-            s_side = ndimage.gaussian_filter(img * beyond, radius_px, mode="nearest")
-            weight = ndimage.map_coordinates(w_side, local, order=1, mode="nearest")
-            mean = ndimage.map_coordinates(s_side, local, order=1, mode="nearest") / np.maximum(weight, 1e-12)
+            beyond_px = side * (img[ring_px] - near_in) > need
+            if not beyond_px.any():
+                sides.append(np.full(len(px), np.nan))  # no weight anywhere: not a distinct side
+                continue
+            beyond = np.zeros(img.shape)
+            beyond[tuple(i[beyond_px] for i in ring_px)] = 1.0
+            weight = at_nodes(beyond)
+            mean = at_nodes(img * beyond) / np.maximum(weight, 1e-12)
             # a side is a tissue where it makes up a good share of the ring, not where a few
             # pixels of the inside's own noise tail (or of a smooth bias) are beyond `need`
             distinct = (weight > 0.05) & (weight >= SIDE_SHARE * w_ring)
@@ -153,3 +166,19 @@ class RegionStatistics:
         first = np.where(np.isnan(sides[0]), sides[1], sides[0])
         other = np.where(np.isnan(sides[0]), np.nan, sides[1])
         b.local_out = np.stack([np.where(np.isnan(first), c_out, first), other])
+
+
+def _linear_read_pixels(points: NDArray[np.floating], shape: tuple[int, ...]) -> tuple[NDArray[np.int64], ...]:
+    """The pixels that ``ndimage.map_coordinates(..., order=1, mode="nearest")`` reads for ``points`` (one per row).
+
+    Each point's coordinate is clamped into the array, then the pixels at
+    its floor and the next one (clamped again) on every axis.
+    """
+    corners = []
+    for axis, n in enumerate(shape):
+        low = np.floor(np.clip(points[axis], 0, n - 1)).astype(np.int64)
+        corners.append((low, np.minimum(low + 1, n - 1)))
+    read = np.zeros(shape, dtype=bool)
+    for pick in np.ndindex(*(2,) * len(shape)):
+        read[tuple(corners[a][p] for a, p in enumerate(pick))] = True
+    return np.nonzero(read)

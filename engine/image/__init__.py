@@ -4,6 +4,7 @@
 - ``thickness``: local half-width of a structure behind its outline, thin runs of its midline
 - ``coarse_start``: block-averaged images, coarse seeds, cubic upsampling of a coarse φ
 - ``growth``: growth from a click, a pixel-level flood bounded by the speed model
+- ``ring_statistics``: a region's core and the ring beyond its rim, Gaussian sums read at a few pixels
 
 The names load on first use: the flood builds on the front, while the front
 reads this package's features, so an eager import here would be circular.
