@@ -275,7 +275,7 @@ class Evolution:
         b = self._band
         phi0 = self._phi
         layer = self._layer_derivatives(phi0)
-        speeds = self._speeds(phi0, layer[0])
+        speeds = self._speeds(phi0, *layer)
         self._last_kappa_max = 0.0
         r0 = self._full_rate(phi0, self._stage_speeds(speeds), layer, measure=True)
         kappa_max = self._last_kappa_max

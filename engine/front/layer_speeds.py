@@ -11,7 +11,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
-from engine.front.constants import LAYER_WIDTH, SMALL_STRUCTURE
+from engine.front.constants import LAYER_WIDTH, SHAPE_AVERAGING, SMALL_STRUCTURE
 from engine.front.speeds import NodeSpeeds, needed_features, node_speeds
 from engine.numerics.outline_averaging import average_along_outline
 
@@ -19,13 +19,17 @@ from engine.numerics.outline_averaging import average_along_outline
 class LayerSpeeds:
     """Part of :class:`~engine.front.Front` (see the module docstring)."""
 
-    def _speeds(self, phi: NDArray[np.floating], grad: NDArray[np.floating]) -> NodeSpeeds:
+    def _speeds(self, phi: NDArray[np.floating], grad: NDArray[np.floating],
+                hess: NDArray[np.floating] | None = None) -> NodeSpeeds:
         """Speeds at the layer nodes, with image features taken at their closest points.
 
-        ``grad`` (d, L) is the centred gradient at the layer nodes. For image-driven
-        models the normal speed is also taken half a node spacing inside and
-        outside the closest point; its slope along the normal (``slope``) lets
-        the step treat the speed's pull toward its zero linearly implicitly.
+        ``grad`` (d, L) and ``hess`` (d, d, L) are the centred derivatives at the layer
+        nodes. For image-driven models the normal speed is also taken half a node
+        spacing inside and outside the closest point; its slope along the normal
+        (``slope``) lets the step treat the speed's pull toward its zero linearly
+        implicitly. With ``hess`` the region and window models' smoothness is
+        kept off the outline's shape at the scales the averaged image speed
+        resolves (:meth:`_smooth_shape_speed`).
         """
         b = self._band
         names = needed_features(self.params.model, edge_weight=self.params.edge_weight)
@@ -68,6 +72,7 @@ class LayerSpeeds:
         v = all3.normal.reshape(3, count)
         a = all3.curvature[:count] if np.ndim(all3.curvature) else all3.curvature
         speed, slope = v[0], (v[2] - v[1]) / (2.0 * half)
+        scales = self._part_scales(closest_mm, normal, b.positions[act], g2 >= 0.25)
         if self.params.outline_averaging > 0:
             # nodes where φ has flattened (|∇φ| < ½, e.g. inside a small structure
             # long after its last reinitialisation) have no reliable closest point:
@@ -76,7 +81,45 @@ class LayerSpeeds:
             averaged = average_along_outline(np.column_stack([speed, slope]), b.positions[act],
                                              self._layer_pairs(), trusted, self.params.outline_averaging)
             speed, slope = averaged[:, 0], averaged[:, 1]
-        return NodeSpeeds(speed, a * self._part_scales(closest_mm, normal, b.positions[act], g2 >= 0.25), slope=slope)
+            if hess is not None and self.params.model in ("region", "window") and np.any(a != 0):
+                kappa = self._front_curvature(phi[act], grad, hess, measure=False)
+                shape = average_along_outline(kappa, b.positions[act], self._layer_pairs(), trusted,
+                                              SHAPE_AVERAGING * self.params.outline_averaging)
+                # a part of the outline held by pins or a barrier meets them at kinks the image
+                # speed never balances: its smoothness stays plain
+                labels, count = self._layer_parts()
+                held = np.bincount(labels, b.frozen[act] | b.barrier[act], minlength=count) > 0
+                speed = speed + np.where(held[labels], 0.0, self._smooth_shape_speed(a * scales, shape))
+        return NodeSpeeds(speed, a * scales, slope=slope)
+
+    @staticmethod
+    def _smooth_shape_speed(weight: NDArray[np.floating] | float,
+                            mean_curvature: NDArray[np.floating]) -> NDArray[np.floating]:
+        """The normal speed a·κ̄ that keeps the smoothness off the outline's shape at the averaged scales.
+
+        Curvature motion a·κ moves every part of the outline, and a resting
+        front sits where the image speed balances it, a·κ / (the speed's slope)
+        inside a convex boundary and outside a concave one: on a boundary with
+        lobes a few pixels across that is most of the outline's error. The
+        image speed is averaged along the outline (``outline_averaging``), so
+        it already fixes the outline's shape at scales coarser than that
+        average; what the smoothness must damp is the wiggle finer than it,
+        where the average leaves the image noise. Adding a·κ̄ to the normal
+        speed, κ̄ the curvature averaged along the outline with a Gaussian
+        SHAPE_AVERAGING times as wide (``mean_curvature``), turns the
+        smoothness into a·(κ − κ̄): a high-pass of the curvature that damps
+        fine wiggles as before and leaves the shape (a circle, an arm, a lobe
+        wider than the average) where the image puts it. This is Taubin's
+        smoothing without shrinkage (G. Taubin, "Curve and surface smoothing
+        without shrinkage", Proc. 5th ICCV (1995) 852-857): a smoothing
+        filter whose pass band keeps the low frequencies of the shape
+        unchanged. ``weight`` is the curvature coefficient a per layer node.
+
+        References
+        ----------
+        G. Taubin, Proc. 5th ICCV (1995) 852-857.
+        """
+        return weight * mean_curvature
 
     @property
     def smoothness_scale(self) -> float:
