@@ -89,12 +89,13 @@ class LayerSpeeds:
                 # speed never balances: its smoothness stays plain
                 labels, count = self._layer_parts()
                 held = np.bincount(labels, b.frozen[act] | b.barrier[act], minlength=count) > 0
-                speed = speed + np.where(held[labels], 0.0, self._smooth_shape_speed(a * scales, shape))
+                shape_speed = self._smooth_shape_speed(a * scales, shape, slope, self.h)
+                speed = speed + np.where(held[labels], 0.0, shape_speed)
         return NodeSpeeds(speed, a * scales, slope=slope)
 
     @staticmethod
-    def _smooth_shape_speed(weight: NDArray[np.floating] | float,
-                            mean_curvature: NDArray[np.floating]) -> NDArray[np.floating]:
+    def _smooth_shape_speed(weight: NDArray[np.floating] | float, mean_curvature: NDArray[np.floating],
+                            slope: NDArray[np.floating], spacing: float) -> NDArray[np.floating]:
         """The normal speed a·κ̄ that keeps the smoothness off the outline's shape at the averaged scales.
 
         Curvature motion a·κ moves every part of the outline, and a resting
@@ -113,13 +114,20 @@ class LayerSpeeds:
         smoothing without shrinkage (G. Taubin, "Curve and surface smoothing
         without shrinkage", Proc. 5th ICCV (1995) 852-857): a smoothing
         filter whose pass band keeps the low frequencies of the shape
-        unchanged. ``weight`` is the curvature coefficient a per layer node.
+        unchanged. Only the image can fix the shape: a·κ̄ is capped by what
+        the image speed gives back over one node spacing of the outline
+        (−``slope`` · ``spacing``, the speed's restoring fall along the
+        normal), so where the image speed is flat (a constant image, no
+        image force, pure noise) the plain smoothness acts and a front with
+        nothing to hold it still shrinks away. ``weight`` is the curvature
+        coefficient a per layer node.
 
         References
         ----------
         G. Taubin, Proc. 5th ICCV (1995) 852-857.
         """
-        return weight * mean_curvature
+        limit = np.maximum(-slope, 0.0) * spacing
+        return np.clip(weight * mean_curvature, -limit, limit)
 
     @property
     def smoothness_scale(self) -> float:
