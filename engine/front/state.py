@@ -55,7 +55,7 @@ class FrontState:
     phi: NDArray[np.floating]  # φ at them (mm, negative inside)
     phi_at_rebuild: NDArray[np.floating]  # |φ| when the band was last built
     inside: NDArray[np.bool_]  # per pixel: inside the front
-    sums: tuple[float, float, float, float]  # smoothed intensity and pixel count, inside then outside
+    sums: tuple[float, float, float, float]  # intensity sum and pixel count, inside then outside
     time: float
     steps: int
     converged: bool
@@ -71,6 +71,7 @@ class FrontState:
     rest_reinitialised: bool = False  # reinitialised once already at the present rest
     noise: float | None = None  # robust std of the smoothed intensities inside the initial front (region model)
     vanished: bool = False  # the zero set is gone: stepping only counts steps
+    rim: tuple[float, float, float, float] | None = None  # the same over the pixels the outline may cut
 
     def __post_init__(self) -> None:
         for f in fields(self):
