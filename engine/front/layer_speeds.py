@@ -11,7 +11,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 from scipy.spatial import cKDTree
 
-from engine.front.constants import LAYER_WIDTH, SHAPE_AVERAGING, SMALL_STRUCTURE
+from engine.front.constants import LAYER_WIDTH, SHAPE_AVERAGING, SHAPE_CONTRAST, SMALL_STRUCTURE
 from engine.front.speeds import NodeSpeeds, needed_features, node_speeds
 from engine.numerics.outline_averaging import average_along_outline
 
@@ -42,7 +42,7 @@ class LayerSpeeds:
         normal = (grad / np.sqrt(g2)).T
         closest_mm = b.positions[act] - (phi[act] / np.sqrt(g2))[:, None] * normal
         if self.params.model == "region" and b.local_in is not None:
-            c_in: NDArray[np.floating] | float = self.region_means()[0]
+            c_in: NDArray[np.floating] | float = self._inside_means_at_layer(self.region_means()[0])
             c_out: NDArray[np.floating] | float = b.local_out
         else:
             c_in, c_out = self.region_means()
@@ -66,8 +66,9 @@ class LayerSpeeds:
                 sampled[name] = self.features.sample(name, px)
         normals = np.concatenate([normal, normal, normal])
         c_out3 = np.tile(c_out, 3) if np.ndim(c_out) else c_out
+        c_in3 = np.tile(c_in, 3) if np.ndim(c_in) else c_in
         all3 = node_speeds(self.params, intensity=sampled.get("smoothed"), edge=sampled.get("edge"),
-                           edge_gradient=sampled.get("edge_gradient"), normal=normals, c_in=c_in, c_out=c_out3,
+                           edge_gradient=sampled.get("edge_gradient"), normal=normals, c_in=c_in3, c_out=c_out3,
                            sigma_mm=self.features.sigma_mm, count=3 * count)
         v = all3.normal.reshape(3, count)
         a = all3.curvature[:count] if np.ndim(all3.curvature) else all3.curvature
@@ -81,7 +82,7 @@ class LayerSpeeds:
             averaged = average_along_outline(np.column_stack([speed, slope]), b.positions[act],
                                              self._layer_pairs(), trusted, self.params.outline_averaging)
             speed, slope = averaged[:, 0], averaged[:, 1]
-            if hess is not None and self.params.model in ("region", "window") and np.any(a != 0):
+            if hess is not None and self._image_holds_shape() and np.any(a != 0):
                 kappa = self._front_curvature(phi[act], grad, hess, measure=False)
                 shape = average_along_outline(kappa, b.positions[act], self._layer_pairs(), trusted,
                                               SHAPE_AVERAGING * self.params.outline_averaging)
@@ -92,6 +93,24 @@ class LayerSpeeds:
                 shape_speed = self._smooth_shape_speed(a * scales, shape, slope, self.h)
                 speed = speed + np.where(held[labels], 0.0, shape_speed)
         return NodeSpeeds(speed, a * scales, slope=slope)
+
+    def _image_holds_shape(self) -> bool:
+        """Whether the image can fix the outline's shape: the smoothness then acts on κ − κ̄ (:meth:`_smooth_shape_speed`).
+
+        The window model: always (its window is set apart from the outside).
+        The region model: where its regions differ by at least SHAPE_CONTRAST
+        noise deviations (``noise``, of the smoothed image inside the first
+        front). On an image of noise alone the two means differ by less than
+        one: the speed's slopes there are the noise's, and a front they held
+        would come to rest on a noise blob.
+        """
+        if self.params.model == "window":
+            return True
+        if self.params.model != "region":
+            return False
+        c_in, c_out = self.region_means()
+        noise = self._noise if self._noise is not None else 0.0
+        return abs(c_in - c_out) >= SHAPE_CONTRAST * noise
 
     @staticmethod
     def _smooth_shape_speed(weight: NDArray[np.floating] | float, mean_curvature: NDArray[np.floating],

@@ -20,7 +20,7 @@ class RegionStatistics:
     """Part of :class:`~engine.front.Front` (see the module docstring)."""
 
     def _reset_sums(self) -> None:
-        img = self.features.image
+        img = self.features.smoothed
         inside = self._inside
         # the rim's sums follow at the next sync with φ (until then the means take every pixel)
         self._swap(sums=(float(img[inside].sum()), float(inside.sum()), float(img[~inside].sum()),
@@ -38,7 +38,7 @@ class RegionStatistics:
             self._swap(rim=rim)
             return
         idx = tuple(i[changed] for i in b.pixel_index)
-        vals = self.features.image[idx]
+        vals = self.features.smoothed[idx]
         gained = now[changed]
         delta_sum = float(vals[gained].sum() - vals[~gained].sum())
         delta_n = float(gained.sum() - (~gained).sum())
@@ -60,18 +60,29 @@ class RegionStatistics:
         return now
 
     def _rim_sums(self, values: NDArray[np.floating], inside: NDArray[np.bool_]) -> tuple[float, float, float, float]:
-        """Intensity sums and counts of the band's pixels the outline may cross, inside then outside.
+        """Smoothed-intensity sums and counts of the band's pixels in the outline's blurred rim, inside then outside.
 
-        A pixel whose centre lies within half its diagonal of the outline
-        (|φ| < ½‖spacing‖, φ a distance near the front) may be cut by it: its
-        value mixes both regions (partial volume). ``values`` is φ at the
+        A pixel whose centre lies within :meth:`_rim_reach` of the outline
+        (φ a distance near the front) reads a mixture of both regions: partial
+        volume over the pixel's box, then the smoothing. ``values`` is φ at the
         band's pixel centres, ``inside`` which of them are inside.
         """
-        reach = 0.5 * float(np.linalg.norm(self.features.spacing))
-        img = self.features.image[self._band.pixel_index]
+        reach = self._rim_reach()
+        img = self.features.smoothed[self._band.pixel_index]
         rim_in = inside & (values > -reach)
         rim_out = ~inside & (values < reach)
         return (float(img[rim_in].sum()), float(rim_in.sum()), float(img[rim_out].sum()), float(rim_out.sum()))
+
+    def _rim_reach(self) -> float:
+        """Width (mm) of the blurred rim on each side of the outline: half a pixel's diagonal plus one smoothing scale.
+
+        A pixel's box reaches half its diagonal from its centre; beyond that
+        and one smoothing scale σ a straight edge's smoothed profile is within
+        5 % of the region's own value (the Gaussian's tail beyond 1.6 σ of the
+        box-blurred step; common practice), so the mean is barely pulled and
+        a structure 6 px across still keeps a core.
+        """
+        return 0.5 * float(np.linalg.norm(self.features.spacing)) + self.features.sigma_mm
 
     def _pixel_band_values(self) -> NDArray[np.floating]:
         """φ at the band's pixel centres (``_band.pixel_index``)."""
@@ -79,25 +90,20 @@ class RegionStatistics:
 
     @_locked
     def region_means(self) -> tuple[float, float]:
-        """Mean intensity inside and outside the front, without the pixels the outline may cut.
+        """Mean smoothed intensity inside and outside the front, beyond the outline's blurred rim.
 
         The Chan–Vese means c_in, c_out are the regions' intensities (Chan &
         Vese 2001); the front rests where the image reads their midpoint. The
-        pixels the outline crosses hold a mixture of both (partial volume:
-        each pixel integrates the scene over its area), and taken in they pull
-        each mean toward the other and the outline off the boundary, the
-        more the larger the rim's share of the region: a 6 px wide
-        channel's outline sat 0.07 px outward. So each
-        mean is over the region's pixels whose box the outline cannot reach
-        (centre farther than half the pixel's diagonal from it:
-        :meth:`_rim_sums`); a region with no such pixel takes all of its
-        pixels. The means are of the image itself, whose edges are blurred
-        over one pixel only, not of the smoothed image (noise averages out in
-        a mean). Mixed pixels are left out of region statistics as in
-        partial-volume tissue classification (Shattuck, Sandor-Leahy,
-        Schaper, Rottenberg & Leahy, "Magnetic resonance image tissue
-        classification using a partial volume model", NeuroImage 13(5)
-        (2001) 856-876).
+        pixels near the outline hold a mixture of both (partial volume over
+        each pixel's box, then the smoothing), and taken in they pull each
+        mean toward the other and the outline off the boundary, the more the
+        larger the rim's share of the region: a 6 px wide channel's outline
+        sat 0.07 px outward. So each mean is over the region's pixels beyond
+        the rim (:meth:`_rim_reach`); a region with no such pixel takes all of its pixels
+        (:meth:`_all_pixel_means`). Mixed pixels are left out of region
+        statistics as in partial-volume tissue classification (Shattuck,
+        Sandor-Leahy, Schaper, Rottenberg & Leahy, NeuroImage 13(5) (2001)
+        856-876).
         """
         s_in, n_in, s_out, n_out = self._sums
         r_in, m_in, r_out, m_out = self._state.rim if self._state.rim is not None else (0.0, 0.0, 0.0, 0.0)
@@ -108,6 +114,29 @@ class RegionStatistics:
         c_in = s_in / n_in if n_in > 0 else 0.0
         c_out = s_out / n_out if n_out > 0 else 0.0
         return c_in, c_out
+
+    def _all_pixel_means(self) -> tuple[float, float]:
+        """Mean smoothed intensity over every pixel inside and outside the front, rim included."""
+        s_in, n_in, s_out, n_out = self._sums
+        return (s_in / n_in if n_in > 0 else 0.0, s_out / n_out if n_out > 0 else 0.0)
+
+    def _inside_means_at_layer(self, core: float) -> NDArray[np.floating] | float:
+        """The inside mean each layer node's speed compares with: ``core`` (:meth:`region_means`), or on thin runs every pixel's.
+
+        Along a run of the structure thinner than its blurred rim (a strip
+        or vessel a few pixels across: the thin runs of ``thickness``,
+        :func:`engine.image.thickness.half_width`) no pixel reaches the
+        core's intensity: blur and partial volume spread its signal over its
+        neighbours, and measured against the core's mean its noisy tip
+        reads as outside (a 2 px strip at SNR 3-4 came to rest 3 px short of
+        its end). Its nodes compare with the mean over every inside pixel,
+        the strip's own included. Elsewhere the core's mean holds.
+        """
+        b = self._band
+        reach = SMALL_STRUCTURE * (self.ndim - 1)
+        if b.thickness is None or len(b.thickness) != len(b.layer) or not np.any(b.thickness < reach):
+            return core
+        return np.where(b.thickness < reach, self._all_pixel_means()[0], core)
 
     def _update_layer_statistics(self) -> None:
         """What the layer's speeds read between refreshes: local region statistics, the structure's half-width."""
