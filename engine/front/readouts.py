@@ -5,6 +5,8 @@ Part of :class:`engine.front.Front` (see :mod:`engine.front.core`).
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.spatial import cKDTree
@@ -13,6 +15,9 @@ from engine.front.constants import FAR
 from engine.front.state import FrontVanished, _locked
 from engine.numerics.closest_point import closest_points
 from engine.numerics.interpolant import LocalInterpolant
+
+#: Offsets of a pixel's 3 × 3 neighbourhood.
+_NEIGHBOURS = np.stack(np.meshgrid([-1, 0, 1], [-1, 0, 1], indexing="ij"), axis=-1).reshape(-1, 2)
 
 
 class ReadOuts:
@@ -96,14 +101,34 @@ class ReadOuts:
             raise ValueError("contours() is for 2-D fronts; use surface() in 3-D")
         if self.vanished:
             return []
-        from engine.analysis.contours import band_contours
+        from engine.analysis.contours import BandCutWarning, band_contour_set
 
         nodes, values, detail = self.layout.contour_grid(self._band, self._phi)
-        lines = band_contours(nodes, values, detail=detail)
+        found = band_contour_set(nodes, values, detail=detail)
+        lines = found.polylines
+        cut = sum(1 for line, closed in zip(lines, found.closed) if not closed and not self._ends_on_border(line))
+        if cut:
+            warnings.warn(f"{cut} contour polyline(s) leave the band and are open; widen the band",
+                          BandCutWarning, stacklevel=2)
         if not refine or not lines:
             return lines
         interp, coeffs = self._interpolant()
         return refine_polylines(lines, interp, coeffs, self.features.spacing)
+
+    def _ends_on_border(self, line: NDArray[np.floating]) -> bool:
+        """Whether both ends of an open polyline (pixel coordinates) lie where an outline may stop.
+
+        That is within a pixel of the image's border, or of a barrier pixel
+        (a locked label's outline, which the band leaves out): there an open
+        outline is expected, elsewhere the band has cut it.
+        """
+        last = np.array(self.shape[:2], dtype=float) - 1.0
+        ends = line[[0, -1]]
+        at_border = np.any((ends < 1.0) | (ends > last - 1.0), axis=1)
+        if self._barrier is not None:
+            near = np.clip(np.rint(ends).astype(int)[:, None, :] + _NEIGHBOURS[None], 0, last.astype(int))
+            at_border |= np.any(self._barrier[near[..., 0], near[..., 1]], axis=1)
+        return bool(np.all(at_border))
 
     def _contour_set(self) -> tuple[list[NDArray[np.floating]], NDArray[np.bool_]]:
         """Refined contours and which are closed (open ones end on the image's border, or where the band is cut)."""
