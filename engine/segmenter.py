@@ -41,6 +41,7 @@ from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, bloc
                                        resolvable_factor, upsample_phi)
 from engine.image.features import ImageFeatures, check_features, compute_features
 from engine.image.growth import GROWTH_MODELS, RegionGrowth
+from engine.image.resolution import resolved_block
 from engine.image.statistics import estimate_window
 from engine.image.thickness import THIN_LENGTH, thin_length
 from engine.validation import (
@@ -124,6 +125,9 @@ class Segmenter:
         self._requested = None if coarse is None else int(coarse)
         self._asked_detail = detail  # the detail asked for, when the flood found a thin part and raised it
         self._factor = 1
+        # the pixel the image resolves, in pixels (engine.image.resolution): the fine front's tolerance is a
+        # fraction of it, since finer motion of the outline follows interpolated values, not detail
+        self._resolved = resolved_block(img, self._seeds[:, :-1]) if nodes == "lattice" else 1
         self._growth: RegionGrowth | None = None
         self._coarse: Front | None = None
         self._fine: Front | None = None
@@ -363,10 +367,16 @@ class Segmenter:
         self._extra_steps = coarse.steps
         self._start_fine(upsample_phi(coarse.pixel_phi(), self._factor, self._spacing))
 
+    def _fine_tolerance(self, asked: object) -> float:
+        """The fine front's ``convergence_tol`` (pixel spacings) for the one asked for: times the resolved block."""
+        tol = FrontParams().convergence_tol if asked is None else float(asked)  # type: ignore[arg-type]
+        return self._resolved * tol
+
     def _start_fine(self, start: Callable | None) -> None:
         """The full-resolution front: from the coarse φ (``start``), the flood's outline, or the seeds."""
         layout = {} if self._nodes == "lattice" else {"nodes": self._nodes}
         params = self._front_params()
+        params["convergence_tol"] = self._fine_tolerance(params.get("convergence_tol"))
         features = self._kept_features(FrontParams(model=self._model, **params))
         coarse_time = self._coarse.time if self._coarse is not None else 0.0
         if start is not None:
@@ -420,7 +430,10 @@ class Segmenter:
                 coarse_changes["convergence_tol"] = COARSE_TOL_FACTOR * float(coarse_changes["convergence_tol"])
             self._coarse.set_params(**coarse_changes)
         if self._fine is not None:
-            self._fine.set_params(**changes)
+            fine_changes = dict(changes)
+            if "convergence_tol" in fine_changes:
+                fine_changes["convergence_tol"] = self._fine_tolerance(fine_changes["convergence_tol"])
+            self._fine.set_params(**fine_changes)
             if self.stage == "done" and not self._fine.vanished:
                 self.stage = "fine"  # settle again under the new settings
 
@@ -501,6 +514,10 @@ class Segmenter:
             used["detail_requested"] = self._asked_detail
         if self._requested is not None and self._factor != self._requested:
             used["coarse_requested"] = self._requested
+        if self._resolved > 1:
+            # the tolerance asked for, and the block whose pixel it is a fraction of
+            used["convergence_tol"] = float(self._params.get("convergence_tol", FrontParams().convergence_tol))
+            used["resolved_block"] = self._resolved
         if self._growth is not None:
             used["growth"] = self._growth.record
         if self._nodes == "scattered":

@@ -1,0 +1,64 @@
+"""The block size an image resolves (engine.image.resolution) and the fine tolerance it sets."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import ndimage
+from skimage.draw import disk
+
+from engine.analysis.metrics import dice
+from engine.image.resolution import resolved_block
+from engine.segment import segment
+
+
+def _shaded_noise(rng: np.random.Generator, side: int) -> np.ndarray:
+    """White Gaussian noise on a smooth shading (a bias field), one of a seeded random family."""
+    rows, cols = np.mgrid[0:side, 0:side] / side
+    shading = 5.0 * np.sin(rng.uniform(1, 3) * rows + rng.uniform(0, 3)) * np.cos(rng.uniform(1, 3) * cols)
+    return 100.0 + shading + rng.normal(scale=rng.uniform(0.5, 3.0), size=(side, side))
+
+
+def test_white_noise_is_resolved_at_the_pixel() -> None:
+    # Mean of four independent values: its deviation is half a pixel's (common practice), so the
+    # Haar coefficients of the 2× block means vary half as much and the block stays 1.
+    rng = np.random.default_rng(12)
+    found = [resolved_block(_shaded_noise(rng, 512), rng.uniform(100, 400, size=(1, 2))) for _ in range(10)]
+    assert found == [1] * 10
+
+
+@pytest.mark.parametrize(("zoom", "native", "expected"), [(2, 128, 2), (4, 128, 4), (2, 256, 2)])
+def test_a_spline_zoomed_image_is_resolved_at_its_native_pixel(zoom: int, native: int, expected: int) -> None:
+    # scipy.ndimage.zoom with a cubic spline adds no detail finer than the native pixel: the
+    # finest coefficients fall far below those of the block means (family of 10 noise fields).
+    rng = np.random.default_rng(7 + zoom)
+    found = []
+    for _ in range(10):
+        image = ndimage.zoom(_shaded_noise(rng, native), zoom, order=3)
+        found.append(resolved_block(image, rng.uniform(0.3, 0.7, size=(1, 2)) * image.shape[0]))
+    assert found == [expected] * 10
+
+
+def test_the_block_keeps_the_smallest_side_of_a_coarse_start() -> None:
+    # A 160² image zoomed from 40² still works at full resolution: its block means would fall
+    # below MIN_COARSE_SIDE (96) pixels a side.
+    image = ndimage.zoom(_shaded_noise(np.random.default_rng(3), 40), 4, order=3)
+    assert resolved_block(image, [(80.0, 80.0)]) == 1
+
+
+def test_an_oversampled_slice_converges_at_a_fraction_of_its_native_pixel() -> None:
+    # A disk (radius 30 native px, contrast 1, noise 0.1) on a 128² grid, zoomed 2× by a cubic spline:
+    # the fine front's tolerance is the one asked for times the resolved block, both recorded, and the
+    # outline still matches the disk (Dice against the zoomed truth, skimage.draw.disk).
+    rng = np.random.default_rng(5)
+    native = np.zeros((128, 128))
+    native[disk((64, 60), 30, shape=native.shape)] = 1.0
+    native += rng.normal(scale=0.1, size=native.shape)
+    image = ndimage.zoom(native, 2, order=3)
+    truth = np.zeros(image.shape, dtype=bool)
+    truth[disk((128.5, 120.5), 60, shape=image.shape)] = True
+    result = segment(image, [(128.0, 120.0, 4.0)], spacing=(0.5, 0.5))
+    assert result.params["resolved_block"] == 2 and result.params["convergence_tol"] == 0.05
+    assert result.converged and dice(result.mask, truth) >= 0.98
+    plain = segment(native, [(64.0, 60.0, 4.0)], spacing=(1.0, 1.0))
+    assert "resolved_block" not in plain.params
