@@ -73,6 +73,26 @@ DEFAULT_MAX_STEPS = 20000
 LAYOUT_OPTIONS = ("finest", "coarsest", "node_set")
 
 
+def fine_tolerance(asked: object, block: int) -> float:
+    """The fine front's ``convergence_tol`` (pixel spacings) for the one ``asked`` for (None: the default).
+
+    The asked tolerance is a fraction of the pixel the image resolves
+    (:func:`engine.image.resolution.resolved_block`), ``block`` pixels a side.
+    """
+    tol = FrontParams().convergence_tol if asked is None else float(asked)  # type: ignore[arg-type]
+    return int(block) * tol
+
+
+def tolerance_block(used: float, asked: float) -> int:
+    """The block a front's tolerance ``used`` was scaled by from the one ``asked`` for (see :func:`fine_tolerance`).
+
+    The nearest power of two of their ratio (1 for a front no :class:`Segmenter` made).
+    """
+    if not (asked > 0 and used > 0):
+        raise ValueError(f"asked: tolerances must be positive, got used={used!r}, asked={asked!r}")
+    return max(1, int(2 ** round(float(np.log2(used / asked)))))
+
+
 class Segmenter:
     """Image and seeds to an outline, step by step (see module docstring).
 
@@ -369,8 +389,7 @@ class Segmenter:
 
     def _fine_tolerance(self, asked: object) -> float:
         """The fine front's ``convergence_tol`` (pixel spacings) for the one asked for: times the resolved block."""
-        tol = FrontParams().convergence_tol if asked is None else float(asked)  # type: ignore[arg-type]
-        return self._resolved * tol
+        return fine_tolerance(asked, self._resolved)
 
     def _start_fine(self, start: Callable | None) -> None:
         """The full-resolution front: from the coarse φ (``start``), the flood's outline, or the seeds."""

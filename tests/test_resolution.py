@@ -62,3 +62,37 @@ def test_an_oversampled_slice_converges_at_a_fraction_of_its_native_pixel() -> N
     assert result.converged and dice(result.mask, truth) >= 0.98
     plain = segment(native, [(64.0, 60.0, 4.0)], spacing=(1.0, 1.0))
     assert "resolved_block" not in plain.params
+
+
+def _zoomed_disk() -> tuple[np.ndarray, tuple[float, float, float]]:
+    """The disk of the test above (radius 30 native px, contrast 1, noise 0.1), zoomed 2× by a cubic spline."""
+    rng = np.random.default_rng(5)
+    native = np.zeros((128, 128))
+    native[disk((64, 60), 30, shape=native.shape)] = 1.0
+    native += rng.normal(scale=0.1, size=native.shape)
+    return ndimage.zoom(native, 2, order=3), (128.0, 120.0, 4.0)
+
+
+@pytest.mark.parametrize("detail", [1, 2], ids=["same detail", "new detail"])
+def test_a_later_tolerance_reaches_a_grown_front_times_the_resolved_block(detail: int) -> None:
+    # A front grown in a session from seeds (through the Segmenter) holds the asked tolerance times the
+    # resolved block (2 on this 2×-zoomed slice); a later change of the tolerance (with or without a new
+    # detail, which rebuilds the front) keeps that block, as segment() applies it, and so does a change
+    # of another setting while the tolerance is set, and going back to the default.
+    from engine.session import Session
+
+    image, seed = _zoomed_disk()
+    s = Session.from_array(image, spacing=(0.5, 0.5))
+    lab = s.add_label("structure").index
+    s.seed(*seed, label=lab, slice=0)
+    s.evolve(steps=4)  # the flood, then the front from it
+    assert s._front is not None and s._front.params.convergence_tol == pytest.approx(0.1)
+    s.set_params(convergence_tol=0.02, detail=detail)
+    assert s._front.params.convergence_tol == pytest.approx(0.04)
+    reference = segment(image, [seed], spacing=(0.5, 0.5), convergence_tol=0.02, max_steps=1)
+    assert reference.params["resolved_block"] == 2
+    assert 2 * reference.params["convergence_tol"] == pytest.approx(s._front.params.convergence_tol)
+    s.set_params(smoothness=0.3)
+    assert s._front.params.convergence_tol == pytest.approx(0.04)
+    s.set_params(convergence_tol=None)
+    assert s._front.params.convergence_tol == pytest.approx(0.1)

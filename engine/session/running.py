@@ -11,6 +11,7 @@ from dataclasses import replace
 from typing import Any
 
 from engine.front import Front
+from engine.segmenter import fine_tolerance, tolerance_block
 from engine.session import fronts
 from engine.session.settings import FrontSettings
 from engine.session.state import Frame, SessionState
@@ -186,12 +187,17 @@ class Running:
         if self._front is None and self._grower is not None:
             self._adopt_grown(self._stack.state)  # new settings during the flood: the front takes over now
         front = self._front
+        # a front grown from seeds converges at a fraction of the pixel the image resolves
+        # (engine.segmenter.fine_tolerance): its tolerance is the asked one times that block, and
+        # keeps that block under every later setting
+        block = tolerance_block(front.params.convergence_tol, old.resolved().convergence_tol)
+        tolerance = fine_tolerance(new.resolved().convergence_tol, block)
         if new.detail != old.detail:
             live = self.live
             phi = front.pixel_phi()
             rebuilt = Front.from_pixel_phi(self.image(live.slice), phi, spacing=self.spacing, model=new.model,
                                            detail=new.detail, features=self.features(live.slice, new),
-                                           **new.front_params)
+                                           **dict(new.front_params, convergence_tol=tolerance))
             rebuilt.steps, rebuilt.time = front.steps, front.time
             self._adopt(rebuilt, self._stack.state, live.label, live.slice)
             return
@@ -199,6 +205,8 @@ class Running:
         for key in old.front_params:
             if key not in params:  # back to the default
                 params[key] = getattr(type(front.params)(model=new.model), key)
+        if "convergence_tol" in params:
+            params["convergence_tol"] = tolerance
         front.set_params(model=new.model, **params)
 
 
