@@ -161,7 +161,7 @@ class Segmenter:
             self._growth = RegionGrowth(img, self._seeds, sp, model=model, window=self._params.get("window"),
                                         window_sigma_mm=settings.edge_sigma, local_radius_mm=radius,
                                         rim_mm=RIM_PIXELS * coarsest, ring_mm=RING_PIXELS * coarsest,
-                                        barrier=self._barrier)
+                                        barrier=self._barrier, resolved=self._resolved)
             self.stage = "growing"
         else:
             self.stage = "fine"

@@ -35,14 +35,17 @@ flood along a strip at an angle to the pixel axes, whose middle passes the
 segments' test on pieces joined through corners.
 
 Means are local (Gaussian-weighted, the radius of the region model's local
-statistics); a smooth bias field slows the flood (the local mean lags
+statistics; the rim and ring at least the block the image resolves wide,
+:func:`engine.image.resolution.resolved_block`); a smooth bias field slows the flood (the local mean lags
 behind it) and the level set finishes. Pixels connect through faces only (a
 one-pixel diagonal gap is not a path), and a pixel on an edge much steeper
 than the region's own contrast is a mixture of two other tissues and waits
 for the level set. Noise is the larger of the estimate from the finest
 diagonal wavelet coefficients near the seeds (Donoho & Johnstone 1994) and
-the spread of the seed's pixels and of what the region holds (noise
-correlated between pixels hides from the finest coefficients); the image is
+the spread of the seed's pixels and of what the region held a pass ago
+(noise correlated between pixels hides from the finest coefficients; the
+pixels a pass lets in do not loosen the test for their neighbours, or a
+leak feeds itself); the image is
 smoothed just enough that a quarter of the contrast found around the first
 region is ``MARGIN`` noise deviations (no smoothing at high SNR, so strips
 two pixels wide stay connected). The intensity-window model floods the
@@ -202,6 +205,9 @@ class RegionGrowth:
         its blurred rim and do not count toward the local outside mean; only
         those within ``ring_mm`` more do.
     barrier : pixels never flooded (other labels' locked outlines), or None.
+    resolved : the block (pixels) the image resolves
+        (:func:`engine.image.resolution.resolved_block`): the rim and the ring
+        are never narrower than it.
     """
 
     image: NDArray[np.floating]
@@ -214,6 +220,7 @@ class RegionGrowth:
     rim_mm: float = 1.5
     ring_mm: float = 3.0
     barrier: NDArray[np.bool_] | None = None
+    resolved: int = 1
     inside: NDArray[np.bool_] = field(init=False, repr=False)
     passes: int = field(init=False, default=0)
     finished: bool = field(init=False, default=False)
@@ -225,6 +232,7 @@ class RegionGrowth:
     _widen: bool = field(init=False, default=False, repr=False)  # the last pass reached the side of its box
     _settling: int = field(init=False, default=0, repr=False)  # passes that stayed inside their box
     _smoothed: dict = field(init=False, default_factory=dict, repr=False)
+    _previous: NDArray[np.bool_] | None = field(init=False, default=None, repr=False)  # the region a pass ago
 
     def __post_init__(self) -> None:
         self.image = np.asarray(self.image, dtype=float)
@@ -277,7 +285,7 @@ class RegionGrowth:
         grown, reached_box = self._pass()
         self.passes += 1
         added = int(grown.sum()) - before
-        self.inside = grown
+        self._previous, self.inside = self.inside, grown
         if reached_box:
             self._widen = True  # the next box reaches twice as far around the region
         elif self._first:
@@ -375,8 +383,11 @@ class RegionGrowth:
         core, ring = self._core_and_ring(region, smoothing)
         if core.sum() >= 50:
             # what the region already holds varies this much (noise correlated between pixels
-            # falls less under smoothing than white noise; texture; a bias field)
-            values = smooth[core]
+            # falls less under smoothing than white noise; texture; a bias field), over the pixels
+            # it held a pass ago: the pixels the last pass let in do not loosen the test that
+            # judges their neighbours (else a test loosened by a leak lets in more of it, pass by pass)
+            held = core if self._previous is None else core & self._previous[box]
+            values = smooth[held if held.sum() >= 50 else core]
             noise = max(noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
         radius_px = self.local_radius_mm / self.spacing
         core_weight = _gaussian_sum(core.astype(float), radius_px)  # shared by the pass's and the calm mean
@@ -541,9 +552,17 @@ class RegionGrowth:
 
     def _core_and_ring(self, region: NDArray[np.bool_], smoothing: float
                        ) -> tuple[NDArray[np.bool_], NDArray[np.bool_]]:
-        """The region without its rim, and the ring of outside pixels beyond the rim (as the local statistics)."""
-        rim = self.rim_mm + 2.0 * smoothing * float(np.min(self.spacing))
-        core, ring = core_and_ring(region, self.spacing, rim=rim, outer=rim + self.ring_mm)
+        """The region without its rim, and the ring of outside pixels beyond the rim (as the local statistics).
+
+        Rim and ring are each at least a resolved block wide: in an image
+        that resolves only blocks of several pixels an edge spreads over a
+        block, and a narrower rim leaves its blurred part in the core (whose
+        spread then loosens the test) while a narrower ring lies within it
+        (and finds no distinct outside).
+        """
+        block = self.resolved * float(np.min(self.spacing))
+        rim = max(self.rim_mm + 2.0 * smoothing * float(np.min(self.spacing)), block)
+        core, ring = core_and_ring(region, self.spacing, rim=rim, outer=rim + max(self.ring_mm, block))
         return (core if core.any() else region), ring
 
     def _choose_smoothing(self) -> None:
