@@ -115,7 +115,15 @@ def test_leftover_temporary_files_are_cleaned_by_the_next_save(tmp_path, volume)
     assert eio.verify(paths["json"]).ok
 
 
-def test_ctrl_c_during_the_renames_waits_for_them(tmp_path, volume, monkeypatch):
+@pytest.fixture()
+def ctrl_c_raises():
+    """Ctrl-C raises KeyboardInterrupt here, as in a terminal (a runner started in the background inherits it ignored)."""
+    previous = signal.signal(signal.SIGINT, signal.default_int_handler)
+    yield
+    signal.signal(signal.SIGINT, previous)
+
+
+def test_ctrl_c_during_the_renames_waits_for_them(tmp_path, volume, monkeypatch, ctrl_c_raises):
     prefix = tmp_path / "case"
     paths = save(prefix, volume)
     old = files_of(tmp_path)
