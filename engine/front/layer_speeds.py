@@ -13,7 +13,7 @@ from scipy.spatial import cKDTree
 
 from engine.front.constants import LAYER_WIDTH, SHAPE_AVERAGING, SHAPE_CONTRAST, SMALL_STRUCTURE
 from engine.front.speeds import NodeSpeeds, needed_features, node_speeds
-from engine.numerics.outline_averaging import average_along_outline
+from engine.numerics.outline_averaging import outline_graph
 
 
 class LayerSpeeds:
@@ -79,13 +79,12 @@ class LayerSpeeds:
             # long after its last reinitialisation) have no reliable closest point:
             # a zero normal leaves them out of the average
             trusted = np.where(((g2 >= 0.25) & ~b.barrier[act] & ~b.frozen[act])[:, None], normal, 0.0)
-            averaged = average_along_outline(np.column_stack([speed, slope]), b.positions[act],
-                                             self._layer_pairs(), trusted, self.params.outline_averaging)
+            graph = outline_graph(b.positions[act], self._layer_pairs(), trusted)
+            averaged = graph.average(np.column_stack([speed, slope]), self.params.outline_averaging)
             speed, slope = averaged[:, 0], averaged[:, 1]
             if hess is not None and self._image_holds_shape() and np.any(a != 0):
                 kappa = self._front_curvature(phi[act], grad, hess, measure=False)
-                shape = average_along_outline(kappa, b.positions[act], self._layer_pairs(), trusted,
-                                              SHAPE_AVERAGING * self.params.outline_averaging)
+                shape = graph.average(kappa, SHAPE_AVERAGING * self.params.outline_averaging)
                 # a part of the outline held by pins or a barrier meets them at kinks the image
                 # speed never balances: its smoothness stays plain
                 labels, count = self._layer_parts()
