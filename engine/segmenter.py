@@ -6,9 +6,11 @@
     the flood of :mod:`engine.image.growth` (region and window models), one pass
     a step: it takes the outline most of the way at pixel level;
 ``"coarse"``
-    a front on the image averaged over f × f blocks, only when a block size
-    is asked for (``coarse``); lowered to what the structure found by the
-    flood resolves (:func:`engine.image.coarse_start.resolvable_factor`);
+    a front on the image averaged over f × f blocks: the block size asked
+    for (``coarse``), or by default on an oversampled image the block it
+    resolves (:func:`engine.image.resolution.resolved_block`), where the
+    front settles in a fraction of the steps; lowered to what the structure
+    found by the flood holds (:func:`engine.image.coarse_start.resolvable_factor`);
 ``"fine"``
     the front at full resolution, started from the flood's (or the coarse
     front's) outline, until its outline stops moving (:mod:`engine.front.convergence`);
@@ -81,16 +83,6 @@ def fine_tolerance(asked: object, block: int) -> float:
     """
     tol = FrontParams().convergence_tol if asked is None else float(asked)  # type: ignore[arg-type]
     return int(block) * tol
-
-
-def tolerance_block(used: float, asked: float) -> int:
-    """The block a front's tolerance ``used`` was scaled by from the one ``asked`` for (see :func:`fine_tolerance`).
-
-    The nearest power of two of their ratio (1 for a front no :class:`Segmenter` made).
-    """
-    if not (asked > 0 and used > 0):
-        raise ValueError(f"asked: tolerances must be positive, got used={used!r}, asked={asked!r}")
-    return max(1, int(2 ** round(float(np.log2(used / asked)))))
 
 
 class Segmenter:
@@ -291,8 +283,9 @@ class Segmenter:
 
     def _leave_growth(self) -> None:
         """The flood is done: choose the block size and the detail, and start the next stage."""
-        if self._requested is not None and self._requested > 1 and self._nodes == "lattice":
-            self._factor = resolvable_factor(self._growth.inside, self._spacing, self._requested)
+        wanted = self._resolved if self._requested is None else self._requested
+        if wanted > 1 and self._nodes == "lattice":
+            self._factor = resolvable_factor(self._growth.inside, self._spacing, wanted)
         if (self._nodes == "lattice" and self._detail < THIN_DETAIL and not self._growth.unbounded
                 and thin_length(self._growth.inside, self._spacing) >= THIN_LENGTH):
             self._asked_detail, self._detail = self._detail, THIN_DETAIL
@@ -375,6 +368,8 @@ class Segmenter:
                                                 model=self._model, detail=1, **params)
         if self._barrier is not None:
             self._coarse.set_barrier(block_mean(self._barrier.astype(float), f) >= 0.5)
+        # the block mean's pixel is f pixels a side: what the image resolves beyond it
+        self._coarse.set_resolved_block(max(1, self._resolved // f))
         self.stage = "coarse"
 
     def _leave_coarse(self) -> None:
@@ -417,6 +412,7 @@ class Segmenter:
         front.steps = self._extra_steps
         if self._barrier is not None:
             front.set_barrier(self._barrier)
+        front.set_resolved_block(self._resolved)
         self._fine = front
         self.stage = "fine"
 
@@ -426,7 +422,7 @@ class Segmenter:
         if self._fine is None:
             if self.stage == "growing":
                 self._growth.finished = True
-                self._requested = None  # straight to full resolution
+                self._requested = 1  # straight to full resolution
                 self._leave_growth()
             elif self.stage == "coarse":
                 if self._coarse is None:

@@ -345,6 +345,29 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
         self._swap(converged=False)
         self._restart_convergence()
 
+    @property
+    def resolved_block(self) -> int:
+        """Pixels a side of the block the image resolves (1: every pixel; see :meth:`set_resolved_block`)."""
+        return int(self._state.resolved_block)
+
+    @_locked
+    def set_resolved_block(self, block: int) -> None:
+        """Size the region statistics' rim and ring on blocks of ``block`` pixels a side (an oversampled image).
+
+        ``block`` is what :func:`engine.image.resolution.resolved_block` reads
+        of the image; the rim and ring of the region statistics are then
+        measured in that block's pixel (:meth:`_resolved_pixel`).
+        """
+        if isinstance(block, bool) or not isinstance(block, (int, np.integer)) or block < 1:
+            raise ValueError(f"block must be a whole number >= 1, got {block!r}")
+        if int(block) == self.resolved_block:
+            return
+        self._swap(resolved_block=int(block))
+        self._swap(rim=self._rim_sums(self._pixel_band_values(), self._band_pixels_inside()))
+        self._update_layer_statistics()
+        self._swap(converged=False)
+        self._restart_convergence()
+
     def _new_stencils(self, params: FrontParams) -> None:
         """Stencils for changed stencil settings (scattered: the same nodes with new per-node operators)."""
         self.layout = self.layout.with_settings(params, self._node_sets)

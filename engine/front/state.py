@@ -72,6 +72,7 @@ class FrontState:
     noise: float | None = None  # robust std of the smoothed intensities inside the initial front (region model)
     vanished: bool = False  # the zero set is gone: stepping only counts steps
     rim: tuple[float, float, float, float] | None = None  # the same over the pixels the outline may cut
+    resolved_block: int = 1  # pixels a side of the block the image resolves (engine.image.resolution)
 
     def __post_init__(self) -> None:
         for f in fields(self):

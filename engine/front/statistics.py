@@ -81,9 +81,20 @@ class RegionStatistics:
         about 5 % of the region's own value (1 mm pixels, σ = 1 mm: the
         box-sampled step blurred by σ reads Φ(1.71 / 1.04) ≈ 0.95 there), so
         the mean is barely pulled and a structure 6 px across still keeps a
-        core.
+        core. The pixel is the one the image resolves (:meth:`_resolved_pixel`).
         """
-        return 0.5 * float(np.linalg.norm(self.features.spacing)) + self.features.sigma_mm
+        return 0.5 * float(np.linalg.norm(self._resolved_pixel())) + self.features.sigma_mm
+
+    def _resolved_pixel(self) -> NDArray[np.floating]:
+        """Size (mm, per axis) of the pixel the image resolves: its pixel times ``resolved_block``.
+
+        An oversampled image (interpolated to a finer grid than its
+        acquisition) spreads each edge over the block it resolves
+        (:func:`engine.image.resolution.resolved_block`); its blurred rim and
+        the ring of local statistics are that block's multiples, so that the
+        outline rests where it would on the image at the resolved pixel.
+        """
+        return self.features.spacing * float(self._state.resolved_block)
 
     def _pixel_band_values(self) -> NDArray[np.floating]:
         """φ at the band's pixel centres (``_band.pixel_index``)."""
@@ -198,7 +209,7 @@ class RegionStatistics:
         c_in, c_out = self.region_means()
         noise = max(self._noise, 1e-3 * self.features.intensity_scale)
         # leave out the blurred rim of the edge (partial volume plus smoothing)
-        coarse = float(np.max(self.features.spacing))
+        coarse = float(np.max(self._resolved_pixel()))
         rim = RIM_PIXELS * coarse + 2.0 * self.features.sigma_mm  # mm
         core, ring = core_and_ring(self._inside[box], self.features.spacing, rim=rim,
                                    outer=rim + RING_PIXELS * coarse)

@@ -11,7 +11,7 @@ from dataclasses import replace
 from typing import Any
 
 from engine.front import Front
-from engine.segmenter import fine_tolerance, tolerance_block
+from engine.segmenter import fine_tolerance
 from engine.session import fronts
 from engine.session.settings import FrontSettings
 from engine.session.state import Frame, SessionState
@@ -190,7 +190,7 @@ class Running:
         # a front grown from seeds converges at a fraction of the pixel the image resolves
         # (engine.segmenter.fine_tolerance): its tolerance is the asked one times that block, and
         # keeps that block under every later setting
-        block = tolerance_block(front.params.convergence_tol, old.resolved().convergence_tol)
+        block = front.resolved_block
         tolerance = fine_tolerance(new.resolved().convergence_tol, block)
         if new.detail != old.detail:
             live = self.live
@@ -199,6 +199,7 @@ class Running:
                                            detail=new.detail, features=self.features(live.slice, new),
                                            **dict(new.front_params, convergence_tol=tolerance))
             rebuilt.steps, rebuilt.time = front.steps, front.time
+            rebuilt.set_resolved_block(block)
             self._adopt(rebuilt, self._stack.state, live.label, live.slice)
             return
         params = dict(new.front_params)
