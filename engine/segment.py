@@ -58,10 +58,11 @@ def segment(
     max_steps : stop after this many steps even if not converged (default 20 000; flood passes, coarse
         and fine steps together).
     detail : lattice nodes per pixel along each axis (1, 2 or 4).
-    coarse : block size of a coarse stage (1, 2, 4 or 8; default none). The region and window models
-        first flood the seeds' structure at pixel level (:mod:`engine.image.growth`); with a block size the
-        front then grows on the image averaged over blocks of that size before it finishes at full
-        resolution. A block size the flooded structure cannot hold (a core of
+    coarse : block size of a coarse stage (1: none, 2, 4 or 8; default: the block the image resolves,
+        :func:`engine.image.resolution.resolved_block`, 1 on an image that resolves its pixels). The region
+        and window models first flood the seeds' structure at pixel level (:mod:`engine.image.growth`);
+        with a block size the front then grows on the image averaged over blocks of that size before it
+        finishes at full resolution. A block size the flooded structure cannot hold (a core of
         :data:`engine.image.coarse_start.MIN_COARSE_SEED` blocks) is lowered to one it can
         (:func:`engine.image.coarse_start.resolvable_factor`); the block size used is ``params["coarse"]`` of the
         result and the one asked for ``params["coarse_requested"]``. Lattice nodes only: with

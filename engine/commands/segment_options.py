@@ -63,8 +63,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--nodes", default="lattice", metavar="lattice|scattered",
                         help="where the front lives: a lattice (default) or scattered nodes, finer near edges")
     parser.add_argument("--coarse", default="auto", metavar="auto|1|2|4|8",
-                        help="block size of a coarse stage (auto or 1: none, the flood brings the front to the "
-                             "boundary; a size the outlined structure cannot hold is lowered)")
+                        help="block size of a coarse stage (auto: the block the image resolves, none on an image "
+                             "that resolves its pixels; 1: none; a size the outlined structure cannot hold is "
+                             "lowered)")
     parser.add_argument("--max-steps", metavar="N", help="step limit (default 20000)")
     parser.add_argument("--slice", metavar="K", help="slice of a volume (default: the middle slice)")
     parser.add_argument("--label", default="structure", metavar="NAME", help="label name (default: structure)")

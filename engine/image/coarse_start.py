@@ -12,9 +12,11 @@ A coarse front can bridge a gap narrower than a block; the fine front
 reopens it (the gap's pixels push the outline back) and
 :meth:`engine.front.core.Front.keep_parts` then drops any part that holds no seed.
 Since the flood of :mod:`engine.image.growth` brings the front to the boundary at
-pixel level, the coarse stage runs only when a block size is asked for, and
-at no more than the structure the flood found can hold
-(:func:`resolvable_factor`).
+pixel level, the coarse stage runs only when a block size is asked for or
+the image resolves only blocks of several pixels
+(:func:`engine.image.resolution.resolved_block`: the block mean then loses
+nothing the image holds), and at no more than the structure the flood
+found can hold (:func:`resolvable_factor`).
 """
 
 from __future__ import annotations
