@@ -140,6 +140,10 @@ ACROSS_SPEED = -0.5
 BRIDGE_WINDOW = THIN_WINDOW + 2
 #: A pass that adds fewer pixels than this fraction of the region ends the flood.
 SETTLED = 0.002
+#: On an oversampled image the spread of the intensities within this many resolved blocks of each seed's
+#: centre (at least its disk) gives the noise (:meth:`RegionGrowth._spread_disks`): the radius of a seed a
+#: click gives at the acquired pixel.
+SPREAD_BLOCKS = 3
 #: Half-side (pixels) of the box around each seed whose wavelet coefficients give the noise.
 NOISE_BOX = 32
 #: Holes of the region smaller than this (in pixels, 2-D; voxels in 3-D ×4) are filled.
@@ -254,7 +258,7 @@ class RegionGrowth:
         # white noise from the finest wavelet coefficients; noise correlated between pixels
         # (a CT reconstruction kernel, lossy compression) hides from them, not from the spread
         # of the seed's own pixels
-        seeded = self.image[self._seed_mask]
+        seeded = self.image[self._spread_disks()]
         spread = 1.4826 * float(np.median(np.abs(seeded - np.median(seeded)))) if seeded.size >= 9 else 0.0
         self.noise = max(noise_level(self.image, self.seeds[:, :-1]), spread)
         if self.model == "window":
@@ -320,9 +324,35 @@ class RegionGrowth:
             self.step()
         return self.inside
 
+    def _spread_disks(self) -> NDArray[np.bool_]:
+        """The pixels whose spread gives the noise: the seed disks, at least SPREAD_BLOCKS resolved blocks in radius.
+
+        An oversampled image (an interpolated reconstruction, a spline
+        zoom) spreads each acquired pixel over a block of ``resolved``
+        pixels a side: a seed disk of a few pixels then holds one or two
+        acquired pixels, whose spread is not the noise's. Widened to a few
+        blocks it holds what a seed of that radius holds at the acquired
+        pixel.
+        """
+        if self.resolved <= 1:
+            return self._seed_mask
+        seeds = self.seeds.copy()
+        seeds[:, -1] = np.maximum(seeds[:, -1], SPREAD_BLOCKS * self.resolved)
+        disks = seed_disks(self.image.shape, seeds)
+        return disks & ~self.barrier if self.barrier is not None else disks
+
     # ------------------------------------------------------------------ passes
     def _sigma_px(self, smoothing: float) -> NDArray[np.floating]:
         return smoothing * float(np.min(self.spacing)) / self.spacing
+
+    def _smoothed_noise(self, smoothing: float) -> float:
+        """The noise's deviation after smoothing by ``smoothing`` pixels (:func:`smoothing_factor`).
+
+        On an oversampled image the noise is white only at the pixel it
+        resolves: a Gaussian lowers it as one ``resolved`` times narrower
+        would lower white noise.
+        """
+        return self.noise * smoothing_factor(self._sigma_px(smoothing) / max(int(self.resolved), 1))
 
     def _smoothed_image(self, smoothing: float, box: tuple[slice, ...]) -> NDArray[np.floating]:
         """The image smoothed by ``smoothing`` on ``box`` (filtered on the box widened by four σ, then cut)."""
@@ -379,7 +409,7 @@ class RegionGrowth:
             return (half - np.abs(smooth - centre)) / half >= CLEAR_INSIDE
         smoothing = FIRST_SMOOTHING if self._first else self.smoothing
         smooth = self._smoothed_image(smoothing, box)
-        noise = max(self.noise * smoothing_factor(self._sigma_px(smoothing)), 1e-12)
+        noise = max(self._smoothed_noise(smoothing), 1e-12)
         core, ring = self._core_and_ring(region, smoothing)
         if core.sum() >= 50:
             # what the region already holds varies this much (noise correlated between pixels
@@ -433,7 +463,7 @@ class RegionGrowth:
         if smoothing < CALM_SMOOTHING and not decided.all():
             # also alike on a calmer scale: a weak edge hides in the pass's noise, not in the calm image's
             calm = self._smoothed_image(CALM_SMOOTHING, box)
-            calm_noise = max(self.noise * smoothing_factor(self._sigma_px(CALM_SMOOTHING)), 1e-12)
+            calm_noise = max(self._smoothed_noise(CALM_SMOOTHING), 1e-12)
             if core.sum() >= 50:
                 values = calm[core]
                 calm_noise = max(calm_noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
@@ -539,7 +569,7 @@ class RegionGrowth:
         if not ring.any():
             return self.inside
         c_in, c_out = float(np.median(smooth[core])), float(np.median(smooth[ring]))
-        noise = self.noise * smoothing_factor(self._sigma_px(self.smoothing))
+        noise = self._smoothed_noise(self.smoothing)
         if abs(c_in - c_out) <= 2.0 * MARGIN * noise:
             return self.inside  # no clear edge to the outside to measure the holes against
         labels, count = ndimage.label(hole_box)
@@ -576,7 +606,7 @@ class RegionGrowth:
         self.contrast = abs(float(np.median(smooth[ring])) - float(np.median(smooth[core]))) if ring.any() else 0.0
         self.smoothing = SMOOTHINGS[-1]
         for s in SMOOTHINGS:
-            if self.noise * smoothing_factor(self._sigma_px(s)) * MARGIN <= 0.25 * self.contrast:
+            if self._smoothed_noise(s) * MARGIN <= 0.25 * self.contrast:
                 self.smoothing = s
                 break
 
