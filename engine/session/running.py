@@ -72,12 +72,13 @@ class Running:
             while not stop() and (steps is None or taken < steps):
                 with self._lock:
                     grower = self._grower
-                    if grower is not None and grower.stage != "growing":
-                        self._adopt_grown(before)  # the flood is done and the front built from it
+                    if grower is not None and grower.stage not in ("growing", "coarse"):
+                        self._adopt_grown(before)  # the flood (and a coarse start) done, the front built from it
                         continue
                     if grower is not None:
-                        grower.step(1)  # one flood pass (or the hand-over to the front)
-                        passes += 1
+                        # one flood pass, one step of a coarse start (an oversampled image), or a hand-over
+                        passes += grower.stage == "growing"
+                        grower.step(1)
                     else:
                         front = self._front
                         if front.vanished or (steps is None and front.converged):
