@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from engine.image.ring_statistics import core_and_ring, gaussian_at
+from engine.image.ring_statistics import block_gaussian_at, core_and_ring, gaussian_at, gaussian_block
 
 
 def _random_region(rng: np.random.Generator, shape: tuple[int, ...]) -> np.ndarray:
@@ -70,6 +70,51 @@ def test_gaussian_at_equals_the_whole_array_filter(seed: int) -> None:
 def test_gaussian_at_refuses_integer_values() -> None:
     with pytest.raises(ValueError, match="values"):
         gaussian_at(np.zeros((4, 4), dtype=int), 1.0, (np.array([0]), np.array([0])))
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_block_gaussian_at_is_within_a_fifth_of_a_percent_of_the_whole_array_filter(seed: int) -> None:
+    # Reference: scipy.ndimage.gaussian_filter(mode="nearest") on the whole array. σ of 8-40 px (the local
+    # statistics' radius on a fine grid), blocks of σ/4: masks, masked images and thin rings, reaching the
+    # array's sides; every pixel read. Measured over 30 seeds: at most 0.11 % of the values' range away from
+    # the sides, 0.2 % anywhere; held to 0.3 % here.
+    rng = np.random.default_rng(400 + seed)
+    ndim = 2 if seed < 8 else 3
+    shape = tuple(int(n) for n in (rng.integers(120, 300, size=ndim) if ndim == 2 else rng.integers(36, 64, size=ndim)))
+    region = _random_region(rng, shape)
+    kind = seed % 3
+    if kind == 0:
+        values = region.astype(float)
+    elif kind == 1:
+        values = region * (100.0 + 20.0 * rng.standard_normal(shape))
+    else:
+        values = (ndimage.binary_dilation(region, iterations=6) & ~ndimage.binary_dilation(region, iterations=2)
+                  ).astype(float)
+    sigma = rng.uniform(8.0, 40.0 if ndim == 2 else 14.0, size=ndim)
+    if seed % 2:
+        sigma[:] = sigma[0]
+    points = np.indices(shape).reshape(ndim, -1)
+    got = block_gaussian_at(values, sigma, points).reshape(shape)
+    expected = ndimage.gaussian_filter(values, sigma, mode="nearest")
+    assert np.all(gaussian_block(sigma, ndim) >= 2)
+    assert np.max(np.abs(got - expected)) <= 0.003 * np.ptp(values)
+
+
+def test_block_gaussian_at_reads_between_pixels_and_checks_its_arguments() -> None:
+    # A linear ramp is kept by any Gaussian (its mean is the ramp's value): read at fractional points
+    # away from the sides, the block grid gives it back (common practice: a symmetric kernel preserves
+    # linear functions).
+    rows, cols = np.indices((200, 180), dtype=float)
+    ramp = 0.3 * rows - 0.2 * cols + 5.0
+    points = np.array([[80.25, 100.5, 120.75], [70.5, 90.125, 60.0]])
+    np.testing.assert_allclose(block_gaussian_at(ramp, 12.0, points), 0.3 * points[0] - 0.2 * points[1] + 5.0,
+                               rtol=0, atol=1e-6)
+    with pytest.raises(ValueError, match="values"):
+        block_gaussian_at(np.zeros((4, 4), dtype=int), 1.0, points)
+    with pytest.raises(ValueError, match="block"):
+        block_gaussian_at(ramp, 12.0, points, block=(0, 3))
+    with pytest.raises(ValueError, match="sigma"):
+        gaussian_block((1.0, -2.0), 2)
 
 
 @pytest.mark.parametrize("seed", range(6))

@@ -12,7 +12,7 @@ from scipy import ndimage
 from engine.front.constants import (DEFAULT_LOCAL_RADIUS, LOCAL_CONTRAST, RIM_PIXELS, RING_PIXELS, SIDE_SHARE,
                                     SMALL_STRUCTURE)
 from engine.front.state import _locked
-from engine.image.ring_statistics import core_and_ring, gaussian_at
+from engine.image.ring_statistics import block_gaussian_at, core_and_ring, gaussian_at, gaussian_block
 from engine.image.thickness import half_width
 
 
@@ -197,6 +197,10 @@ class RegionStatistics:
         layer (``LAYER_DRIFT``, ``LAYER_IDLE_STEPS``). Computed on the
         bounding box of the front plus three radii at every band rebuild;
         between rebuilds the front moves less than the statistics' radius.
+        A radius of eight pixels or more (a fine grid, a zoomed image) is
+        summed on the means of blocks a quarter of it across
+        (:func:`engine.image.ring_statistics.block_gaussian_at`), so the cost
+        does not grow with the radius in pixels.
         """
         b = self._band
         radius_mm = self.params.local_radius if self.params.local_radius is not None else DEFAULT_LOCAL_RADIUS
@@ -215,23 +219,35 @@ class RegionStatistics:
                                    outer=rim + RING_PIXELS * coarse)
         local = (px - lo).T
         b.local_in = np.full(len(px), c_in)
-        # The Gaussian sums are read at the ring's pixels and at the pixels around the layer nodes
-        # that the linear read-out takes: they are filtered there only (gaussian_at).
         ring_px = np.nonzero(ring)
-        read_px = _linear_read_pixels(local, img.shape)
+        if np.any(gaussian_block(radius_px, self.ndim) > 1):
+            # a radius many pixels wide: the sums on a grid of blocks a quarter of it across
+            ring_points = np.array(ring_px, dtype=float).reshape(self.ndim, -1)
 
-        def at_nodes(values: NDArray[np.floating]) -> NDArray[np.floating]:
-            filtered = np.zeros(values.shape, dtype=values.dtype)
-            filtered[read_px] = gaussian_at(values, radius_px, read_px)
-            return ndimage.map_coordinates(filtered, local, order=1, mode="nearest")
+            def at_ring(values: NDArray[np.floating]) -> NDArray[np.floating]:
+                return block_gaussian_at(values, radius_px, ring_points)
+
+            def at_nodes(values: NDArray[np.floating]) -> NDArray[np.floating]:
+                return block_gaussian_at(values, radius_px, local)
+        else:
+            # The Gaussian sums are read at the ring's pixels and at the pixels around the layer nodes
+            # that the linear read-out takes: they are filtered there only (gaussian_at).
+            read_px = _linear_read_pixels(local, img.shape)
+
+            def at_ring(values: NDArray[np.floating]) -> NDArray[np.floating]:
+                return gaussian_at(values, radius_px, ring_px)
+
+            def at_nodes(values: NDArray[np.floating]) -> NDArray[np.floating]:
+                filtered = np.zeros(values.shape, dtype=values.dtype)
+                filtered[read_px] = gaussian_at(values, radius_px, read_px)
+                return ndimage.map_coordinates(filtered, local, order=1, mode="nearest")
 
         # ring pixels are told apart from the inside by the inside mean near them (the inside
         # without its rim, Gaussian weights; the global mean where there is too little of it):
         # a smooth bias field across a large structure is not taken for a neighbouring tissue
         core = core.astype(float)
-        w_core = gaussian_at(core, radius_px, ring_px)
-        near_in = np.where(w_core > 0.05, gaussian_at(img * core, radius_px, ring_px) / np.maximum(w_core, 1e-12),
-                           c_in)
+        w_core = at_ring(core)
+        near_in = np.where(w_core > 0.05, at_ring(img * core) / np.maximum(w_core, 1e-12), c_in)
         # the outside on each side of the inside mean (darker, brighter), beyond noise:
         # a structure between a darker and a brighter tissue (an organ on bone in CT) is
         # held by both, where their mixed mean could lie on the inside's own side
