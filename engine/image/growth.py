@@ -76,6 +76,7 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -232,6 +233,7 @@ class RegionGrowth:
     _widen: bool = field(init=False, default=False, repr=False)  # the last pass reached the side of its box
     _settling: int = field(init=False, default=0, repr=False)  # passes that stayed inside their box
     _smoothed: dict = field(init=False, default_factory=dict, repr=False)
+    _per_box: dict = field(init=False, default_factory=dict, repr=False)  # what a pass reads of the image alone
     _previous: NDArray[np.bool_] | None = field(init=False, default=None, repr=False)  # the region a pass ago
 
     def __post_init__(self) -> None:
@@ -471,7 +473,8 @@ class RegionGrowth:
         # nothing is distinct yet: the contrast found around the first region) is a mixture of
         # two other tissues (the rim of a bone in soft tissue passes through the organ's
         # value): left to the level set
-        spread = _extreme3(smooth, np.maximum) - _extreme3(smooth, np.minimum)
+        spread = self._image_alone("spread", box, smoothing,
+                                   lambda: _extreme3(smooth, np.maximum) - _extreme3(smooth, np.minimum))
         steep = spread > 2.0 * np.where(np.isfinite(weakest), weakest, self.contrast) + 2.0 * MIXTURE * noise
         return accept & ~steep
 
@@ -493,6 +496,24 @@ class RegionGrowth:
             return None
         if MARGIN * self.noise / np.sqrt(LINE_PIXELS) > LINE_SHARE * self.contrast:
             return None
+        return self._image_alone("lines", box, smoothing, lambda: self._segment_extremes(box))
+
+    def _image_alone(self, name: str, box: tuple[slice, ...], smoothing: float, make: Callable[[], object]) -> object:
+        """What ``make()`` gives of the image alone on ``box`` at ``smoothing``, kept while the box stays.
+
+        The passes that settle a flood work on one box (the region moves
+        less than its pad), and the segments' means and the neighbourhood
+        spread read the image only: made once per box, not once per pass.
+        """
+        key = (name, smoothing, tuple((s.start, s.stop) for s in box))
+        if key not in self._per_box:
+            if any(k[2] != key[2] for k in self._per_box):
+                self._per_box.clear()
+            self._per_box[key] = make()
+        return self._per_box[key]
+
+    def _segment_extremes(self, box: tuple[slice, ...]) -> tuple[NDArray[np.floating], NDArray[np.floating]]:
+        """Least and greatest mean of the unsmoothed image along the segments through each pixel of ``box``."""
         half = LINE_PIXELS // 2
         wide = tuple(slice(max(s.start - half, 0), min(s.stop + half, n)) for s, n in zip(box, self.image.shape))
         # the box and LINE_PIXELS // 2 pixels around it (repeating the image's edge beyond it)
