@@ -76,6 +76,7 @@ References
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -527,7 +528,7 @@ class RegionGrowth:
             return None
         return self._image_alone("lines", box, smoothing, lambda: self._segment_extremes(box))
 
-    def _image_alone(self, name: str, box: tuple[slice, ...], smoothing: float, make):
+    def _image_alone(self, name: str, box: tuple[slice, ...], smoothing: float, make: Callable[[], object]) -> object:
         """What ``make()`` gives of the image alone on ``box`` at ``smoothing``, kept while the box stays.
 
         The passes that settle a flood work on one box (the region moves
