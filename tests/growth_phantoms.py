@@ -339,6 +339,25 @@ def family(name: str, count: int = 10, seed: int = 2024) -> list[Case]:
 # ---------------------------------------------------------------- a real slice
 #: pydicom's test file: an axial MR of an abdomen (300 × 484, 0.723 mm pixels), read with
 #: pydicom.data.get_testdata_file; the liver lies in its left half.
+def zoomed_disk() -> Case:
+    """An oversampled slice: a disk on a 128² grid zoomed 2× by a cubic spline (``scipy.ndimage.zoom``).
+
+    The disk has radius 30 native px, contrast 1 and Gaussian noise σ 0.1 (seeded); at 0.5 mm pixels the
+    slice resolves blocks of 2 px. Truth: the zoomed disk at pixel centres (``skimage.draw.disk``);
+    ``info["native"]``: the 128² slice before the zoom.
+    """
+    from skimage.draw import disk
+
+    rng = np.random.default_rng(5)
+    native = np.zeros((128, 128))
+    native[disk((64, 60), 30, shape=native.shape)] = 1.0
+    native += rng.normal(scale=0.1, size=native.shape)
+    image = ndimage.zoom(native, 2, order=3)
+    truth = np.zeros(image.shape, dtype=bool)
+    truth[disk((128.5, 120.5), 60, shape=image.shape)] = True
+    return Case("zoomed disk", image, truth, (128.0, 120.0, 4.0), (0.5, 0.5), info={"native": native})
+
+
 MR_ABDOMEN_FILE = "examples_overlay.dcm"
 #: The 256² crop around the liver (first row and column) and a click in the liver (row, col, radius px).
 MR_LIVER_CROP = (20, 20)

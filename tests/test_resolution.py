@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import ndimage
-from skimage.draw import disk
 
+import growth_phantoms as gp
 from engine.analysis.metrics import dice
 from engine.image.resolution import resolved_block
 from engine.segment import segment
@@ -50,27 +50,12 @@ def test_an_oversampled_slice_converges_at_a_fraction_of_its_native_pixel() -> N
     # A disk (radius 30 native px, contrast 1, noise 0.1) on a 128² grid, zoomed 2× by a cubic spline:
     # the fine front's tolerance is the one asked for times the resolved block, both recorded, and the
     # outline still matches the disk (Dice against the zoomed truth, skimage.draw.disk).
-    rng = np.random.default_rng(5)
-    native = np.zeros((128, 128))
-    native[disk((64, 60), 30, shape=native.shape)] = 1.0
-    native += rng.normal(scale=0.1, size=native.shape)
-    image = ndimage.zoom(native, 2, order=3)
-    truth = np.zeros(image.shape, dtype=bool)
-    truth[disk((128.5, 120.5), 60, shape=image.shape)] = True
-    result = segment(image, [(128.0, 120.0, 4.0)], spacing=(0.5, 0.5))
+    case = gp.zoomed_disk()
+    result = segment(case.image, [case.seed], spacing=case.spacing)
     assert result.params["resolved_block"] == 2 and result.params["convergence_tol"] == 0.05
-    assert result.converged and dice(result.mask, truth) >= 0.98
-    plain = segment(native, [(64.0, 60.0, 4.0)], spacing=(1.0, 1.0))
+    assert result.converged and dice(result.mask, case.truth) >= 0.98
+    plain = segment(case.info["native"], [(64.0, 60.0, 4.0)], spacing=(1.0, 1.0))
     assert "resolved_block" not in plain.params
-
-
-def _zoomed_disk() -> tuple[np.ndarray, tuple[float, float, float]]:
-    """The disk of the test above (radius 30 native px, contrast 1, noise 0.1), zoomed 2× by a cubic spline."""
-    rng = np.random.default_rng(5)
-    native = np.zeros((128, 128))
-    native[disk((64, 60), 30, shape=native.shape)] = 1.0
-    native += rng.normal(scale=0.1, size=native.shape)
-    return ndimage.zoom(native, 2, order=3), (128.0, 120.0, 4.0)
 
 
 @pytest.mark.parametrize("detail", [1, 2], ids=["same detail", "new detail"])
@@ -81,7 +66,8 @@ def test_a_later_tolerance_reaches_a_grown_front_times_the_resolved_block(detail
     # of another setting while the tolerance is set, and going back to the default.
     from engine.session import Session
 
-    image, seed = _zoomed_disk()
+    case = gp.zoomed_disk()
+    image, seed = case.image, case.seed
     s = Session.from_array(image, spacing=(0.5, 0.5))
     lab = s.add_label("structure").index
     s.seed(*seed, label=lab, slice=0)
@@ -103,7 +89,6 @@ def test_the_flood_on_a_zoomed_slice_stays_in_the_structure_it_holds_at_half_the
     # cubic spline, ndimage.zoom), resolved at blocks of 4 and 8 pixels at 512² and 1024²: the 1024² flood
     # takes what the 512² flood takes, upsampled (Dice >= 0.95; the level set then finishes both), and stays
     # within the liver (under a fifth of the image; leaking through a notch it covered 87 %).
-    import growth_phantoms as gp
     from engine.segmenter import Segmenter
 
     floods = {}
@@ -165,7 +150,8 @@ def test_a_front_keeps_its_resolved_block_through_a_snapshot() -> None:
     # Session makes after undo) has it, and a block that is not a whole number >= 1 is refused.
     from engine.front import Front
 
-    image, seed = _zoomed_disk()
+    case = gp.zoomed_disk()
+    image, seed = case.image, case.seed
     front = Front.from_seeds(image, [seed], spacing=(0.5, 0.5), model="region")
     front.set_resolved_block(2)
     front.step(3)

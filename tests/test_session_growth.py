@@ -120,29 +120,19 @@ def test_a_setting_changed_during_the_flood_hands_over_to_the_front_at_once() ->
 def test_a_click_on_an_oversampled_slice_settles_on_its_block_mean_first_as_segment_does() -> None:
     # A disk (radius 30 native px, contrast 1, noise 0.1) on a 128² grid zoomed 2× by a cubic spline
     # (scipy.ndimage.zoom): the image resolves blocks of 2 px, so segment() settles the front on the block
-    # mean before finishing at full resolution. The session does the same: its live frames show that
-    # stage (steps counted, stage "evolving"), its front keeps the block, and the outline is segment()'s
-    # (Dice >= 0.998) and the disk's (skimage.draw.disk, Dice >= 0.98).
-    from scipy import ndimage
-    from skimage.draw import disk
-
-    rng = np.random.default_rng(5)
-    native = np.zeros((128, 128))
-    native[disk((64, 60), 30, shape=native.shape)] = 1.0
-    native += rng.normal(scale=0.1, size=native.shape)
-    image = ndimage.zoom(native, 2, order=3)
-    truth = np.zeros(image.shape, dtype=bool)
-    truth[disk((128.5, 120.5), 60, shape=image.shape)] = True
-    seed = (128.0, 120.0, 4.0)
-    reference = segment(image, [seed], spacing=(0.5, 0.5))
+    # mean before finishing at full resolution. The session does the same: it takes segment()'s coarse
+    # and fine steps, its live frames count them, its front keeps the block, and the outline is
+    # segment()'s (Dice >= 0.998) and the disk's (skimage.draw.disk, Dice >= 0.98).
+    case = gp.zoomed_disk()
+    image, truth, seed = case.image, case.truth, case.seed
+    reference = segment(image, [seed], spacing=case.spacing)
     assert reference.params["coarse"] == 2 and reference.timings["coarse_steps"] > 0
-    s = Session.from_array(image, spacing=(0.5, 0.5))
-    lab = s.add_label("structure").index
+    s, lab = _session(case)
     s.seed(*seed, label=lab, slice=0)
     frames = []
     s.evolve(on_frame=frames.append, frame_interval=0.0)
     assert s.frame().converged and s._front.resolved_block == 2
-    # the same coarse and fine steps as segment() (a session that skipped the coarse stage took more fine ones)
+    # the same coarse and fine steps as segment() (a session that skipped the coarse stage counted 40, not 50)
     run = s.history[-1]
     assert run.details["front_steps"] == reference.steps - reference.timings["growth_passes"]
     assert frames[-1].steps == run.details["front_steps"]
