@@ -236,7 +236,6 @@ class RegionGrowth:
     _first: bool = field(init=False, default=True, repr=False)  # still flooding with the first smoothing
     _widen: bool = field(init=False, default=False, repr=False)  # the last pass reached the side of its box
     _settling: int = field(init=False, default=0, repr=False)  # passes that stayed inside their box
-    _smoothed: dict = field(init=False, default_factory=dict, repr=False)
     _per_box: dict = field(init=False, default_factory=dict, repr=False)  # what a pass reads of the image alone
     _previous: NDArray[np.bool_] | None = field(init=False, default=None, repr=False)  # the region a pass ago
 
@@ -358,20 +357,18 @@ class RegionGrowth:
 
     def _smoothed_image(self, smoothing: float, box: tuple[slice, ...]) -> NDArray[np.floating]:
         """The image smoothed by ``smoothing`` on ``box`` (filtered on the box widened by four σ, then cut)."""
-        key = (smoothing, tuple((s.start, s.stop) for s in box))
-        if key not in self._smoothed:
-            if len(self._smoothed) >= 2:
-                self._smoothed.clear()  # two smoothings (the pass's and the calm one) on one box at a time
+
+        def smoothed() -> NDArray[np.floating]:
             if smoothing <= 0:
-                self._smoothed[key] = self.image[box]
-            else:
-                sigma = self._sigma_px(smoothing)
-                reach = np.ceil(4.0 * sigma).astype(int)
-                wide = tuple(slice(max(s.start - r, 0), min(s.stop + r, n))
-                             for s, r, n in zip(box, reach, self.image.shape))
-                cut = tuple(slice(s.start - w.start, s.stop - w.start) for s, w in zip(box, wide))
-                self._smoothed[key] = ndimage.gaussian_filter(self.image[wide], sigma, mode="nearest")[cut]
-        return self._smoothed[key]
+                return self.image[box]
+            sigma = self._sigma_px(smoothing)
+            reach = np.ceil(4.0 * sigma).astype(int)
+            wide = tuple(slice(max(s.start - r, 0), min(s.stop + r, n))
+                         for s, r, n in zip(box, reach, self.image.shape))
+            cut = tuple(slice(s.start - w.start, s.stop - w.start) for s, w in zip(box, wide))
+            return ndimage.gaussian_filter(self.image[wide], sigma, mode="nearest")[cut]
+
+        return self._image_alone("smoothed", box, smoothing, smoothed)  # type: ignore[return-value]
 
     def _box(self) -> tuple[slice, ...]:
         """The part of the image a pass works on: the region's bounding box widened by BOX_RADII local radii."""
@@ -532,8 +529,9 @@ class RegionGrowth:
         """What ``make()`` gives of the image alone on ``box`` at ``smoothing``, kept while the box stays.
 
         The passes that settle a flood work on one box (the region moves
-        less than its pad), and the segments' means and the neighbourhood
-        spread read the image only: made once per box, not once per pass.
+        less than its pad), and the smoothed images, the segments' means and
+        the neighbourhood spread read the image only: made once per box, not
+        once per pass.
         """
         key = (name, smoothing, tuple((s.start, s.stop) for s in box))
         if key not in self._per_box:

@@ -77,7 +77,8 @@ class Running:
                         continue
                     if grower is not None:
                         # one flood pass, one step of a coarse start (an oversampled image), or a hand-over
-                        passes += grower.stage == "growing"
+                        if grower.stage == "growing":
+                            passes += 1
                         grower.step(1)
                     else:
                         front = self._front
