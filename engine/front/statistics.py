@@ -184,7 +184,8 @@ class RegionStatistics:
         the whole image. Only a ring of outside pixels counts: beyond the
         blurred rim of the edge (RIM_PIXELS plus two smoothing scales, so
         partial volume does not pull the mean toward the inside) and within
-        RING_PIXELS more (so the tissue that actually borders the front
+        RING_PIXELS more, both in the pixels the image resolves
+        (:meth:`_resolved_pixel`) (so the tissue that actually borders the front
         outweighs tissues further away). The ring's pixels darker and brighter
         than the inside mean (beyond three noise standard deviations; on the
         far side of the inside mean from the global outside mean, beyond
