@@ -162,6 +162,7 @@ class BandBuilding:
         self._swap(indices=band.indices, phi=phi, phi_at_rebuild=np.abs(phi))
         self._coeffs = None
         band.layer_phi = phi[band.active[band.layer]]
+        self._pick_near()
         self._sync_inside()
         self._update_layer_statistics()
 
@@ -216,6 +217,7 @@ class BandBuilding:
             return
         b.layer_phi = self._phi[b.active[b.layer]]
         b.layer_operators = b.layer_parts = b.layer_pairs = None
+        self._pick_near()
         self._update_layer_statistics()
 
     def _needs_rebuild(self) -> bool:

@@ -32,6 +32,9 @@ STATISTICS_EVERY = 10
 #: every LAYER_IDLE_STEPS steps.
 LAYER_DRIFT = 0.25
 LAYER_IDLE_STEPS = 100
+#: Steps between picks of the active nodes near the front, which evolve by
+#: their own derivatives (the rest of the band takes its layer node's rate).
+NEAR_EVERY = 5
 #: Width of the ring of outside pixels, beyond the rim, of the local statistics.
 RING_PIXELS = 3.0
 #: A local outside mean on the other side of the inside mean than the global
@@ -74,3 +77,4 @@ SHAPE_AVERAGING = 2.0
 #: Measured: the SNR 2-3 family of invented slices reads 6.7-9.1, the other hazard families 34-188, a front
 #: on Gaussian noise alone 0.8.
 SHAPE_CONTRAST = 3.0
+

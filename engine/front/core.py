@@ -402,6 +402,11 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
             b.layer_operators = b.layer_parts = b.layer_pairs = None
         else:
             snap = snap.updated(layer=(b.layer, b.source, b.edge_source, b.layer_phi))
+        if snap.near is not None:
+            self._use_near(snap.near)
+        else:  # a state stored before the pick was kept: pick again from its φ and layer
+            self._pick_near()
+            snap = snap.updated(near=self._state.near)
         if snap.local_out is not None:
             b.local_out = snap.local_out
         else:

@@ -73,6 +73,7 @@ class FrontState:
     vanished: bool = False  # the zero set is gone: stepping only counts steps
     rim: tuple[float, float, float, float] | None = None  # the same over the pixels the outline may cut
     resolved_block: int = 1  # pixels a side of the block the image resolves (engine.image.resolution)
+    near: NDArray[np.int64] | None = None  # active positions evolved by their own derivatives (the last pick)
 
     def __post_init__(self) -> None:
         for f in fields(self):

@@ -76,7 +76,9 @@ class LatticeLayout:
         return self._coarsest
 
     def step_derivatives(self, band: Any, phi: NDArray[np.floating]) -> NDArray[np.floating]:
-        return self.stencil.step_rows @ np.take(phi, band.gather)
+        if band.near_operators is None:
+            band.near_operators = np.ascontiguousarray(band.gather[:, band.near])
+        return self.stencil.step_rows @ np.take(phi, band.near_operators)
 
     def layer_derivatives(self, band: Any, phi: NDArray[np.floating], count: int | None) -> NDArray[np.floating]:
         if band.layer_operators is None:

@@ -87,7 +87,10 @@ class ScatteredLayout:
         return float(np.max(band.spacing[nodes]))
 
     def step_derivatives(self, band: Any, phi: NDArray[np.floating]) -> NDArray[np.floating]:
-        return np.ascontiguousarray(np.matmul(phi[band.gather][:, None, :], band.step_weights)[:, 0, :].T)
+        if band.near_operators is None:
+            band.near_operators = (band.gather[band.near], np.ascontiguousarray(band.step_weights[band.near]))
+        gather, weights = band.near_operators
+        return np.ascontiguousarray(np.matmul(phi[gather][:, None, :], weights)[:, 0, :].T)
 
     def layer_derivatives(self, band: Any, phi: NDArray[np.floating], count: int | None) -> NDArray[np.floating]:
         if band.layer_operators is None:
