@@ -77,6 +77,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
         self._band: Band = None  # type: ignore[assignment]  # derived from the state's indices and layer
         self._outline: OutlineMotion | None = None
         self._coeffs: NDArray[np.floating] | None = None
+        self._contours_kept: tuple | None = None  # (φ, band, refined contours, closed) of _contour_set
         self._node_sets: dict = {}  # node sets per (stencil size, degree, phs)
         self._curvature_gain = 1.0  # gain of the curvature's extension along normals (for the time step)
         self._last_kappa_max = 0.0

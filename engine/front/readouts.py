@@ -103,17 +103,17 @@ class ReadOuts:
             return []
         from engine.analysis.contours import BandCutWarning, band_contour_set
 
-        nodes, values, detail = self.layout.contour_grid(self._band, self._phi)
-        found = band_contour_set(nodes, values, detail=detail)
-        lines = found.polylines
-        cut = sum(1 for line, closed in zip(lines, found.closed) if not closed and not self._ends_on_border(line))
+        if refine:
+            lines, closed = self._contour_set()
+        else:
+            nodes, values, detail = self.layout.contour_grid(self._band, self._phi)
+            found = band_contour_set(nodes, values, detail=detail)
+            lines, closed = found.polylines, found.closed
+        cut = sum(1 for line, ok in zip(lines, closed) if not ok and not self._ends_on_border(line))
         if cut:
             warnings.warn(f"{cut} contour polyline(s) leave the band and are open; widen the band",
                           BandCutWarning, stacklevel=2)
-        if not refine or not lines:
-            return lines
-        interp, coeffs = self._interpolant()
-        return refine_polylines(lines, interp, coeffs, self.features.spacing)
+        return [line.copy() for line in lines] if refine else lines
 
     def _ends_on_border(self, line: NDArray[np.floating]) -> bool:
         """Whether both ends of an open polyline (pixel coordinates) lie where an outline may stop.
@@ -131,15 +131,23 @@ class ReadOuts:
         return bool(np.all(at_border))
 
     def _contour_set(self) -> tuple[list[NDArray[np.floating]], NDArray[np.bool_]]:
-        """Refined contours and which are closed (open ones end on the image's border, or where the band is cut)."""
+        """Refined contours and which are closed (open ones end on the image's border, or where the band is cut).
+
+        Kept until φ or the band changes (a result reads them for its contours and its area).
+        """
         from engine.analysis.contours import band_contour_set
 
+        kept = self._contours_kept
+        if kept is not None and kept[0] is self._phi and kept[1] is self._band:
+            return kept[2], kept[3]
         nodes, values, detail = self.layout.contour_grid(self._band, self._phi)
         found = band_contour_set(nodes, values, detail=detail)
-        if not found.polylines:
-            return [], found.closed
-        interp, coeffs = self._interpolant()
-        return refine_polylines(found.polylines, interp, coeffs, self.features.spacing), found.closed
+        lines = found.polylines
+        if lines:
+            interp, coeffs = self._interpolant()
+            lines = refine_polylines(lines, interp, coeffs, self.features.spacing)
+        self._contours_kept = (self._phi, self._band, lines, found.closed)
+        return lines, found.closed
 
     @_locked
     def surface(self) -> tuple[NDArray[np.floating], NDArray[np.int64]]:
