@@ -77,4 +77,3 @@ SHAPE_AVERAGING = 2.0
 #: Measured: the SNR 2-3 family of invented slices reads 6.7-9.1, the other hazard families 34-188, a front
 #: on Gaussian noise alone 0.8.
 SHAPE_CONTRAST = 3.0
-
