@@ -183,8 +183,7 @@ class Evolution:
         curving = bool(np.any(np.asarray(a) != 0))
         a_all = a[b.near_source] if np.ndim(a) else a
         if b.held is None:
-            nodes = b.active[b.near]
-            b.held = (np.flatnonzero(b.frozen[nodes]), np.flatnonzero(b.barrier[nodes]))
+            b.held = (np.flatnonzero(b.frozen[b.near_nodes]), np.flatnonzero(b.barrier[b.near_nodes]))
         return _StageSpeeds(normal, a if curving else None, a_all * self.layout.damping, *b.held)
 
     def _rate(self, phi: NDArray[np.floating], speeds: _StageSpeeds,
@@ -267,8 +266,8 @@ class Evolution:
         b = self._band
         rate = self._rate(phi, speeds, layer, measure)
         full = np.empty_like(phi)
-        full[b.active[b.near]] = rate
-        full[b.active[b.far]] = rate[b.far_rate_at]
+        full[b.near_nodes] = rate
+        full[b.far_nodes] = rate[b.far_rate_at]
         full[b.edge_nodes] = rate[b.edge_rate_at]
         return full
 
@@ -366,7 +365,8 @@ class Evolution:
         at = np.full(len(b.active), -1, dtype=np.int64)
         at[near] = np.arange(len(near))
         far = np.flatnonzero(at < 0)
-        b.near, b.far, b.near_source = near, far, b.source[near]
+        b.near, b.near_nodes, b.near_source = near, b.active[near], b.source[near]
+        b.far_nodes = b.active[far]
         b.far_rate_at = at[b.layer[b.source[far]]]
         b.edge_rate_at = at[b.layer[b.edge_source]]
         b.near_operators = None

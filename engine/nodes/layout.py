@@ -78,8 +78,9 @@ class Band:
     layer_pairs: NDArray[np.int64] | None = None  # see _layer_pairs
     thickness: NDArray[np.floating] | None = None  # half-width (mm) of the inside behind each layer node
     near: NDArray[np.int64] | None = None  # active positions evolved by their own derivatives (see Front._pick_near)
+    near_nodes: NDArray[np.int64] | None = None  # the near nodes themselves (band indices)
     near_source: NDArray[np.int64] | None = None  # per near node: its layer node
-    far: NDArray[np.int64] | None = None  # the other active positions: they take their layer node's rate
+    far_nodes: NDArray[np.int64] | None = None  # the other active nodes (band indices): they take their layer node's rate
     far_rate_at: NDArray[np.int64] | None = None  # per far node: where its layer node's rate sits among the near
     edge_rate_at: NDArray[np.int64] | None = None  # the same for each edge node
     near_operators: Any = None  # the layout's step operators restricted to the near nodes
