@@ -320,6 +320,32 @@ def dark_on_bright(rng: np.random.Generator, side: int = 160) -> Case:
 
 
 #: Hazard families: name → case maker taking a seeded generator.
+def clicked_vessel(rng: np.random.Generator, side: int = 256, *, snr: tuple[float, float] = (8.0, 15.0),
+                   width: tuple[float, float] = (2.5, 4.0)) -> Case:
+    """A winding vessel (contrast 1, ``width`` px wide) clicked anywhere along it with a seed disk of 3-5 px.
+
+    The disk is wider than the vessel, so it holds the vessel's surroundings too. The path is a sine
+    across the image (amplitude 0.15-0.3 side, period 0.3-0.6 side, random phase); the click lands within
+    0.3 px (σ) of the path, anywhere from 2 % to 98 % of its length. One case per generator.
+    """
+    w = rng.uniform(*width)
+    radius = rng.uniform(3.0, 5.0)
+    noise = 1.0 / rng.uniform(*snr)
+    amp, period, phase = rng.uniform(0.15, 0.3), rng.uniform(0.3, 0.6), rng.uniform(0.0, 2.0 * np.pi)
+    cols = np.linspace(0.08 * side, 0.92 * side, 8 * side)
+    path = np.column_stack([side / 2.0 + amp * side * np.sin(2 * np.pi * cols / (period * side) + phase), cols])
+    tree = cKDTree(path)
+
+    def inside(rows, cols):
+        d, _ = tree.query(np.column_stack([np.ravel(rows), np.ravel(cols)]))
+        return (d <= w / 2.0).reshape(np.shape(rows))
+
+    image = render((side, side), (inside, 1.0)) + rng.normal(0, noise, (side, side))
+    at = path[int(rng.uniform(0.02, 0.98) * len(path))] + rng.normal(0, 0.3, 2)
+    return Case(f"vessel {w:.1f} px", image, truth_of((side, side), inside), (at[0], at[1], radius),
+                info={"width_px": w, "snr": 1.0 / noise, "inside": inside})
+
+
 FAMILIES: dict[str, Callable[[np.random.Generator], Case]] = {
     "weak_edge": weak_edge,
     "narrow_gap": narrow_gap,

@@ -40,12 +40,12 @@ statistics; the rim and ring at least the block the image resolves wide,
 behind it) and the level set finishes. Pixels connect through faces only (a
 one-pixel diagonal gap is not a path), and a pixel on an edge much steeper
 than the region's own contrast is a mixture of two other tissues and waits
-for the level set. Noise is the larger of the estimate from the finest
-diagonal wavelet coefficients near the seeds (Donoho & Johnstone 1994) and
-the spread of the seed's pixels and of what the region held a pass ago
-(noise correlated between pixels hides from the finest coefficients; the
-pixels a pass lets in do not loosen the test for their neighbours, or a
-leak feeds itself); the image is
+for the level set. Noise is the larger of the estimates from the diagonal
+wavelet coefficients near the seeds at the finest resolved level and the
+next (Donoho & Johnstone 1994; :func:`seed_noise`: noise correlated between
+pixels hides from the finest coefficients) and the spread of what the
+region held a pass ago (the pixels a pass lets in do not loosen the test
+for their neighbours, or a leak feeds itself); the image is
 smoothed just enough that a quarter of the contrast found around the first
 region is ``MARGIN`` noise deviations (no smoothing at high SNR, so strips
 two pixels wide stay connected). The intensity-window model floods the
@@ -82,9 +82,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
+from skimage.filters import threshold_otsu
 
 from engine.front.constants import SIDE_SHARE
 from engine.front.geometry import seed_disks
+from engine.image.coarse_start import block_mean, to_coarse
 from engine.image.ring_statistics import core_and_ring
 
 #: Models the flood serves (it follows their inside test).
@@ -141,10 +143,13 @@ ACROSS_SPEED = -0.5
 BRIDGE_WINDOW = THIN_WINDOW + 2
 #: A pass that adds fewer pixels than this fraction of the region ends the flood.
 SETTLED = 0.002
-#: On an oversampled image the spread of the intensities within this many resolved blocks of each seed's
-#: centre (at least its disk) gives the noise (:meth:`RegionGrowth._spread_disks`): the radius of a seed a
-#: click gives at the acquired pixel.
-SPREAD_BLOCKS = 3
+#: A seed disk whose pixels split into two groups whose means differ by more than this many noise deviations
+#: holds two tissues: only the one at its centre starts the flood (:func:`seed_tissue`).
+MIXED_SEED = 4.0
+#: The pixels within this radius (pixels) of a seed's centre are the tissue it was put on.
+CENTRE_RADIUS = 1.5
+#: A disk of fewer pixels is kept whole.
+MIN_MIXED_PIXELS = 9
 #: Half-side (pixels) of the box around each seed whose wavelet coefficients give the noise.
 NOISE_BOX = 32
 #: Holes of the region smaller than this (in pixels, 2-D; voxels in 3-D ×4) are filled.
@@ -180,6 +185,81 @@ def noise_level(image: NDArray[np.floating], centres: ArrayLike, *, half: int = 
         detail /= 2.0 ** (img.ndim / 2.0)
         figures.append(float(np.median(np.abs(detail))) / 0.6745)
     return float(np.median(figures)) if figures else 0.0
+
+
+def seed_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 1) -> float:
+    """Noise standard deviation of one resolved pixel near ``centres`` (pixel coordinates).
+
+    The larger of :func:`noise_level` on the block means of the resolved
+    block (``resolved`` pixels a side; the image itself at 1) and twice that
+    on blocks twice as large. White noise reads alike on both (the mean of
+    four independent values varies half as much, common practice); noise
+    correlated over a pixel or two (a CT reconstruction kernel, lossy
+    compression) hides from the finest coefficients, not from the next
+    level's. Both are medians of Haar coefficients over boxes around the
+    seeds (Donoho & Johnstone 1994), so an edge within a seed's disk does
+    not count: a click wider than a thin vessel holds the vessel's
+    surroundings too, and the spread of its pixels would read the vessel's
+    contrast as noise.
+    """
+    img = np.asarray(image, dtype=float)
+    points = np.atleast_2d(np.asarray(centres, dtype=float))
+    block = max(int(resolved), 1)
+    # only the boxes the coefficients are read in, aligned to the larger blocks
+    step = 2 * block
+    reach = NOISE_BOX * step
+    lo = np.maximum((np.floor(points.min(axis=0)).astype(int) - reach) // step * step, 0)
+    hi = np.minimum(np.ceil(points.max(axis=0)).astype(int) + reach + 1, img.shape)
+    img = img[tuple(slice(a, b) for a, b in zip(lo, hi))]
+    points = points - lo
+    level = block_mean(img, block) if block > 1 else img
+    fine = noise_level(level, to_coarse(points, block), half=NOISE_BOX)
+    coarse = 2.0 * noise_level(block_mean(level, 2), to_coarse(points, step), half=NOISE_BOX)
+    return max(fine, coarse)
+
+
+def seed_tissue(image: NDArray[np.floating], seeds: NDArray[np.floating], noise: float,
+                disks: NDArray[np.bool_]) -> NDArray[np.bool_]:
+    """The pixels of the seed disks (``disks``) in the tissue at each seed's centre.
+
+    A click wider than the structure under it (a vessel, a strip, the rim of
+    an organ) holds its surroundings too; a flood started from them takes
+    the surroundings for inside. Where a disk's pixels split (Otsu's
+    threshold, IEEE Trans. Syst. Man Cybern. 9(1) (1979) 62-66) into two
+    groups whose means differ by more than ``MIXED_SEED`` noise deviations,
+    only the group of the pixels within ``CENTRE_RADIUS`` of its centre is
+    kept, and of it the part connected through faces to them. A disk of one
+    tissue (the two halves of its noise differ by about 1.6 deviations) is
+    kept whole.
+    """
+    out = np.zeros(image.shape, dtype=bool)
+    for seed in np.atleast_2d(seeds):
+        radius = max(float(seed[-1]), 1.0)
+        low = np.maximum(np.floor(seed[:-1] - radius).astype(np.int64), 0)
+        high = np.minimum(np.ceil(seed[:-1] + radius).astype(np.int64) + 1, image.shape)
+        if np.any(high <= low):
+            continue
+        box = tuple(slice(a, b) for a, b in zip(low, high))
+        d2 = sum((axis - c) ** 2 for axis, c in zip(np.ogrid[box], seed[:-1]))
+        disk = disks[box] & (d2 <= radius**2)
+        values = image[box]
+        kept = disk
+        if disk.sum() >= MIN_MIXED_PIXELS:
+            inside = values[disk]
+            cut = float(threshold_otsu(inside))
+            above = inside > cut
+            if above.any() and (~above).any() and (
+                    inside[above].mean() - inside[~above].mean() > MIXED_SEED * noise):
+                centre = disk & (d2 <= min(CENTRE_RADIUS, radius) ** 2)
+                if centre.any():
+                    side = (values > cut) if np.median(values[centre]) > cut else (values <= cut)
+                    labels, _ = ndimage.label(disk & side)
+                    touching = np.unique(labels[centre & side])
+                    touching = touching[touching > 0]
+                    if len(touching):
+                        kept = np.isin(labels, touching)
+        out[box] |= kept
+    return out
 
 
 def smoothing_factor(sigma_px: NDArray[np.floating]) -> float:
@@ -255,13 +335,10 @@ class RegionGrowth:
             self.inside &= ~self.barrier
         if not self.inside.any():
             raise ValueError("seeds: no pixel centre lies inside the seed disks")
+        self.noise = seed_noise(self.image, self.seeds[:, :-1], self.resolved)
+        if self.model == "region":
+            self.inside = seed_tissue(self.image, self.seeds, self.noise, self.inside)
         self._seed_mask = self.inside.copy()
-        # white noise from the finest wavelet coefficients; noise correlated between pixels
-        # (a CT reconstruction kernel, lossy compression) hides from them, not from the spread
-        # of the seed's own pixels
-        seeded = self.image[self._spread_disks()]
-        spread = 1.4826 * float(np.median(np.abs(seeded - np.median(seeded)))) if seeded.size >= 9 else 0.0
-        self.noise = max(noise_level(self.image, self.seeds[:, :-1]), spread)
         if self.model == "window":
             self.smoothing = self.window_sigma_mm / float(np.min(self.spacing))
 
@@ -324,23 +401,6 @@ class RegionGrowth:
         while not self.finished:
             self.step()
         return self.inside
-
-    def _spread_disks(self) -> NDArray[np.bool_]:
-        """The pixels whose spread gives the noise: the seed disks, at least SPREAD_BLOCKS resolved blocks in radius.
-
-        An oversampled image (an interpolated reconstruction, a spline
-        zoom) spreads each acquired pixel over a block of ``resolved``
-        pixels a side: a seed disk of a few pixels then holds one or two
-        acquired pixels, whose spread is not the noise's. Widened to a few
-        blocks it holds what a seed of that radius holds at the acquired
-        pixel.
-        """
-        if self.resolved <= 1:
-            return self._seed_mask
-        seeds = self.seeds.copy()
-        seeds[:, -1] = np.maximum(seeds[:, -1], SPREAD_BLOCKS * self.resolved)
-        disks = seed_disks(self.image.shape, seeds)
-        return disks & ~self.barrier if self.barrier is not None else disks
 
     # ------------------------------------------------------------------ passes
     def _sigma_px(self, smoothing: float) -> NDArray[np.floating]:
