@@ -1,8 +1,8 @@
-"""A click wider than the structure under it: the flood's noise figure and the seed's own tissue.
+"""A click wider than the structure under it: the seed's own tissue and the flood's noise figure.
 
 A seed disk of 3-5 px (what a click gives) on a vessel 3 px wide holds the
-vessel's surroundings too. The noise figure must not read the vessel's
-contrast as noise, and the flood must not start from the surroundings.
+vessel's surroundings too. The flood must not start from the surroundings,
+and its noise figure must not read the vessel's contrast as noise.
 """
 
 from __future__ import annotations
@@ -14,19 +14,20 @@ from scipy import ndimage
 
 import growth_phantoms as gp
 from engine.analysis.metrics import dice
-from engine.image.growth import MIXED_SEED, noise_level, seed_noise, seed_tissue
+from engine.image.growth import MIXED_SEED, RegionGrowth, noise_level, seed_noise, seed_tissue
 from engine.front.geometry import seed_disks
 from engine.segment import segment
 
 
 @pytest.mark.parametrize("kernel", [0.0, 0.5, 0.7, 1.0])
-def test_the_noise_figure_reads_the_pixels_noise_beside_an_edge_through_the_seed(kernel: float) -> None:
+def test_the_haar_figure_reads_the_pixels_noise_beside_an_edge_through_the_seed(kernel: float) -> None:
     # White Gaussian noise, smoothed by a Gaussian of `kernel` px (a reconstruction kernel: noise correlated
     # between pixels), with a step of 5 noise deviations through the seed's centre; family of 10 draws.
     # The median of |Haar diagonal coefficients| / 0.6745 (Donoho & Johnstone, Biometrika 81 (1994)) at the
     # finest level and the next ignores the few coefficients on the edge and reads the pixel deviation
-    # (np.std of the noise field) within [0.85, 1.25] (0.89-1.21 measured); the finest level alone reads
-    # 0.40-0.43 of it at a kernel of 0.7 px and 0.22-0.24 at 1 px (measured), which is why the next counts.
+    # (np.std of the noise field) within [0.75, 1.4] (0.82-1.33 measured; the next level's box holds 256
+    # coefficients); the finest level alone reads 0.39-0.45 of it at a kernel of 0.7 px and 0.20-0.23 at
+    # 1 px (measured), which is why the next counts. The seed's tissue is told apart against this figure.
     rng = np.random.default_rng(40 + int(10 * kernel))
     ratios, finest = [], []
     for _ in range(10):
@@ -38,8 +39,8 @@ def test_the_noise_figure_reads_the_pixels_noise_beside_an_edge_through_the_seed
         image[:, 96:] += 5.0 * sigma
         centre = np.array([[rng.uniform(80, 112), 96.3]])
         ratios.append(seed_noise(image, centre) / sigma)
-        finest.append(noise_level(image, centre) / sigma)
-    assert 0.85 <= min(ratios) and max(ratios) <= 1.25, ratios
+        finest.append(seed_noise(image, centre, levels=1) / sigma)
+    assert 0.75 <= min(ratios) and max(ratios) <= 1.4, ratios
     if kernel >= 0.7:
         assert max(finest) < 0.5, finest
 
@@ -93,6 +94,18 @@ def test_a_click_inside_one_tissue_keeps_its_whole_disk_even_at_snr_2() -> None:
         disks = seed_disks(image.shape, seed)
         kept = seed_tissue(image, seed, seed_noise(image, seed[:, :-1]), disks)
         assert np.array_equal(kept, disks), f"draw {i}"
+
+
+def test_the_flood_reads_a_clicked_vessels_noise_not_its_contrast() -> None:
+    # The noise figure is the larger of the finest Haar figure and the spread (MAD × 1.4826, common
+    # practice) of the seed tissue's pixels. On the clicked-vessel family (SNR 8-15, noise 1/SNR known)
+    # it reads at most 3 times the noise (1.04-2.51 measured: the tissue kept still holds partial-volume
+    # pixels); the spread of the whole disk read 2.7-8 times, the vessel's contrast.
+    for i in range(10):
+        case = gp.clicked_vessel(np.random.default_rng([77, i]))
+        flood = RegionGrowth(case.image, np.array([case.seed]), spacing=np.array(case.spacing))
+        truth = 1.0 / case.info["snr"]
+        assert 0.8 * truth <= flood.noise <= 3.0 * truth, f"draw {i}: {flood.noise:.3f} against {truth:.3f}"
 
 
 def test_a_clicked_winding_vessel_fills_and_comes_to_rest() -> None:

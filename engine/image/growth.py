@@ -40,12 +40,15 @@ statistics; the rim and ring at least the block the image resolves wide,
 behind it) and the level set finishes. Pixels connect through faces only (a
 one-pixel diagonal gap is not a path), and a pixel on an edge much steeper
 than the region's own contrast is a mixture of two other tissues and waits
-for the level set. Noise is the larger of the estimates from the diagonal
-wavelet coefficients near the seeds at the finest resolved level and the
-next (Donoho & Johnstone 1994; :func:`seed_noise`: noise correlated between
-pixels hides from the finest coefficients) and the spread of what the
-region held a pass ago (the pixels a pass lets in do not loosen the test
-for their neighbours, or a leak feeds itself); the image is
+for the level set. A seed disk wider than the structure under it (a click
+on a thin vessel) holds its surroundings too: the flood starts from the
+tissue at the disk's centre only (:func:`seed_tissue`). Noise is the larger
+of the estimate from the finest diagonal wavelet coefficients near the
+seeds at the resolved pixel (Donoho & Johnstone 1994) and the spread of
+that seed tissue's pixels and of what the region held a pass ago (noise
+correlated between pixels hides from the finest coefficients; the pixels a
+pass lets in do not loosen the test for their neighbours, or a leak feeds
+itself); the image is
 smoothed just enough that a quarter of the contrast found around the first
 region is ``MARGIN`` noise deviations (no smoothing at high SNR, so strips
 two pixels wide stay connected). The intensity-window model floods the
@@ -150,6 +153,10 @@ MIXED_SEED = 4.0
 CENTRE_RADIUS = 1.5
 #: A disk of fewer pixels is kept whole.
 MIN_MIXED_PIXELS = 9
+#: On an oversampled image the spread of the seed tissue's intensities within this many resolved blocks of each
+#: seed's centre (at least its disk) gives the noise (:meth:`RegionGrowth._spread_pixels`): the radius of a seed a
+#: click gives at the acquired pixel.
+SPREAD_BLOCKS = 3
 #: Half-side (pixels) of the box around each seed whose wavelet coefficients give the noise.
 NOISE_BOX = 32
 #: Holes of the region smaller than this (in pixels, 2-D; voxels in 3-D ×4) are filled.
@@ -187,34 +194,36 @@ def noise_level(image: NDArray[np.floating], centres: ArrayLike, *, half: int = 
     return float(np.median(figures)) if figures else 0.0
 
 
-def seed_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 1) -> float:
-    """Noise standard deviation of one resolved pixel near ``centres`` (pixel coordinates).
+def seed_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 1, *, levels: int = 2) -> float:
+    """Noise standard deviation of one resolved pixel near ``centres`` (pixel coordinates), from Haar coefficients.
 
-    The larger of :func:`noise_level` on the block means of the resolved
-    block (``resolved`` pixels a side; the image itself at 1) and twice that
-    on blocks twice as large. White noise reads alike on both (the mean of
-    four independent values varies half as much, common practice); noise
-    correlated over a pixel or two (a CT reconstruction kernel, lossy
-    compression) hides from the finest coefficients, not from the next
-    level's. Both are medians of Haar coefficients over boxes around the
-    seeds (Donoho & Johnstone 1994), so an edge within a seed's disk does
-    not count: a click wider than a thin vessel holds the vessel's
-    surroundings too, and the spread of its pixels would read the vessel's
-    contrast as noise.
+    :func:`noise_level` on the block means of the resolved block
+    (``resolved`` pixels a side; the image itself at 1) and, with
+    ``levels=2``, the larger of that and twice the figure on blocks twice
+    as large. White noise reads alike on both (the mean of four independent
+    values varies half as much, common practice); noise correlated over a
+    pixel or two (a CT reconstruction kernel, lossy compression) hides from
+    the finest coefficients, not from the next level's, though on a textured
+    organ that level reads the texture too. Both are medians of
+    coefficients over boxes around the seeds (Donoho & Johnstone 1994), so
+    an edge in a seed's disk (a click wider than a thin vessel) does not
+    count.
     """
     img = np.asarray(image, dtype=float)
     points = np.atleast_2d(np.asarray(centres, dtype=float))
     block = max(int(resolved), 1)
-    # only the boxes the coefficients are read in, aligned to the larger blocks
+    # only the box the coefficients are read in, aligned to the larger blocks
     step = 2 * block
-    reach = NOISE_BOX * step
+    reach = NOISE_BOX * block
     lo = np.maximum((np.floor(points.min(axis=0)).astype(int) - reach) // step * step, 0)
     hi = np.minimum(np.ceil(points.max(axis=0)).astype(int) + reach + 1, img.shape)
     img = img[tuple(slice(a, b) for a, b in zip(lo, hi))]
     points = points - lo
     level = block_mean(img, block) if block > 1 else img
     fine = noise_level(level, to_coarse(points, block), half=NOISE_BOX)
-    coarse = 2.0 * noise_level(block_mean(level, 2), to_coarse(points, step), half=NOISE_BOX)
+    if levels < 2:
+        return fine
+    coarse = 2.0 * noise_level(block_mean(level, 2), to_coarse(points, step), half=NOISE_BOX // 2)
     return max(fine, coarse)
 
 
@@ -335,10 +344,18 @@ class RegionGrowth:
             self.inside &= ~self.barrier
         if not self.inside.any():
             raise ValueError("seeds: no pixel centre lies inside the seed disks")
-        self.noise = seed_noise(self.image, self.seeds[:, :-1], self.resolved)
+        # a click wider than the structure under it holds the surroundings too: told apart by the
+        # Haar figure of the noise, which an edge in the disk does not touch
+        haar = seed_noise(self.image, self.seeds[:, :-1], self.resolved)
         if self.model == "region":
-            self.inside = seed_tissue(self.image, self.seeds, self.noise, self.inside)
+            self.inside = seed_tissue(self.image, self.seeds, haar, self.inside)
         self._seed_mask = self.inside.copy()
+        # white noise from the finest resolved Haar level; noise correlated between pixels (a CT
+        # reconstruction kernel, lossy compression) hides from it, not from the spread of the seed
+        # tissue's own pixels
+        tissue = self.image[self._spread_pixels(haar)]
+        spread = 1.4826 * float(np.median(np.abs(tissue - np.median(tissue)))) if tissue.size >= 9 else 0.0
+        self.noise = max(seed_noise(self.image, self.seeds[:, :-1], self.resolved, levels=1), spread)
         if self.model == "window":
             self.smoothing = self.window_sigma_mm / float(np.min(self.spacing))
 
@@ -401,6 +418,26 @@ class RegionGrowth:
         while not self.finished:
             self.step()
         return self.inside
+
+    def _spread_pixels(self, haar: float) -> NDArray[np.bool_]:
+        """The pixels whose spread gives the noise: the seeds' tissue, in disks of at least SPREAD_BLOCKS resolved blocks.
+
+        An oversampled image (an interpolated reconstruction, a spline
+        zoom) spreads each acquired pixel over a block of ``resolved``
+        pixels a side: a seed disk of a few pixels then holds one or two
+        acquired pixels, whose spread is not the noise's. Widened to a few
+        blocks it holds what a seed of that radius holds at the acquired
+        pixel. The region model keeps the tissue at the disks' centres
+        (:func:`seed_tissue`, against the Haar figure ``haar``).
+        """
+        if self.resolved <= 1:
+            return self._seed_mask
+        seeds = self.seeds.copy()
+        seeds[:, -1] = np.maximum(seeds[:, -1], SPREAD_BLOCKS * self.resolved)
+        disks = seed_disks(self.image.shape, seeds)
+        if self.barrier is not None:
+            disks &= ~self.barrier
+        return seed_tissue(self.image, seeds, haar, disks) if self.model == "region" else disks
 
     # ------------------------------------------------------------------ passes
     def _sigma_px(self, smoothing: float) -> NDArray[np.floating]:
