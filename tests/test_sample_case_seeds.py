@@ -21,8 +21,9 @@ from engine.segment import segment
 
 ROOT = Path(__file__).resolve().parents[1] / "sample_cases"
 CASES = ("abdomen_mr", "head_mr")
-#: Steps any documented seed may take (flood passes and front steps).
-STEP_BUDGET = 600
+#: Steps any documented seed may take (flood passes and front steps). At most 205 are taken; the left kidney
+#: of the abdomen took 545 while the layer's drift near rest was checked only every tenth step.
+STEP_BUDGET = 300
 
 
 def _documented_seeds():

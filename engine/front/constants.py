@@ -32,6 +32,10 @@ STATISTICS_EVERY = 10
 #: every LAYER_IDLE_STEPS steps.
 LAYER_DRIFT = 0.25
 LAYER_IDLE_STEPS = 100
+#: Near rest (the outline moved less than this many convergence tolerances over
+#: the convergence window) the layer's drift is checked at every step, so a
+#: refresh comes as soon as it is due and each jump of what it reads is small.
+SETTLING = 4.0
 #: Steps between picks of the active nodes near the front, which evolve by
 #: their own derivatives (the rest of the band takes its layer node's rate).
 NEAR_EVERY = 5

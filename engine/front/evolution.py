@@ -65,7 +65,7 @@ from functools import lru_cache
 import numpy as np
 from numpy.typing import NDArray
 
-from engine.front.constants import (KINK_GRADIENT, LAYER_WIDTH, MIN_SPEED, NEAR_EVERY, REINIT_DRIFT,
+from engine.front.constants import (KINK_GRADIENT, LAYER_WIDTH, MIN_SPEED, NEAR_EVERY, REINIT_DRIFT, SETTLING,
                                     STATISTICS_EVERY)
 from engine.front.convergence import OutlineMotion
 from engine.front.speeds import NodeSpeeds
@@ -321,7 +321,7 @@ class Evolution:
         self._sync_inside()
         if np.min(new) >= 0.0 or np.max(new) < 0.0:  # no zero crossing left
             self._vanish()
-        elif self.steps % STATISTICS_EVERY == 0 and self._layer_is_stale():
+        elif (self.steps % STATISTICS_EVERY == 0 or self._settling()) and self._layer_is_stale():
             self._refresh_layer()
         self.timings["step"] += _time.perf_counter() - t0
         if self._vanished:
@@ -333,6 +333,11 @@ class Evolution:
                 self.rebuild(reinitialise=True if flattened else None)
             except FrontVanished:
                 self._vanish()
+
+    def _settling(self) -> bool:
+        """True while the outline moves less than SETTLING convergence tolerances over the window (near rest)."""
+        monitor = self._motion_monitor()
+        return monitor.displacement_mm < SETTLING * monitor.tolerance_mm
 
     def _pick_near(self) -> None:
         """Split the active nodes: those the layer's stencils can read evolve by their own derivatives.
