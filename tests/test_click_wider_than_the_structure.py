@@ -7,16 +7,20 @@ and its noise figure must not read the vessel's contrast as noise.
 
 from __future__ import annotations
 
-
 import numpy as np
 import pytest
 from scipy import ndimage
 
 import growth_phantoms as gp
 from engine.analysis.metrics import dice
-from engine.image.growth import MIXED_SEED, RegionGrowth, noise_level, seed_noise, seed_tissue
 from engine.front.geometry import seed_disks
+from engine.image.growth import MIXED_SEED, RegionGrowth, haar_noise, noise_level, seed_tissue
 from engine.segment import segment
+
+
+def _haar(image: np.ndarray, centres: np.ndarray, resolved: int = 1) -> float:
+    """The Haar figure that decides a click's tissue: the larger of the finest resolved level and the next."""
+    return max(haar_noise(image, centres, resolved))
 
 
 @pytest.mark.parametrize("kernel", [0.0, 0.5, 0.7, 1.0])
@@ -38,8 +42,8 @@ def test_the_haar_figure_reads_the_pixels_noise_beside_an_edge_through_the_seed(
         image = field.copy()
         image[:, 96:] += 5.0 * sigma
         centre = np.array([[rng.uniform(80, 112), 96.3]])
-        ratios.append(seed_noise(image, centre) / sigma)
-        finest.append(seed_noise(image, centre, levels=1) / sigma)
+        ratios.append(_haar(image, centre) / sigma)
+        finest.append(haar_noise(image, centre)[0] / sigma)
     assert 0.75 <= min(ratios) and max(ratios) <= 1.4, ratios
     if kernel >= 0.7:
         assert max(finest) < 0.5, finest
@@ -57,7 +61,7 @@ def test_on_an_oversampled_image_the_noise_figure_is_the_resolved_pixels() -> No
 
     sigma = float(block_mean(image, 4).std())
     centre = np.array([[190.0, 170.0]])
-    assert 0.8 <= seed_noise(image, centre, resolved=4) / sigma <= 1.25
+    assert 0.8 <= _haar(image, centre, resolved=4) / sigma <= 1.25
     assert noise_level(image, centre) < 0.2 * sigma
 
 
@@ -74,7 +78,7 @@ def test_a_click_on_a_strip_keeps_only_the_strip() -> None:
         r, c = np.array(case.seed[:2]) + 100.0 * np.array(case.info["direction"])
         seed = np.array([[r + rng.uniform(-0.4, 0.4), c + rng.uniform(-0.4, 0.4), rng.uniform(3.0, 5.0)]])
         disks = seed_disks(case.image.shape, seed)
-        noise = seed_noise(case.image, seed[:, :-1])
+        noise = _haar(case.image, seed[:, :-1])
         kept = seed_tissue(case.image, seed, noise, disks)
         near = ndimage.binary_dilation(case.truth)  # within one face step of a pixel centred in the strip
         assert kept.any() and not (kept & ~near).any(), f"draw {i}"
@@ -92,7 +96,7 @@ def test_a_click_inside_one_tissue_keeps_its_whole_disk_even_at_snr_2() -> None:
         image = 1.0 + rng.normal(scale=0.5, size=(64, 64))
         seed = np.array([[rng.uniform(20, 44), rng.uniform(20, 44), rng.uniform(3.0, 5.0)]])
         disks = seed_disks(image.shape, seed)
-        kept = seed_tissue(image, seed, seed_noise(image, seed[:, :-1]), disks)
+        kept = seed_tissue(image, seed, _haar(image, seed[:, :-1]), disks)
         assert np.array_equal(kept, disks), f"draw {i}"
 
 

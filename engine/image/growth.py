@@ -194,20 +194,19 @@ def noise_level(image: NDArray[np.floating], centres: ArrayLike, *, half: int = 
     return float(np.median(figures)) if figures else 0.0
 
 
-def seed_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 1, *, levels: int = 2) -> float:
+def haar_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 1) -> tuple[float, float]:
     """Noise standard deviation of one resolved pixel near ``centres`` (pixel coordinates), from Haar coefficients.
 
-    :func:`noise_level` on the block means of the resolved block
-    (``resolved`` pixels a side; the image itself at 1) and, with
-    ``levels=2``, the larger of that and twice the figure on blocks twice
-    as large. White noise reads alike on both (the mean of four independent
-    values varies half as much, common practice); noise correlated over a
-    pixel or two (a CT reconstruction kernel, lossy compression) hides from
-    the finest coefficients, not from the next level's, though on a textured
-    organ that level reads the texture too. Both are medians of
-    coefficients over boxes around the seeds (Donoho & Johnstone 1994), so
-    an edge in a seed's disk (a click wider than a thin vessel) does not
-    count.
+    Two figures: :func:`noise_level` on the block means of the resolved
+    block (``resolved`` pixels a side; the image itself at 1), and twice
+    that on blocks twice as large. White noise reads alike on both (the
+    mean of four independent values varies half as much, common practice);
+    noise correlated over a pixel or two (a CT reconstruction kernel, lossy
+    compression) hides from the finest coefficients, not from the next
+    level's, though on a textured organ that level reads the texture too.
+    Both are medians of coefficients over boxes around the seeds (Donoho &
+    Johnstone 1994), so an edge in a seed's disk (a click wider than a thin
+    vessel) does not count.
     """
     img = np.asarray(image, dtype=float)
     points = np.atleast_2d(np.asarray(centres, dtype=float))
@@ -220,11 +219,9 @@ def seed_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 
     img = img[tuple(slice(a, b) for a, b in zip(lo, hi))]
     points = points - lo
     level = block_mean(img, block) if block > 1 else img
-    fine = noise_level(level, to_coarse(points, block), half=NOISE_BOX)
-    if levels < 2:
-        return fine
-    coarse = 2.0 * noise_level(block_mean(level, 2), to_coarse(points, step), half=NOISE_BOX // 2)
-    return max(fine, coarse)
+    finest = noise_level(level, to_coarse(points, block), half=NOISE_BOX)
+    next_level = 2.0 * noise_level(block_mean(level, 2), to_coarse(points, step), half=NOISE_BOX // 2)
+    return finest, next_level
 
 
 def seed_tissue(image: NDArray[np.floating], seeds: NDArray[np.floating], noise: float,
@@ -346,7 +343,8 @@ class RegionGrowth:
             raise ValueError("seeds: no pixel centre lies inside the seed disks")
         # a click wider than the structure under it holds the surroundings too: told apart by the
         # Haar figure of the noise, which an edge in the disk does not touch
-        haar = seed_noise(self.image, self.seeds[:, :-1], self.resolved)
+        finest, next_level = haar_noise(self.image, self.seeds[:, :-1], self.resolved)
+        haar = max(finest, next_level)
         if self.model == "region":
             self.inside = seed_tissue(self.image, self.seeds, haar, self.inside)
         self._seed_mask = self.inside.copy()
@@ -355,7 +353,7 @@ class RegionGrowth:
         # tissue's own pixels
         tissue = self.image[self._spread_pixels(haar)]
         spread = 1.4826 * float(np.median(np.abs(tissue - np.median(tissue)))) if tissue.size >= 9 else 0.0
-        self.noise = max(seed_noise(self.image, self.seeds[:, :-1], self.resolved, levels=1), spread)
+        self.noise = max(finest, spread)
         if self.model == "window":
             self.smoothing = self.window_sigma_mm / float(np.min(self.spacing))
 
