@@ -106,11 +106,27 @@ def annulus(side: int = 256, *, noise: float = 0.05, seed: int = 0, seed_radius:
                 info={"inside": inside})
 
 
+def sine_path(side: int, amplitude: float, period: float, phase: float = 0.0) -> np.ndarray:
+    """Points (row, col) along a sine across the image: ``amplitude`` and ``period`` as fractions of the side."""
+    cols = np.linspace(0.08 * side, 0.92 * side, 8 * side)
+    rows = side / 2.0 + amplitude * side * np.sin(2 * np.pi * cols / (period * side) + phase)
+    return np.column_stack([rows, cols])
+
+
 def channel_path(side: int) -> np.ndarray:
     """Points (row, col) along a winding path (two sine periods across the image)."""
-    cols = np.linspace(0.08 * side, 0.92 * side, 8 * side)
-    rows = side / 2.0 + 0.3 * side * np.sin(2 * np.pi * cols / (0.45 * side))
-    return np.column_stack([rows, cols])
+    return sine_path(side, 0.3, 0.45)
+
+
+def near_path(path: np.ndarray, width: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
+    """Inside test of the tube ``width`` px wide around ``path`` (pixels)."""
+    tree = cKDTree(path)
+
+    def inside(rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+        d, _ = tree.query(np.column_stack([np.ravel(rows), np.ravel(cols)]), workers=2)
+        return (d <= width / 2.0).reshape(np.shape(rows))
+
+    return inside
 
 
 def channel(side: int = 256, *, width: float | None = None, noise: float = 0.05, seed: int = 0,
@@ -118,12 +134,7 @@ def channel(side: int = 256, *, width: float | None = None, noise: float = 0.05,
     """A channel ``width`` px wide (default side/42, 6 px at 256²) along a winding path, seeded at one end."""
     w = side / 42.0 if width is None else width
     path = channel_path(side)
-    tree = cKDTree(path)
-
-    def inside(rows, cols):
-        d, _ = tree.query(np.column_stack([np.ravel(rows), np.ravel(cols)]), workers=2)
-        return (d <= w / 2.0).reshape(np.shape(rows))
-
+    inside = near_path(path, w)
     image = render((side, side), (inside, 1.0)) + np.random.default_rng(seed).normal(0, noise, (side, side))
     length = float(np.sum(np.hypot(*np.diff(path, axis=0).T)))
     start = path[int(0.02 * len(path))]
@@ -332,14 +343,8 @@ def clicked_vessel(rng: np.random.Generator, side: int = 256, *, snr: tuple[floa
     radius = rng.uniform(3.0, 5.0)
     noise = 1.0 / rng.uniform(*snr)
     amp, period, phase = rng.uniform(0.15, 0.3), rng.uniform(0.3, 0.6), rng.uniform(0.0, 2.0 * np.pi)
-    cols = np.linspace(0.08 * side, 0.92 * side, 8 * side)
-    path = np.column_stack([side / 2.0 + amp * side * np.sin(2 * np.pi * cols / (period * side) + phase), cols])
-    tree = cKDTree(path)
-
-    def inside(rows, cols):
-        d, _ = tree.query(np.column_stack([np.ravel(rows), np.ravel(cols)]))
-        return (d <= w / 2.0).reshape(np.shape(rows))
-
+    path = sine_path(side, amp, period, phase)
+    inside = near_path(path, w)
     image = render((side, side), (inside, 1.0)) + rng.normal(0, noise, (side, side))
     at = path[int(rng.uniform(0.02, 0.98) * len(path))] + rng.normal(0, 0.3, 2)
     return Case(f"vessel {w:.1f} px", image, truth_of((side, side), inside), (at[0], at[1], radius),
