@@ -56,7 +56,10 @@ pixels whose smoothed intensity lies in the inner half of its window.
 
 The flood only ever adds pixels the model would add, and stops short of any
 boundary it is unsure of, so it never has to be undone: the level set only
-moves the last pixel or so.
+moves the last pixel or so. A flood that takes the whole image (more than
+``UNBOUNDED`` of it) has had its likeness test widened by a leak: it starts
+again from the seeds, judging likeness by the noise figure alone, and gives
+the seeds back only if that flood takes the whole image too.
 
 References
 ----------
@@ -322,6 +325,7 @@ class RegionGrowth:
     passes: int = field(init=False, default=0)
     finished: bool = field(init=False, default=False)
     unbounded: bool = field(init=False, default=False)
+    restarted: bool = field(init=False, default=False)  # a flood that reached the whole image started again
     noise: float = field(init=False, default=0.0)
     smoothing: float = field(init=False, default=FIRST_SMOOTHING)
     contrast: float = field(init=False, default=0.0)
@@ -371,6 +375,8 @@ class RegionGrowth:
                "noise": round(float(self.noise), 6), "smoothing_px": self.smoothing}
         if self.model == "region":
             out["contrast"] = round(float(self.contrast), 6)
+        if self.restarted:
+            out["restarted"] = True
         if self.unbounded:
             out["unbounded"] = True
         return out
@@ -405,6 +411,9 @@ class RegionGrowth:
         if self._settling >= MAX_PASSES:
             self.finished = True
         if self.inside.sum() > UNBOUNDED * self.inside.size:
+            if self.model == "region" and not self.restarted:  # the spread of a leak widened the test
+                self._restart()
+                return True
             # no boundary anywhere: the flood found nothing to stop at; give the seeds back
             self.inside = self._seed_mask.copy()
             self.unbounded = True
@@ -416,6 +425,21 @@ class RegionGrowth:
             if self.barrier is not None:
                 self.inside &= ~self.barrier
         return not self.finished
+
+    def _restart(self) -> None:
+        """Start again from the seeds, judging likeness by the noise figure alone.
+
+        The spread of what the region holds widens the likeness test (noise
+        correlated between pixels, texture, the profile across a vessel);
+        once the flood has taken the whole image, a leak has widened it. The
+        second flood keeps the smoothing and the contrast the first one found.
+        """
+        self.inside = self._seed_mask.copy()
+        self.restarted = True
+        self._previous = None
+        self._widen = False
+        self._settling = 0
+        self.finished = False
 
     def run(self) -> NDArray[np.bool_]:
         """All passes; the flooded region."""
@@ -511,11 +535,12 @@ class RegionGrowth:
         smooth = self._smoothed_image(smoothing, box)
         noise = max(self._smoothed_noise(smoothing), 1e-12)
         core, ring = self._core_and_ring(region, smoothing)
-        if core.sum() >= 50:
+        if core.sum() >= 50 and not self.restarted:
             # what the region already holds varies this much (noise correlated between pixels
             # falls less under smoothing than white noise; texture; a bias field), over the pixels
             # it held a pass ago: the pixels the last pass let in do not loosen the test that
-            # judges their neighbours (else a test loosened by a leak lets in more of it, pass by pass)
+            # judges their neighbours (else a test loosened by a leak lets in more of it, pass by pass);
+            # a flood started again after a leak judges by the noise figure alone (:meth:`_restart`)
             held = core if self._previous is None else core & self._previous[box]
             values = smooth[held if held.sum() >= 50 else core]
             noise = max(noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
@@ -564,7 +589,7 @@ class RegionGrowth:
             # also alike on a calmer scale: a weak edge hides in the pass's noise, not in the calm image's
             calm = self._smoothed_image(CALM_SMOOTHING, box)
             calm_noise = max(self._smoothed_noise(CALM_SMOOTHING), 1e-12)
-            if core.sum() >= 50:
+            if core.sum() >= 50 and not self.restarted:
                 values = calm[core]
                 calm_noise = max(calm_noise, 1.4826 * float(np.median(np.abs(values - np.median(values)))))
             # (never stricter than a twentieth of the contrast: a noise-free image has no noise to average)
