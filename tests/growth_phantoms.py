@@ -351,6 +351,47 @@ def clicked_vessel(rng: np.random.Generator, side: int = 256, *, snr: tuple[floa
                 info={"width_px": w, "snr": 1.0 / noise, "inside": inside})
 
 
+def magnitude_noise(rng: np.random.Generator, side: int = 160) -> Case:
+    """An object (1) on a background of 0.1-0.3 in a magnitude image: Rician noise at SNR 3-6.
+
+    An MR magnitude image is |signal + complex Gaussian noise| (Gudbjartsson & Patz, Magn. Reson. Med.
+    34 (1995) 910-914): the noise is not Gaussian, and it lifts the dark background by about σ·√(π/2)
+    where the signal is low, so the contrast is less than the signals' difference.
+    """
+    mean = rng.uniform(18, 34)
+    centre = _place(rng, side, mean)
+    obj = polar_shape(centre, blob_radius(rng, mean))
+    sigma = 1.0 / rng.uniform(3.0, 6.0)
+    background = rng.uniform(0.1, 0.3)
+    clean = render((side, side), (obj, 1.0), background=background)
+    image = np.hypot(clean + rng.normal(0, sigma, clean.shape), rng.normal(0, sigma, clean.shape))
+    truth = truth_of((side, side), obj)
+    return Case("magnitude noise", image, truth, _seed_in(rng, truth),
+                info={"snr": 1.0 / sigma, "background": background})
+
+
+def concave_arc(rng: np.random.Generator, side: int = 160) -> Case:
+    """A C-shaped arc 8-16 px wide bent through 180-306° (radius 0.28-0.4·side), clicked near one end, SNR 5-20.
+
+    The front must travel round the bend from the click to the far end; the arc's inner side is concave.
+    """
+    centre = (side / 2.0 + rng.uniform(-6, 6), side / 2.0 + rng.uniform(-6, 6))
+    radius, width = rng.uniform(0.28, 0.4) * side, rng.uniform(8.0, 16.0)
+    span, turn = rng.uniform(1.0, 1.7) * np.pi, rng.uniform(0.0, 2.0 * np.pi)
+
+    def inside(rows, cols):
+        y, x = rows - centre[0], cols - centre[1]
+        angle = np.mod(np.arctan2(y, x) - turn, 2.0 * np.pi)
+        return (np.abs(np.hypot(y, x) - radius) < width / 2.0) & (angle < span)
+
+    noise = 1.0 / rng.uniform(5.0, 20.0)
+    image = render((side, side), (inside, 1.0)) + rng.normal(0, noise, (side, side))
+    at = turn + rng.uniform(0.02, 0.15) * span
+    seed = (centre[0] + radius * np.sin(at), centre[1] + radius * np.cos(at), float(rng.uniform(3.0, 5.0)))
+    return Case("concave arc", image, truth_of((side, side), inside), seed,
+                info={"width_px": width, "span_deg": float(np.degrees(span)), "snr": 1.0 / noise})
+
+
 FAMILIES: dict[str, Callable[[np.random.Generator], Case]] = {
     "weak_edge": weak_edge,
     "narrow_gap": narrow_gap,
@@ -358,6 +399,8 @@ FAMILIES: dict[str, Callable[[np.random.Generator], Case]] = {
     "ct_bone": ct_bone,
     "blur": blurred,
     "dark_on_bright": dark_on_bright,
+    "magnitude_noise": magnitude_noise,
+    "concave_arc": concave_arc,
 }
 
 

@@ -5,7 +5,8 @@ size, position, seed radius (3-5 px) and its offset from the centre, and
 the hazard's own strength (a weak edge at 10-20 % of the contrast, a gap of
 1-2 px to a same-intensity neighbour, SNR 2-3, a CT organ 20-40 HU above
 soft tissue pressed against bone, a blur of σ 2-3 px, a dark structure on
-a bright background). The assertions are on the family: the 10th
+a bright background, the Rician noise of an MR magnitude image at SNR 3-6,
+a concave arc clicked near one end). The assertions are on the family: the 10th
 percentile of Dice against the pixel-centre truth and the fraction that
 converge, with the default model (region) and settings.
 """
