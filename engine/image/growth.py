@@ -432,7 +432,9 @@ class RegionGrowth:
         The spread of what the region holds widens the likeness test (noise
         correlated between pixels, texture, the profile across a vessel);
         once the flood has taken the whole image, a leak has widened it. The
-        second flood keeps the smoothing and the contrast the first one found.
+        second flood keeps the smoothing and the contrast the first one chose
+        (a leak during the first smoothing's passes leaves them to be chosen
+        as the first flood would have).
         """
         self.inside = self._seed_mask.copy()
         self.restarted = True
