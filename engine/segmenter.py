@@ -39,6 +39,7 @@ from engine.front.constants import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS
 from engine.front.core import Front
 from engine.front.geometry import seed_disks
 from engine.front.speeds import SETTING_NAMES
+from engine.image.boxes import occupied_box
 from engine.image.coarse_start import (COARSE_MAX_STEPS, COARSE_TOL_FACTOR, block_mean, coarse_seeds,
                                        resolvable_factor, upsample_phi)
 from engine.image.features import ImageFeatures, check_features, compute_features
@@ -328,11 +329,9 @@ class Segmenter:
         inside = self._growth.inside
         band = FrontParams(model=self._model, **self._params).band_width * float(np.max(self._spacing))
         pad = np.ceil((band + 4.0 * float(np.max(self._spacing))) / self._spacing).astype(int) + 3
-        nz = [np.flatnonzero(np.any(inside, axis=tuple(j for j in range(inside.ndim) if j != i)))
-              for i in range(inside.ndim)]
-        lo = np.array([max(int(a[0]) - p, 0) for a, p in zip(nz, pad)])
-        hi = np.array([min(int(a[-1]) + p + 1, n) for a, p, n in zip(nz, pad, inside.shape)])
-        box = tuple(slice(a, b) for a, b in zip(lo, hi))
+        box = occupied_box(inside, pad)
+        lo = np.array([s.start for s in box])
+        hi = np.array([s.stop for s in box])
         part = inside[box]
         step = float(np.min(self._spacing))
         beyond = START_BEYOND * step

@@ -16,6 +16,7 @@ from engine.front.constants import (FAR, FLAT_DRIFT, LAYER_DRIFT, LAYER_IDLE_STE
                                     REINIT_EVERY)
 from engine.front.geometry import grid_crossing_points
 from engine.front.state import FrontVanished, _locked
+from engine.image.boxes import occupied_box
 from engine.image.statistics import estimate_window_from_mask, robust_std
 from engine.nodes.lattice import LatticeLookup
 from engine.nodes import layout as _layout
@@ -279,13 +280,10 @@ def _boundary_pixel_values(oracle: Callable[[NDArray[np.floating]], NDArray[np.f
     if mask.shape != tuple(shape) or mask.dtype != bool:
         raise ValueError(f"inside must be a boolean mask of shape {tuple(shape)}, got {mask.dtype} {mask.shape}")
     out = np.where(mask, -1.0, 1.0)
-    # the mask's box from its projections on the axes (a list of its pixels would take 100 times longer)
-    along = [np.flatnonzero(np.any(mask, axis=tuple(j for j in range(mask.ndim) if j != i))) for i in range(mask.ndim)]
-    if len(along[0]) == 0:
+    box = occupied_box(mask, 1)
+    if box is None:
         return out
-    lo = np.maximum(np.array([a[0] for a in along]) - 1, 0)
-    hi = np.minimum(np.array([a[-1] for a in along]) + 2, np.array(shape))
-    box = tuple(slice(a, b) for a, b in zip(lo, hi))
+    lo = np.array([s.start for s in box])
     part = mask[box]
     border = np.zeros(part.shape, dtype=bool)
     for axis in range(part.ndim):

@@ -92,6 +92,7 @@ from skimage.filters import threshold_otsu
 
 from engine.front.constants import SIDE_SHARE
 from engine.front.geometry import seed_disks
+from engine.image.boxes import occupied_box, widened
 from engine.image.coarse_start import block_mean, to_coarse
 from engine.image.ring_statistics import core_and_ring
 
@@ -499,13 +500,11 @@ class RegionGrowth:
 
     def _box(self) -> tuple[slice, ...]:
         """The part of the image a pass works on: the region's bounding box widened by BOX_RADII local radii."""
-        nz = [np.flatnonzero(np.any(self.inside, axis=tuple(j for j in range(self.image.ndim) if j != i)))
-              for i in range(self.image.ndim)]
+        tight = occupied_box(self.inside)
         pad = np.maximum(np.ceil(BOX_RADII * self.local_radius_mm / self.spacing), BOX_PAD).astype(int)
         if self._widen:  # the last pass reached its box: as far again as the region reaches
-            pad = np.maximum(pad, np.array([int(a[-1]) - int(a[0]) + 1 for a in nz]))
-        return tuple(slice(max(int(a[0]) - p, 0), min(int(a[-1]) + p + 1, n))
-                     for a, p, n in zip(nz, pad, self.image.shape))
+            pad = np.maximum(pad, np.array([s.stop - s.start for s in tight]))
+        return widened(tight, pad, self.image.shape)
 
     def _pass(self) -> tuple[NDArray[np.bool_], bool]:
         """The region after one pass, and whether its flood reached the side of the pass's box."""
@@ -856,8 +855,5 @@ def _hole_box(inside: NDArray[np.bool_]) -> tuple[slice, ...]:
     Its margin is outside and reaches the array's side outside the box, so
     the holes found in it are the holes of the whole array.
     """
-    nz = [np.flatnonzero(np.any(inside, axis=tuple(j for j in range(inside.ndim) if j != i)))
-          for i in range(inside.ndim)]
-    if any(len(a) == 0 for a in nz):
-        return tuple(slice(0, 0) for _ in inside.shape)
-    return tuple(slice(max(int(a[0]) - 1, 0), min(int(a[-1]) + 2, n)) for a, n in zip(nz, inside.shape))
+    box = occupied_box(inside, 1)
+    return tuple(slice(0, 0) for _ in inside.shape) if box is None else box

@@ -31,6 +31,8 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import ndimage
 
+from engine.image.boxes import occupied_box, widened
+
 __all__ = ["BLOCK_SIGMAS", "block_gaussian_at", "core_and_ring", "gaussian_at", "gaussian_block"]
 
 #: σ of a Gaussian in blocks on the block grid of :func:`block_gaussian_at` (a block a quarter of σ across).
@@ -54,15 +56,12 @@ def core_and_ring(region: NDArray[np.bool_], spacing: ArrayLike, *, rim: float, 
         sp = np.full(region.ndim, float(sp[0]))
     if sp.size != region.ndim or np.any(sp <= 0):
         raise ValueError(f"spacing: expected {region.ndim} positive values, got {spacing!r}")
-    nz = [np.flatnonzero(np.any(region, axis=tuple(j for j in range(region.ndim) if j != i)))
-          for i in range(region.ndim)]
     core, ring = np.zeros_like(region), np.zeros_like(region)
-    if any(len(a) == 0 for a in nz):
+    tight = occupied_box(region)
+    if tight is None:
         return core, ring
-    reach = np.ceil(outer / sp).astype(int) + 1
-    inner = tuple(slice(max(int(a[0]) - 1, 0), min(int(a[-1]) + 2, n)) for a, n in zip(nz, region.shape))
-    wide = tuple(slice(max(int(a[0]) - r, 0), min(int(a[-1]) + r + 1, n))
-                 for a, r, n in zip(nz, reach, region.shape))
+    inner = widened(tight, 1, region.shape)
+    wide = widened(tight, np.ceil(outer / sp).astype(int) + 1, region.shape)
     core[inner] = region[inner] & (ndimage.distance_transform_edt(region[inner], sampling=sp) > rim)
     distance = ndimage.distance_transform_edt(~region[wide], sampling=sp)
     ring[wide] = (distance > rim) & (distance <= outer)

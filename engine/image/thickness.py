@@ -29,6 +29,8 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import ndimage
 
+from engine.image.boxes import occupied_box
+
 #: Depths (in units of the smallest pixel spacing) at which the distance transform is read.
 DEPTHS = (0.5, 1.0, 1.5, 2.0, 3.0, 4.0, 6.0, 8.0, 12.0, 16.0)
 
@@ -106,11 +108,8 @@ def thin_midline(inside: NDArray[np.bool_], spacing: NDArray[np.floating]) -> ND
     out = np.zeros(full.shape, dtype=bool)
     if not full.any():
         return out
-    box = []
-    for axis in range(full.ndim):
-        along = np.flatnonzero(np.any(full, axis=tuple(j for j in range(full.ndim) if j != axis)))
-        box.append(slice(max(int(along[0]) - 1, 0), int(along[-1]) + 2))
-    m = full[tuple(box)]
+    box = occupied_box(full, 1)
+    m = full[box]
     radius = int(np.ceil(THIN_HALF_WIDTH))
     ball = np.sqrt(np.sum((np.indices((2 * radius + 1,) * m.ndim) - radius) ** 2, axis=0)) <= radius
     wide = tuple(slice(radius + 1, -radius - 1) for _ in range(m.ndim))
@@ -129,7 +128,7 @@ def thin_midline(inside: NDArray[np.bool_], spacing: NDArray[np.floating]) -> ND
     sizes = np.bincount(labels.ravel(), minlength=count + 1)
     long_runs = sizes >= THIN_LENGTH
     long_runs[0] = False
-    out[tuple(box)] = long_runs[labels]
+    out[box] = long_runs[labels]
     return out
 
 
