@@ -30,3 +30,12 @@ def test_padding_is_per_axis_and_stays_within_the_array() -> None:
     assert occupied_box(mask, (0, 5)) == (slice(1, 4), slice(10, 20))
     assert widened((slice(4, 5), slice(0, 1)), (10, 1), (8, 3)) == (slice(0, 8), slice(0, 2))
     assert occupied_box(np.zeros((4, 4), dtype=bool), 1) is None
+
+
+def test_the_box_around_points_is_aligned_to_blocks_and_stays_within_the_array() -> None:
+    from engine.image.boxes import around_points
+
+    points = np.array([[40.3, 70.0], [52.0, 66.6]])
+    # widened by 10 px: rows 30.3-62, cols 56.6-80; low corner down to a multiple of 8
+    assert around_points(points, 10, 8, (100, 200)) == (slice(24, 63), slice(56, 81))
+    assert around_points(points, 60, 4, (100, 90)) == (slice(0, 100), slice(4, 90))

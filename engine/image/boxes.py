@@ -23,6 +23,18 @@ def occupied_box(mask: NDArray[np.bool_], pad: int | ArrayLike = 0) -> tuple[sli
     return widened(tuple(slice(int(a[0]), int(a[-1]) + 1) for a in along), pad, mask.shape)
 
 
+def around_points(points: NDArray[np.floating], reach: int, align: int, shape: tuple[int, ...]) -> tuple[slice, ...]:
+    """Slices of the box holding ``points`` (pixel coordinates, one row each) widened by ``reach`` pixels.
+
+    Its low corner is moved down to a multiple of ``align``, so block means
+    taken on the box fall on the image's own blocks; the box never leaves
+    an array of ``shape``.
+    """
+    lo = np.maximum((np.floor(points.min(axis=0)).astype(int) - reach) // align * align, 0)
+    hi = np.minimum(np.ceil(points.max(axis=0)).astype(int) + reach + 1, shape)
+    return tuple(slice(int(a), int(b)) for a, b in zip(lo, hi))
+
+
 def widened(box: tuple[slice, ...], pad: int | ArrayLike, shape: tuple[int, ...]) -> tuple[slice, ...]:
     """``box`` widened by ``pad`` elements on both sides (one number or one per axis), within an array of ``shape``."""
     pads = np.broadcast_to(np.asarray(pad, dtype=int), (len(shape),))

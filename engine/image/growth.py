@@ -92,7 +92,7 @@ from skimage.filters import threshold_otsu
 
 from engine.front.constants import SIDE_SHARE
 from engine.front.geometry import seed_disks
-from engine.image.boxes import occupied_box, widened
+from engine.image.boxes import around_points, occupied_box, widened
 from engine.image.coarse_start import block_mean, to_coarse
 from engine.image.ring_statistics import core_and_ring
 
@@ -220,11 +220,9 @@ def haar_noise(image: NDArray[np.floating], centres: ArrayLike, resolved: int = 
     block = max(int(resolved), 1)
     # only the box the coefficients are read in, aligned to the larger blocks
     step = 2 * block
-    reach = NOISE_BOX * block
-    lo = np.maximum((np.floor(points.min(axis=0)).astype(int) - reach) // step * step, 0)
-    hi = np.minimum(np.ceil(points.max(axis=0)).astype(int) + reach + 1, img.shape)
-    img = img[tuple(slice(a, b) for a, b in zip(lo, hi))]
-    points = points - lo
+    box = around_points(points, NOISE_BOX * block, step, img.shape)
+    img = img[box]
+    points = points - [s.start for s in box]
     level = block_mean(img, block) if block > 1 else img
     finest = noise_level(level, to_coarse(points, block), half=NOISE_BOX)
     next_level = 2.0 * noise_level(block_mean(level, 2), to_coarse(points, step), half=NOISE_BOX // 2)

@@ -28,6 +28,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from engine.image.boxes import around_points
 from engine.image.coarse_start import MIN_COARSE_SIDE, block_mean, to_coarse
 from engine.image.growth import NOISE_BOX, noise_level
 
@@ -52,11 +53,9 @@ def resolved_block(image: NDArray[np.floating], centres: ArrayLike, *, largest: 
     side = MIN_COARSE_SIDE.get(img.ndim, 0)
     shape = img.shape
     # only the boxes the coefficients are read in: the seeds' box widened by NOISE_BOX pixels at every level
-    reach = NOISE_BOX * largest
-    lo = np.maximum((np.floor(points.min(axis=0)).astype(int) - reach) // largest * largest, 0)
-    hi = np.minimum(np.ceil(points.max(axis=0)).astype(int) + reach + 1, shape)
-    img = img[tuple(slice(a, b) for a, b in zip(lo, hi))]
-    points = points - lo
+    box = around_points(points, NOISE_BOX * largest, largest, shape)
+    img = img[box]
+    points = points - [s.start for s in box]
     block, level = 1, img
     detail = noise_level(level, points, half=NOISE_BOX)
     while 2 * block <= largest and min(shape) / (2 * block) >= side:
