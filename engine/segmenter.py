@@ -46,7 +46,7 @@ from engine.image.features import ImageFeatures, check_features, compute_feature
 from engine.image.growth import GROWTH_MODELS, RegionGrowth
 from engine.image.resolution import resolved_block
 from engine.image.statistics import estimate_window
-from engine.image.thickness import THIN_LENGTH, thin_length
+from engine.image.thickness import THIN_FLOOD_HALF_WIDTH, THIN_LENGTH, thin_length
 from engine.validation import (
     check_coarse,
     check_detail,
@@ -288,7 +288,7 @@ class Segmenter:
         if wanted > 1 and self._nodes == "lattice":
             self._factor = resolvable_factor(self._growth.inside, self._spacing, wanted)
         if (self._nodes == "lattice" and self._detail < THIN_DETAIL and not self._growth.unbounded
-                and thin_length(self._growth.inside, self._spacing) >= THIN_LENGTH):
+                and thin_length(self._growth.inside, self._spacing, half_width=THIN_FLOOD_HALF_WIDTH) >= THIN_LENGTH):
             self._asked_detail, self._detail = self._detail, THIN_DETAIL
         self.stage = "coarse" if self._factor > 1 else "fine"
         if self.stage == "coarse":

@@ -10,7 +10,7 @@ from engine.front.convergence import CHECK_EVERY, OutlineMotion, hausdorff
 from engine.image.growth import CLEAR_INSIDE, RegionGrowth, noise_level, smoothing_factor
 from engine.analysis.metrics import dice
 from engine.segment import segment
-from engine.image.thickness import THIN_LENGTH, half_width, thin_length, thin_midline
+from engine.image.thickness import THIN_FLOOD_HALF_WIDTH, THIN_LENGTH, half_width, thin_length, thin_midline
 from partial_volume import partial_volume
 
 
@@ -146,6 +146,24 @@ def test_half_width_of_strips_and_disks() -> None:
     normals = (points - [60.2, 59.7]) / 40.0
     assert np.all(half_width(disk, np.ones(2), points, normals, 8.0) == 8.0)
     assert THIN_LENGTH > 2
+
+
+def test_a_flood_with_a_partial_volume_fringe_along_a_thin_strip_counts_as_thin() -> None:
+    # A strip 4 px wide with a fringe pixel on every other column of each side (what a flood takes of a
+    # vessel's partial-volume pixels at SNR 4-6): its midline's pixel-centre distance to the outside
+    # alternates between 2 and √5, so at the front's bar of 2 px no run is THIN_LENGTH long, and at the
+    # flood's bar (THIN_FLOOD_HALF_WIDTH, 2.25) the whole midline counts. Plain strips 5 and 6 px wide
+    # (pixel-centre half-width 3) count at neither.
+    fringed = np.zeros((40, 200), dtype=bool)
+    fringed[18:22, 20:180] = True
+    fringed[17, 20:180:2] = True
+    fringed[22, 21:180:2] = True
+    assert thin_length(fringed, np.ones(2)) == 0
+    assert thin_length(fringed, np.ones(2), half_width=THIN_FLOOD_HALF_WIDTH) >= 150
+    for rows in (slice(17, 22), slice(17, 23)):
+        plain = np.zeros((40, 200), dtype=bool)
+        plain[rows, 20:180] = True
+        assert thin_length(plain, np.ones(2), half_width=THIN_FLOOD_HALF_WIDTH) == 0
 
 
 @pytest.mark.parametrize("spacing", [(1.0, 1.0), (0.8, 1.3), (0.6, 0.6), (2.0, 1.5)])
