@@ -139,3 +139,49 @@ def test_a_click_on_an_oversampled_slice_settles_on_its_block_mean_first_as_segm
     outline = s.commit()
     assert dice(outline.mask, reference.mask) >= 0.998
     assert dice(outline.mask, truth) >= 0.98
+
+
+def test_a_live_front_raised_to_two_nodes_a_pixel_comes_back_from_undo_and_from_a_working_session(tmp_path) -> None:
+    # A click on a strip 3 px wide: the flood finds a thin part and the front runs at two lattice nodes per
+    # pixel, while the label's settings still say one. Its snapshot is rebuilt at the snapshot's detail when
+    # the front object is gone (the cache keeps the last few; a working session reopened): at the settings'
+    # detail its node keys fell off the image (IndexError), so a saved session with such a live front could
+    # not be reopened.
+    from engine.session.working import open_working, save_working
+
+    case = gp.strip(3.0)
+    s, lab = _session(case)
+    s.seed(*case.seed, label=lab, slice=0)
+    s.evolve(steps=60)
+    assert s._front.detail == 2 and s.settings(lab).detail == 1
+    area = s.frame().area_mm2
+    s._fronts.clear()  # as after work on more fronts than the cache keeps
+    s.undo()
+    s.redo()
+    assert s._front.detail == 2 and s.frame().area_mm2 == area
+    path = tmp_path / "strip.tide"
+    save_working(s, path)
+    again, _ = open_working(path)
+    assert again.frame().area_mm2 == area
+    s.evolve(steps=5)
+    again.evolve(steps=5)
+    assert np.array_equal(again._front.snapshot().phi, s._front.snapshot().phi)  # the same steps, bit for bit
+
+
+def test_a_snapshot_stored_without_its_detail_is_restored_at_the_detail_its_nodes_fit() -> None:
+    # States stored before the detail was kept: the lattice whose pixel-centre nodes agree with the
+    # stored inside image is the one (1, 2 or 4 nodes per pixel); a front refuses a snapshot taken at another.
+    from engine.front import Front
+    from engine.session.fronts import snapshot_detail
+
+    case = gp.strip(3.0)
+    for detail in (1, 2):
+        front = Front.from_seeds(case.image, [case.seed], spacing=case.spacing, model="region", detail=detail)
+        front.step(20)
+        snap = front.snapshot()
+        assert snap.detail == detail
+        old = snap.updated(detail=None)
+        assert snapshot_detail(old, 1) == detail and snapshot_detail(old, 2) == detail
+    other = Front.from_seeds(case.image, [case.seed], spacing=case.spacing, model="region", detail=1)
+    with pytest.raises(ValueError, match="2 lattice nodes per pixel"):
+        other.restore(snap)

@@ -72,7 +72,7 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
         # the whole state, replaced (never changed) by every step and edit; the rest are caches
         self._state = FrontState(np.zeros((0, layout.key_ndim), dtype=np.int64), np.zeros(0), np.zeros(0),
                                  None, (0.0, 0.0, 0.0, 0.0), 0.0, 0, False, (), params, None, None,
-                                 noise=0.0)  # type: ignore[arg-type]
+                                 noise=0.0, detail=layout.detail)  # type: ignore[arg-type]
         self.timings: dict = {"step": 0.0, "rebuild": 0.0, "rebuilds": 0}
         self._band: Band = None  # type: ignore[assignment]  # derived from the state's indices and layer
         self._outline: OutlineMotion | None = None
@@ -387,8 +387,12 @@ class Front(StateAccess, BandBuilding, RegionStatistics, LayerSpeeds, Evolution,
             raise ValueError("snapshot was taken on another node layout (lattice against scattered nodes)")
         if snap.inside.shape != self.shape:
             raise ValueError(f"snapshot was taken on an image of shape {snap.inside.shape}, not {self.shape}")
+        if snap.detail is not None and snap.detail != self.detail:
+            raise ValueError(f"snapshot was taken at {snap.detail} lattice nodes per pixel, not {self.detail}")
         if snap.noise is None:  # a state stored without it keeps this front's
             snap = snap.updated(noise=self._noise)
+        if snap.detail is None:  # stored before the detail was kept: the caller built this front at it
+            snap = snap.updated(detail=self.detail)
         old_params = self.params
         self._state = snap
         if snap.params != old_params:

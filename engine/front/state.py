@@ -74,6 +74,7 @@ class FrontState:
     rim: tuple[float, float, float, float] | None = None  # the same over the pixels the outline may cut
     resolved_block: int = 1  # pixels a side of the block the image resolves (engine.image.resolution)
     near: NDArray[np.int64] | None = None  # active positions evolved by their own derivatives (the last pick)
+    detail: int | None = None  # lattice nodes per pixel of the layout it was taken on (None: stored before it was kept)
 
     def __post_init__(self) -> None:
         for f in fields(self):

@@ -132,7 +132,8 @@ def restore_front(image: NDArray[np.floating], snapshot: FrontSnapshot, spacing:
     """A new front object in the state ``snapshot`` (started from the snapshot's inside, then restored)."""
     shape = np.shape(image)
     inside = snapshot.inside
-    kwargs = _front_kwargs(settings)
+    # the flood may have raised the detail for a thin structure: the snapshot's nodes are at its detail
+    kwargs = dict(_front_kwargs(settings), detail=snapshot_detail(snapshot, settings.detail))
     if not inside.any() or inside.all():
         inside = np.zeros(shape, dtype=bool)
         inside[shape[0] // 2, shape[1] // 2] = True
@@ -140,6 +141,32 @@ def restore_front(image: NDArray[np.floating], snapshot: FrontSnapshot, spacing:
                             **dict(kwargs, window=snapshot.params.window) if settings.model == "window" else kwargs)
     front.restore(snapshot)
     return front
+
+
+def snapshot_detail(snapshot: FrontSnapshot, default: int) -> int:
+    """Lattice nodes per pixel of the front ``snapshot`` was taken of.
+
+    A snapshot stored before the detail was kept does not say: the detail
+    (of 1, 2 and 4, ``default`` first) whose lattice holds every node key
+    and whose nodes at pixel centres agree best with the stored inside
+    image is taken.
+    """
+    if snapshot.detail is not None:
+        return int(snapshot.detail)
+    keys, phi, inside = np.asarray(snapshot.indices), np.asarray(snapshot.phi), np.asarray(snapshot.inside)
+    if keys.ndim != 2 or keys.shape[1] != inside.ndim or len(keys) == 0:
+        return int(default)  # scattered node ids, or no band
+    best, best_share = int(default), -1.0
+    for detail in dict.fromkeys((int(default), 1, 2, 4)):
+        if keys.min() < 0 or np.any(keys.max(axis=0) > (np.array(inside.shape) - 1) * detail):
+            continue
+        on_pixel = np.all(keys % detail == 0, axis=1)
+        if not on_pixel.any():
+            continue
+        share = float(np.mean((phi[on_pixel] < 0) == inside[tuple((keys[on_pixel] // detail).T)]))
+        if share > best_share:
+            best, best_share = detail, share
+    return best
 
 
 def stroke_points_mm(points_px: NDArray[np.floating], spacing: NDArray[np.floating], radius_mm: float
