@@ -37,6 +37,7 @@ from scipy import ndimage
 from engine.front import FrontParams
 from engine.front.constants import DEFAULT_LOCAL_RADIUS, RIM_PIXELS, RING_PIXELS
 from engine.front.core import Front
+from engine.front.finer_lattice import THIN_DETAIL, at_thin_detail, cannot_hold_distance
 from engine.front.geometry import seed_disks
 from engine.front.speeds import SETTING_NAMES
 from engine.image.boxes import occupied_box
@@ -68,8 +69,6 @@ START_BEYOND = 0.1
 #: The fine front's nodes within this many pixels of the flood's outline get Newton closest-point
 #: distances; those farther keep the distance between pixel centres.
 EXACT_WITHIN = 2.5
-#: Lattice nodes per pixel for a structure with a thin part (:func:`engine.image.thickness.thin_length`).
-THIN_DETAIL = 2
 #: Default step budget (flood passes, coarse and fine steps together).
 DEFAULT_MAX_STEPS = 20000
 #: Keyword arguments of :func:`engine.segment.segment` besides :class:`engine.front.speeds.FrontParams`' fields.
@@ -137,6 +136,7 @@ class Segmenter:
             self._params["window"] = estimate_window(smoothed, self._seeds)
         self._requested = None if coarse is None else int(coarse)
         self._asked_detail = detail  # the detail asked for, when the flood found a thin part and raised it
+        self._raised_at: int | None = None  # the step at which a front that kept flattening was rebuilt finer
         self._factor = 1
         # the pixel the image resolves, in pixels (engine.image.resolution): the fine front's tolerance is a
         # fraction of it, since finer motion of the outline follows interpolated values, not detail
@@ -269,6 +269,11 @@ class Segmenter:
                 self._timings["evolve_s"] += time.perf_counter() - t0
                 return
             front.step(1)
+            if cannot_hold_distance(front):
+                # one node per pixel cannot hold a distance next to this outline (engine.front.finer_lattice)
+                self._fine = at_thin_detail(front)
+                self._detail = THIN_DETAIL
+                self._raised_at = front.steps
             self._timings["evolve_s"] += time.perf_counter() - t0
 
     # ------------------------------------------------------------------ hand-overs
@@ -526,6 +531,8 @@ class Segmenter:
                     detail=front.detail)
         if self._asked_detail != front.detail and self._nodes == "lattice":
             used["detail_requested"] = self._asked_detail
+        if self._raised_at is not None:
+            used["detail_raised_at_step"] = self._raised_at
         if self._requested is not None and self._factor != self._requested:
             used["coarse_requested"] = self._requested
         if self._resolved > 1:

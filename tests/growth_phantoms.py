@@ -370,6 +370,20 @@ def magnitude_noise(rng: np.random.Generator, side: int = 160) -> Case:
                 info={"snr": 1.0 / sigma, "background": background})
 
 
+def magnitude_noise_low_snr(rng: np.random.Generator, side: int = 160) -> Case:
+    """As :func:`magnitude_noise` at SNR 2-3: contrast to noise 1.4-2.7, less after the background's Rician lift."""
+    mean = rng.uniform(18, 34)
+    centre = _place(rng, side, mean)
+    obj = polar_shape(centre, blob_radius(rng, mean))
+    sigma = 1.0 / rng.uniform(2.0, 3.0)
+    background = rng.uniform(0.1, 0.3)
+    clean = render((side, side), (obj, 1.0), background=background)
+    image = np.hypot(clean + rng.normal(0, sigma, clean.shape), rng.normal(0, sigma, clean.shape))
+    truth = truth_of((side, side), obj)
+    return Case("magnitude noise, SNR 2-3", image, truth, _seed_in(rng, truth),
+                info={"snr": 1.0 / sigma, "background": background})
+
+
 def concave_arc(rng: np.random.Generator, side: int = 160) -> Case:
     """A C-shaped arc 8-16 px wide bent through 180-306° (radius 0.28-0.4·side), clicked near one end, SNR 5-20.
 

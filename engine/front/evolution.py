@@ -328,6 +328,8 @@ class Evolution:
             return
         needs = self._needs_rebuild()
         flattened = not needs and self.steps % STATISTICS_EVERY == 0 and self._has_flattened()
+        if flattened:
+            self._swap(flattenings=self.flattenings + 1)
         if needs or flattened:
             try:
                 self.rebuild(reinitialise=True if flattened else None)

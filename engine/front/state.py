@@ -75,6 +75,7 @@ class FrontState:
     resolved_block: int = 1  # pixels a side of the block the image resolves (engine.image.resolution)
     near: NDArray[np.int64] | None = None  # active positions evolved by their own derivatives (the last pick)
     detail: int | None = None  # lattice nodes per pixel of the layout it was taken on (None: stored before it was kept)
+    flattenings: int = 0  # reinitialisations because φ next to the front flattened (engine.front.band)
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -154,6 +155,11 @@ class StateAccess:
     @property
     def converged(self) -> bool:
         return self._state.converged
+
+    @property
+    def flattenings(self) -> int:
+        """How often φ next to the front flattened and was reinitialised (a layer that cannot hold a distance)."""
+        return int(self._state.flattenings)
 
     @property
     def _phi(self) -> NDArray[np.floating]:

@@ -11,6 +11,7 @@ from dataclasses import replace
 from typing import Any
 
 from engine.front import Front
+from engine.front.finer_lattice import at_thin_detail, cannot_hold_distance
 from engine.segmenter import fine_tolerance
 from engine.session import fronts
 from engine.session.settings import FrontSettings
@@ -87,6 +88,10 @@ class Running:
                         if front.steps >= self._run_settings.max_steps and steps is None:
                             break
                         front.step(1)
+                        if cannot_hold_distance(front):
+                            # as segment() does: one node per pixel cannot hold a distance next to this outline
+                            live_now = self._stack.state.live
+                            self._adopt(at_thin_detail(front), self._stack.state, live_now.label, live_now.slice)
                     taken += 1
                     now = time.perf_counter()
                     if now >= due:
