@@ -89,3 +89,11 @@ def test_the_session_rebuilds_a_flattening_front_as_segment_does() -> None:
     # the same steps (the reference's count holds the flood's passes too) and the same outline
     assert s._front.steps == reference.steps - reference.timings["growth_passes"]
     assert np.array_equal(s._front.mask(), reference.mask)
+    # the run is one command: undone, the seeds are back; redone, the rebuilt front (its snapshot at two
+    # nodes per pixel, the front objects dropped) is back as it was
+    grown = s._front.mask()
+    s.undo()
+    assert s.live.snapshot is None and s.live.seeds
+    s._fronts.clear()
+    s.redo()
+    assert s._front.detail == THIN_DETAIL and np.array_equal(s._front.mask(), grown)
