@@ -351,8 +351,8 @@ def clicked_vessel(rng: np.random.Generator, side: int = 256, *, snr: tuple[floa
                 info={"width_px": w, "snr": 1.0 / noise, "inside": inside})
 
 
-def magnitude_noise(rng: np.random.Generator, side: int = 160) -> Case:
-    """An object (1) on a background of 0.1-0.3 in a magnitude image: Rician noise at SNR 3-6.
+def magnitude_noise(rng: np.random.Generator, side: int = 160, *, snr: tuple[float, float] = (3.0, 6.0)) -> Case:
+    """An object (1) on a background of 0.1-0.3 in a magnitude image: Rician noise at SNR 3-6 (``snr``).
 
     An MR magnitude image is |signal + complex Gaussian noise| (Gudbjartsson & Patz, Magn. Reson. Med.
     34 (1995) 910-914): the noise is not Gaussian, and it lifts the dark background by about σ·√(π/2)
@@ -361,27 +361,18 @@ def magnitude_noise(rng: np.random.Generator, side: int = 160) -> Case:
     mean = rng.uniform(18, 34)
     centre = _place(rng, side, mean)
     obj = polar_shape(centre, blob_radius(rng, mean))
-    sigma = 1.0 / rng.uniform(3.0, 6.0)
+    sigma = 1.0 / rng.uniform(*snr)
     background = rng.uniform(0.1, 0.3)
     clean = render((side, side), (obj, 1.0), background=background)
     image = np.hypot(clean + rng.normal(0, sigma, clean.shape), rng.normal(0, sigma, clean.shape))
     truth = truth_of((side, side), obj)
-    return Case("magnitude noise", image, truth, _seed_in(rng, truth),
+    return Case(f"magnitude noise, SNR {snr[0]:g}-{snr[1]:g}", image, truth, _seed_in(rng, truth),
                 info={"snr": 1.0 / sigma, "background": background})
 
 
 def magnitude_noise_low_snr(rng: np.random.Generator, side: int = 160) -> Case:
     """As :func:`magnitude_noise` at SNR 2-3: contrast to noise 1.4-2.7, less after the background's Rician lift."""
-    mean = rng.uniform(18, 34)
-    centre = _place(rng, side, mean)
-    obj = polar_shape(centre, blob_radius(rng, mean))
-    sigma = 1.0 / rng.uniform(2.0, 3.0)
-    background = rng.uniform(0.1, 0.3)
-    clean = render((side, side), (obj, 1.0), background=background)
-    image = np.hypot(clean + rng.normal(0, sigma, clean.shape), rng.normal(0, sigma, clean.shape))
-    truth = truth_of((side, side), obj)
-    return Case("magnitude noise, SNR 2-3", image, truth, _seed_in(rng, truth),
-                info={"snr": 1.0 / sigma, "background": background})
+    return magnitude_noise(rng, side, snr=(2.0, 3.0))
 
 
 def concave_arc(rng: np.random.Generator, side: int = 160) -> Case:

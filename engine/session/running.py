@@ -90,8 +90,7 @@ class Running:
                         front.step(1)
                         if cannot_hold_distance(front):
                             # as segment() does: one node per pixel cannot hold a distance next to this outline
-                            live_now = self._stack.state.live
-                            self._adopt(at_thin_detail(front), self._stack.state, live_now.label, live_now.slice)
+                            self._adopt(at_thin_detail(front), self._stack.state, live.label, live.slice)
                     taken += 1
                     now = time.perf_counter()
                     if now >= due:
